@@ -1,0 +1,1 @@
+"""The ``retol`` command line: a thin face over the library, one module per subcommand."""

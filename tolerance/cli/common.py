@@ -1,0 +1,110 @@
+"""Options and error handling shared by every subcommand."""
+
+from __future__ import annotations
+
+import functools
+import json
+import sys
+import warnings
+
+import click
+
+from ..errors import RetolError
+
+
+class WavelengthType(click.ParamType):
+    """A wavelength with a unit (632.8nm, 0.6328um); a bare number is nm.  Gives nm."""
+
+    name = "wavelength"
+
+    def convert(self, value, param, ctx):
+        from ..units import wavelength_nm
+
+        if isinstance(value, float):
+            return value
+        try:
+            return wavelength_nm(value, f"--{param.name.replace('_', '-')}" if param else "value")
+        except RetolError as exc:
+            self.fail(str(exc), param, ctx)
+
+
+class IntervalType(WavelengthType):
+    name = "interval"
+
+
+class LengthType(click.ParamType):
+    """A length with a unit (1000um, 1mm); a bare number is µm.  Gives µm."""
+
+    name = "length"
+
+    def convert(self, value, param, ctx):
+        from ..units import length_um
+
+        if isinstance(value, float):
+            return value
+        try:
+            return length_um(value, f"--{param.name.replace('_', '-')}" if param else "value")
+        except RetolError as exc:
+            self.fail(str(exc), param, ctx)
+
+
+WAVELENGTH = WavelengthType()
+LENGTH = LengthType()
+
+json_option = click.option("--json", "as_json", is_flag=True, help="Print JSON for scripts.")
+extrapolate_option = click.option(
+    "--extrapolate", is_flag=True, help="Allow wavelengths outside a formula's valid range (warns)."
+)
+
+
+def fail(message: str, code: int = 2):
+    """Print one line on stderr and exit non-zero, with no traceback."""
+    click.echo(f"retol: error: {message}", err=True)
+    sys.exit(code)
+
+
+def user_errors(func):
+    """Turn package errors into a one-line message and a non-zero exit; warnings go to stderr."""
+
+    @functools.wraps(func)
+    def wrapper(*args, **kwargs):
+        def show(message, category, filename, lineno, file=None, line=None):
+            click.echo(f"retol: warning: {message}", err=True)
+
+        old = warnings.showwarning
+        warnings.showwarning = show
+        try:
+            return func(*args, **kwargs)
+        except RetolError as exc:
+            fail(str(exc))
+        except KeyboardInterrupt:
+            fail("interrupted; nothing was written", code=130)
+        finally:
+            warnings.showwarning = old
+
+    return wrapper
+
+
+def echo_json(obj):
+    click.echo(json.dumps(obj, indent=2, allow_nan=False, default=float))
+
+
+def table(rows: list[list], header: list[str]) -> str:
+    """A plain aligned text table."""
+    cells = [[str(h) for h in header]] + [[str(c) for c in r] for r in rows]
+    widths = [max(len(r[i]) for r in cells) for i in range(len(header))]
+    lines = []
+    for k, r in enumerate(cells):
+        lines.append("  ".join(c.rjust(w) if k and _num(c) else c.ljust(w)
+                               for c, w in zip(r, widths, strict=True)).rstrip())
+        if k == 0:
+            lines.append("  ".join("-" * w for w in widths))
+    return "\n".join(lines)
+
+
+def _num(s: str) -> bool:
+    try:
+        float(s.split()[0])
+        return True
+    except (ValueError, IndexError):
+        return False

@@ -1,0 +1,46 @@
+"""Entry point of the ``retol`` command; subcommands load lazily so that --help is fast."""
+
+from __future__ import annotations
+
+import importlib
+
+import click
+
+from .. import __version__
+
+#: subcommand name -> (module, attribute, one-line help)
+SUBCOMMANDS = {
+    "materials": ("tolerance.cli.materials", "materials", "List materials or show their indices."),
+    "plate": ("tolerance.cli.plate", "plate", "Design a plate and tabulate its retardance."),
+    "state": ("tolerance.cli.state", "state", "Push one polarization state through a plate."),
+    "run": ("tolerance.cli.run", "run", "Run a spec's Monte Carlo tolerance analysis."),
+    "demo": ("tolerance.cli.demo", "demo", "Run a built-in example and write its report."),
+    "report": ("tolerance.cli.report", "report", "Write the report of a saved results grid."),
+}
+
+
+class LazyGroup(click.Group):
+    def list_commands(self, ctx):
+        return list(SUBCOMMANDS)
+
+    def get_command(self, ctx, name):
+        if name not in SUBCOMMANDS:
+            return None
+        mod, attr, _ = SUBCOMMANDS[name]
+        return getattr(importlib.import_module(mod), attr)
+
+    def format_commands(self, ctx, formatter):
+        rows = [(name, help_) for name, (_, _, help_) in SUBCOMMANDS.items()]
+        with formatter.section("Commands"):
+            formatter.write_dl(rows)
+
+
+@click.group(cls=LazyGroup, context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(__version__, prog_name="retol")
+def cli():
+    """retol: choose and tolerance optical retarders (waveplates).
+
+    Wavelengths take units (632.8nm, 0.6328um); a bare number is nm.  Lengths take units
+    (1000um, 1mm); a bare number is um.  Angles are degrees from x, counter-clockwise looking
+    toward the source.  Every command has --json for scripts.
+    """
