@@ -169,7 +169,7 @@ def birefringence(material: Material, wavelength_nm, temperature_c=None, extrapo
     Examples
     --------
     >>> round(float(birefringence(get_material("quartz"), 632.8)), 5)
-    0.00901
+    0.00904
     """
     n_o, n_e = indices(material, wavelength_nm, extrapolate)
     dn = n_e - n_o
