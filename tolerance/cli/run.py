@@ -1,0 +1,195 @@
+"""``retol run``: the Monte Carlo tolerance analysis of a spec file."""
+
+from __future__ import annotations
+
+import shlex
+import shutil
+import sys
+import tempfile
+from pathlib import Path
+
+import click
+
+from .common import echo_json, table, user_errors
+
+
+def output_folder(out, spec_path: Path, force: bool) -> Path:
+    """The run's output folder; refuse an existing result without --force."""
+    from ..errors import RetolError
+
+    folder = Path(out) if out else Path("reports") / spec_path.stem
+    if folder.exists() and not folder.is_dir():
+        raise RetolError("--out", f"{str(folder)!r} is a file", "give a folder")
+    if folder.exists() and any(folder.iterdir()) and not force:
+        raise RetolError("--out", f"{str(folder)!r} already holds results",
+                         "pass --force to replace them, or choose another --out")
+    parent = folder.resolve().parent
+    probe = parent
+    while not probe.exists():
+        probe = probe.parent
+    import os
+
+    if not os.access(probe, os.W_OK):
+        raise RetolError("--out", f"cannot write into {str(probe)!r}", "choose a writable folder")
+    return folder
+
+
+def publish(tmp: Path, folder: Path):
+    """Move a finished temporary folder into place, replacing an old one only at the end."""
+    folder.parent.mkdir(parents=True, exist_ok=True)
+    old = None
+    if folder.exists():
+        old = folder.with_name(f".{folder.name}.old-{next(tempfile._get_candidate_names())}")
+        folder.rename(old)
+    try:
+        tmp.rename(folder)
+    except OSError:
+        shutil.move(str(tmp), str(folder))
+    if old is not None:
+        shutil.rmtree(old, ignore_errors=True)
+
+
+def summary_rows(ds):
+    """One dict per candidate: the JSON contract of ``retol run --json`` and more."""
+    import numpy as np
+
+    rows = []
+    qi = list(ds["quantile"].values)
+
+    def q(var, c, p):
+        v = ds[var].sel(candidate=c)
+        if p in qi:
+            return float(v.sel(quantile=p))
+        return float(np.quantile(ds["worst_metric"].sel(candidate=c), p))
+
+    for c in ds["candidate"].values:
+        th = ds["layer_thickness"].sel(candidate=c).values
+        mats = ds["layer_material"].sel(candidate=c).values
+        worst = ds["worst_metric"].sel(candidate=c).values
+        rows.append({
+            "name": str(c),
+            "construction": str(ds["construction"].sel(candidate=c).values),
+            "layers": [{"material": str(m), "thickness_um": float(t)}
+                       for m, t in zip(mats, th, strict=True) if str(m)],
+            "yield": float(ds["yield"].sel(candidate=c)),
+            "yield_low": float(ds["yield_low"].sel(candidate=c)),
+            "yield_high": float(ds["yield_high"].sel(candidate=c)),
+            "nominal_worst": float(ds["nominal_worst"].sel(candidate=c)),
+            "median_worst": float(np.quantile(worst, 0.5)),
+            "p05_worst": float(np.quantile(worst, 0.05)),
+            "dominant": str(ds["dominant"].sel(candidate=c).values),
+            "nominal_dop": float(ds["nominal_dop"].sel(candidate=c)),
+            "nominal_spectral_metric": float(ds["nominal_spectral_metric"].sel(candidate=c)),
+            "temperature_coefficient_deg_per_k": float(
+                ds["temperature_coefficient"].sel(candidate=c)),
+            "acceptance_half_angle_deg": float(ds["acceptance_half_angle"].sel(candidate=c)),
+            "rank": int(ds["rank"].sel(candidate=c)),
+            "reason": str(ds["reason"].sel(candidate=c).values),
+        })
+    _ = q
+    return rows
+
+
+def print_summary(ds, rows):
+    unit = ds.attrs.get("metric_units", "")
+    metric = ds.attrs.get("goal_metric", "")
+    click.echo(f"{ds.attrs.get('title', '')}: goal {ds.attrs['goal_state']} with {metric} >= "
+               f"{ds.attrs['goal_min']:g} {unit if unit != '1' else ''}over the "
+               f"{ds.attrs['goal_over']}; source {ds.attrs.get('source_description', '')}; "
+               f"{ds.attrs['samples']} samples, seed {ds.attrs['seed']}")
+    body = []
+    for r in sorted(rows, key=lambda r: r["rank"]):
+        th = " + ".join(f"{la['thickness_um']:.2f}" for la in r["layers"])
+        body.append([
+            r["rank"], r["name"], r["construction"], th, f"{r['nominal_worst']:.4f}",
+            f"{r['median_worst']:.4f}", f"{r['p05_worst']:.4f}",
+            f"{100 * r['yield']:.1f}% [{100 * r['yield_low']:.1f}, {100 * r['yield_high']:.1f}]",
+            r["dominant"], f"{r['nominal_dop']:.4f}", f"{r['temperature_coefficient_deg_per_k']:+.4f}",
+            f"{r['acceptance_half_angle_deg']:.2f}",
+        ])
+    click.echo(table(body, ["#", "candidate", "construction", "thicknesses [um]", "nominal worst",
+                            "median worst", "p05 worst", "yield [95% CI]", "dominant",
+                            "nominal DOP", "deg/K", "accept. [deg]"]))
+    best = min(rows, key=lambda r: r["rank"])
+    click.echo(f"\n{best['name']}: {best['reason']}")
+
+
+def execute(spec, spec_path: Path, out, force, samples, seed, chunk_size, as_json, formats,
+            write_report=True, argv=None, quiet=False):
+    """Run a spec end to end: Monte Carlo, grid, report, all written atomically into --out."""
+    from ..grid import save_grid
+    from ..montecarlo import run as mc_run
+
+    folder = output_folder(out, spec_path, force)
+    bar = None
+    state = {"last": 0}
+
+    def progress(done, total):
+        nonlocal bar
+        if quiet:
+            return
+        if bar is None:
+            bar = click.progressbar(length=total, label="Monte Carlo", file=sys.stderr,
+                                    show_eta=True)
+            bar.__enter__()
+        bar.update(done - state["last"])
+        state["last"] = done
+
+    try:
+        ds = mc_run(spec, samples=samples, seed=seed, chunk_size=chunk_size, progress=progress)
+    finally:
+        if bar is not None:
+            bar.__exit__(None, None, None)
+    ds.attrs["command"] = " ".join(shlex.quote(a) for a in (argv or ["retol"] + sys.argv[1:]))
+    folder.parent.mkdir(parents=True, exist_ok=True)
+    tmp = Path(tempfile.mkdtemp(prefix=f".{folder.name}.part-", dir=folder.parent))
+    try:
+        save_grid(ds, tmp / "grid.nc")
+        if write_report:
+            from ..report import write_report as _write
+
+            _write(ds, tmp, formats=formats, force=True, command=ds.attrs["command"])
+        publish(tmp, folder)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+    rows = summary_rows(ds)
+    if as_json:
+        echo_json({"candidates": rows, "output": str(folder)})
+    else:
+        print_summary(ds, rows)
+        click.echo(f"\nwrote {folder / 'grid.nc'}" + (f" and {folder / 'report.html'}"
+                                                      if write_report else ""))
+    return ds, folder
+
+
+@click.command()
+@click.argument("spec_file", type=click.Path(dir_okay=False, path_type=Path))
+@click.option("--samples", type=int, help="Monte Carlo samples (overrides [run] samples).")
+@click.option("--seed", type=int, help="Random seed (overrides [run] seed).")
+@click.option("--chunk-size", "chunk_size", type=int,
+              help="Samples per chunk (memory bound); results do not depend on it.")
+@click.option("--out", type=click.Path(file_okay=False, path_type=Path),
+              help="Output folder [default: reports/<spec file stem>/].")
+@click.option("--force", is_flag=True, help="Replace an existing output folder.")
+@click.option("--format", "formats", multiple=True, default=("png",), show_default=True,
+              help="Figure format for the report: png, svg or pdf (repeatable).")
+@click.option("--no-report", is_flag=True, help="Write only grid.nc, no figures or HTML.")
+@click.option("--json", "as_json", is_flag=True, help="Print JSON for scripts.")
+@user_errors
+def run(spec_file, samples, seed, chunk_size, out, force, formats, no_report, as_json):
+    """Monte Carlo tolerance analysis of SPEC_FILE: yield, spread and dominant tolerance."""
+    from ..spec import load_spec
+
+    _check_formats(formats)
+    spec = load_spec(spec_file)
+    execute(spec, spec_file, out, force, samples, seed, chunk_size, as_json, formats,
+            write_report=not no_report)
+
+
+def _check_formats(formats):
+    from ..errors import RetolError
+
+    for f in formats:
+        if f not in ("png", "svg", "pdf"):
+            raise RetolError("--format", f"unknown figure format {f!r}", "use png, svg or pdf")
