@@ -66,6 +66,12 @@ def drift_distribution(spec: dict) -> dict | None:
         raw = {k: (_nm(v, f"[source].drift.{k}") if isinstance(v, str) else v)
                for k, v in raw.items()}
     d = _distribution(_Ctx(spec.get("spec_path", "<spec>")), "drift", raw)
+    if d["kind"] == "range":
+        # an absolute wavelength range: the draws are offsets from the line's centre
+        from .units import wavelength_nm
+
+        c = wavelength_nm(src.get("center", 0.0), "[source].center")
+        d = {"kind": "range", "low": d["low"] - c, "high": d["high"] - c}
     return d
 
 
