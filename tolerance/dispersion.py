@@ -338,10 +338,19 @@ def _load_table(p: Path) -> Material:
     )
 
 
+def _materials_folder():
+    """The shipped materials: the installed ``tolerance.materials`` package, or, when running
+    from a source checkout that is not installed, the top-level ``materials/`` folder."""
+    try:
+        return resources.files("tolerance.materials")
+    except ModuleNotFoundError:
+        return Path(__file__).resolve().parent.parent / "materials"
+
+
 @lru_cache(maxsize=None)
 def _builtin() -> dict[str, Material]:
     out = {}
-    for entry in sorted(resources.files("tolerance.materials").iterdir(), key=lambda e: e.name):
+    for entry in sorted(_materials_folder().iterdir(), key=lambda e: e.name):
         if entry.name.endswith(".toml"):
             with entry.open("rb") as f:
                 d = tomllib.load(f)
