@@ -212,9 +212,13 @@ def _coeff_block(block, formula, where):
     if len(a) != len(li) or not a:
         raise RetolError(f"{where}: lambda", "must have as many entries as A")
     try:
-        return {"A": [float(x) for x in a], "lambda": [float(x) for x in li]}
+        out = {"A": [float(x) for x in a], "lambda": [float(x) for x in li]}
     except (TypeError, ValueError):
         raise RetolError(f"{where}: A", "entries must be numbers") from None
+    for k, vals in out.items():
+        if not all(math.isfinite(x) for x in vals):
+            raise RetolError(f"{where}: {k}", "has a value that is not finite", "fix the number")
+    return out
 
 
 def material_from_dict(d: dict, path: str = "<dict>") -> Material:
@@ -243,6 +247,9 @@ def material_from_dict(d: dict, path: str = "<dict>") -> Material:
             k: float(_require(formula_d, k, f"{where}: formula", (int, float)))
             for k in ("birefringence_inf", "lambda0", "mean_index")
         }
+        for k, v in coeffs.items():
+            if not math.isfinite(v):
+                raise RetolError(f"{where}: formula.{k}", "is not finite", "fix the number")
     else:
         coeffs = {
             "ordinary": _coeff_block(formula_d.get("ordinary"), ftype, f"{where}: formula.ordinary"),
@@ -253,6 +260,18 @@ def material_from_dict(d: dict, path: str = "<dict>") -> Material:
     thermal = d.get("thermal", {})
     if not isinstance(thermal, dict):
         raise RetolError(f"{where}: thermal", "must be a table")
+
+    def opt_number(table, key, default, label):
+        v = table.get(key, default)
+        if isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(v):
+            raise RetolError(f"{where}: {label}", f"must be a finite number, got {v!r}",
+                             "fix the value")
+        return float(v)
+
+    t_ref = opt_number(d, "reference_temperature_c", 20.0, "reference_temperature_c")
+    gamma = opt_number(thermal, "retardance_coefficient_per_k", 0.0,
+                       "thermal.retardance_coefficient_per_k")
+    gamma_u = opt_number(thermal, "uncertainty_per_k", 0.0, "thermal.uncertainty_per_k")
     return Material(
         name=name.lower(),
         kind=kind,
@@ -260,9 +279,9 @@ def material_from_dict(d: dict, path: str = "<dict>") -> Material:
         coefficients=coeffs,
         valid_min_nm=lo,
         valid_max_nm=hi,
-        reference_temperature_c=float(d.get("reference_temperature_c", 20.0)),
-        retardance_temperature_coefficient=float(thermal.get("retardance_coefficient_per_k", 0.0)),
-        temperature_coefficient_uncertainty=float(thermal.get("uncertainty_per_k", 0.0)),
+        reference_temperature_c=t_ref,
+        retardance_temperature_coefficient=gamma,
+        temperature_coefficient_uncertainty=gamma_u,
         source=str(_require(d, "source", where, str)),
         thermal_source=str(thermal.get("source", "")),
         long_name=str(d.get("long_name", name)),
