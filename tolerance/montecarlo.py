@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
 
@@ -288,10 +289,16 @@ def prepare(spec: dict):
     spectrum = spectrum_of(spec, grid)
     cases = []
     goal = spec["goal"]
+    fname = Path(spec.get("spec_path", "<spec>")).name
     for c in spec["candidates"]:
-        plate = build_plate(c)
+        try:
+            plate = build_plate(c)
+        except RetolError as exc:
+            raise RetolError(f"{fname}: [[candidate]] {c['name']!r}.{exc.field}", exc.problem,
+                             exc.fix) from None
         for la in plate.layers:
-            check_range(la.material, grid, field=f"[wavelength] for candidate {c['name']!r}")
+            check_range(la.material, grid,
+                        field=f"{fname}: [wavelength] for candidate {c['name']!r}")
             if spectrum.lines_nm.size:
                 check_range(la.material, spectrum.lines_nm, field="[source]")
         w_design = int(np.argmin(np.abs(grid - plate.design_nm)))

@@ -85,8 +85,20 @@ def user_errors(func):
     return wrapper
 
 
+def _clean(obj):
+    """JSON has no NaN or infinity: write them as null."""
+    if isinstance(obj, float) and not (obj == obj and abs(obj) != float("inf")):
+        return None
+    if isinstance(obj, dict):
+        return {k: _clean(v) for k, v in obj.items()}
+    if isinstance(obj, list | tuple):
+        return [_clean(v) for v in obj]
+    return obj
+
+
 def echo_json(obj):
-    click.echo(json.dumps(obj, indent=2, allow_nan=False, default=float))
+    """Print an object as JSON for scripts (NaN and infinity as null)."""
+    click.echo(json.dumps(_clean(obj), indent=2, allow_nan=False, default=float))
 
 
 def table(rows: list[list], header: list[str]) -> str:

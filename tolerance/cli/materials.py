@@ -52,7 +52,14 @@ def show(name, at, temperature, extrapolate, as_json):
 
     m = get_material(name)
     wl = np.array(at, dtype=float)
-    n_o, n_e = indices(m, wl, extrapolate=extrapolate)
+    from ..dispersion import check_range
+
+    check_range(m, wl, extrapolate=extrapolate, field="--at")
+    import warnings
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        n_o, n_e = indices(m, wl, extrapolate=extrapolate)
     t = m.reference_temperature_c if temperature is None else float(temperature)
     dn = (n_e - n_o) * thermal_factor(m, t)
     n_e = n_o + dn
