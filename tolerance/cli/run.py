@@ -110,8 +110,9 @@ def print_summary(ds, rows):
     click.echo(table(body, ["#", "candidate", "construction", "thicknesses [um]", "nominal worst",
                             "median worst", "p05 worst", "yield [95% CI]", "dominant",
                             "nominal DOP", "deg/K", "accept. [deg]"]))
-    best = min(rows, key=lambda r: r["rank"])
-    click.echo(f"\n{best['name']}: {best['reason']}")
+    click.echo("")
+    for r in sorted(rows, key=lambda r: r["rank"]):
+        click.echo(f"{r['rank']}. {r['name']}: {r['reason']}")
 
 
 def execute(spec, spec_path: Path, out, force, samples, seed, chunk_size, as_json, formats,
@@ -175,14 +176,19 @@ def execute(spec, spec_path: Path, out, force, samples, seed, chunk_size, as_jso
 @click.option("--format", "formats", multiple=True, default=("png",), show_default=True,
               help="Figure format for the report: png, svg or pdf (repeatable).")
 @click.option("--no-report", is_flag=True, help="Write only grid.nc, no figures or HTML.")
+@click.option("--keep-samples", is_flag=True,
+              help="Also keep every sample's values at every wavelength in the grid.")
 @click.option("--json", "as_json", is_flag=True, help="Print JSON for scripts.")
 @user_errors
-def run(spec_file, samples, seed, chunk_size, out, force, formats, no_report, as_json):
+def run(spec_file, samples, seed, chunk_size, out, force, formats, no_report, keep_samples,
+        as_json):
     """Monte Carlo tolerance analysis of SPEC_FILE: yield, spread and dominant tolerance."""
     from ..spec import load_spec
 
     _check_formats(formats)
     spec = load_spec(spec_file)
+    if keep_samples:
+        spec["run"]["keep_samples"] = True
     execute(spec, spec_file, out, force, samples, seed, chunk_size, as_json, formats,
             write_report=not no_report)
 

@@ -19,13 +19,16 @@ from .plate import build_plate, plate_options
 @click.option("--tilt-azimuth", "tilt_azimuth", type=float, default=0.0, show_default=True,
               help="Azimuth of the plane of incidence from x [deg].")
 @click.option("--temperature", type=float, default=None, help="Plate temperature [C].")
+@click.option("--target", default=None,
+              help="Also give the fidelity to a target state: right, left, or a linear azimuth "
+                   "in degrees.")
 @click.option("--analyzer", type=float, default=None,
               help="Also give the extinction ratio through a linear analyzer at this angle [deg].")
 @extrapolate_option
 @json_option
 @user_errors
 def state(waves, input_deg, material, construction, design, fast_axis, order, thick_plate,
-          partner, match, retardance_nm, at, tilt, tilt_azimuth, temperature, analyzer,
+          partner, match, retardance_nm, at, tilt, tilt_azimuth, temperature, target, analyzer,
           extrapolate, as_json):
     """The output polarization ellipse of linear input through a plate.
 
@@ -77,6 +80,19 @@ def state(waves, input_deg, material, construction, design, fast_axis, order, th
     }
     if analyzer is not None:
         out["extinction_db"] = float(analyzer_extinction_db(S, analyzer))
+    if target is not None:
+        from ..polarization import fidelity, goal_vector
+
+        t = target.strip().lower()
+        if t in ("right", "left"):
+            g = goal_vector("circular", handedness=1 if t == "right" else -1)
+        else:
+            try:
+                g = goal_vector("linear", float(t))
+            except ValueError:
+                raise RetolError("--target", f"cannot read {target!r}",
+                                 "use right, left or an angle in degrees") from None
+        out["fidelity"] = float(fidelity(S, g))
     if as_json:
         echo_json(out)
         return
@@ -87,6 +103,8 @@ def state(waves, input_deg, material, construction, design, fast_axis, order, th
     click.echo(f"  rotation             {out['rotation']} looking toward the source "
                f"({out['handedness']}-handed)")
     click.echo("  Stokes [S0 S1 S2 S3] " + " ".join(f"{x:+.5f}" for x in out["stokes"]))
+    if target is not None:
+        click.echo(f"  fidelity to {target:<10s}   {out['fidelity']:9.6f}")
     if analyzer is not None:
         click.echo(f"  extinction through a linear analyzer at {analyzer:g} deg: "
                    f"{out['extinction_db']:.2f} dB")
