@@ -152,13 +152,13 @@ def build_grid(spec, wl, spectrum, cases, results, qs, tol_names, seed, n, chunk
                           "upper confidence limit of the yield"),
         "sensitivity_alone": _da(np.array([[r["sens_alone"].get(t, np.nan) for t in tol_names]
                                            for r in results]).reshape(C, len(tol_names)),
-                                 ("candidate", "tolerance"), "1",
+                                 ("candidate", "tolerance_name"), "1",
                                  "yield with only this tolerance acting",
                                  samples=int(results[0]["sensitivity_samples"])),
         "sensitivity_without": _da(np.array([[r["sens_without"].get(t, np.nan)
                                               for t in tol_names]
                                              for r in results]).reshape(C, len(tol_names)),
-                                   ("candidate", "tolerance"), "1",
+                                   ("candidate", "tolerance_name"), "1",
                                    "yield with every tolerance but this one (what holding it "
                                    "exactly would buy)",
                                    samples=int(results[0]["sensitivity_samples"])),
@@ -193,7 +193,7 @@ def build_grid(spec, wl, spectrum, cases, results, qs, tol_names, seed, n, chunk
         "wavelength": _da(wl, ("wavelength",), "nm", "vacuum wavelength"),
         "quantile": _da(qarr, ("quantile",), "1", "quantile over samples"),
         "sample": _da(np.arange(n), ("sample",), "1", "Monte Carlo sample"),
-        "tolerance": _da(np.array(tol_names, dtype=object), ("tolerance",), "",
+        "tolerance_name": _da(np.array(tol_names, dtype=object), ("tolerance_name",), "",
                          "tolerance name"),
         "stokes": _da(np.array(["s1", "s2", "s3"], dtype=object), ("stokes",), "1",
                       "normalised Stokes component"),

@@ -7,6 +7,13 @@ streaming statistics: per-wavelength histograms, exact minima and maxima, per-bl
 sample's worst goal metric, its spectrally averaged Stokes vector and its state at the design
 wavelength.  No samples × wavelengths × 2 × 2 complex array is ever built.
 
+For speed, one sample's whole spectrum is processed layer by layer in loops over wavelength that
+the compiler turns into SIMD code: the half-retardance's sine and cosine come from
+:func:`_sincos`, a polynomial evaluation in plain IEEE arithmetic (no library call), so that the
+same inputs give the same bits whether a value is computed in a vector lane or alone, in any
+chunk and on any thread.  The nominal values use the very same functions, which is what makes
+the quantiles of a run with every tolerance zero equal the nominal values exactly.
+
 The physics is that of :mod:`tolerance.retardance` and :mod:`tolerance.polarization`; a test
 checks the kernel against those numpy functions.  Inputs are plain numpy arrays only.
 """
@@ -32,6 +39,145 @@ EXTINCTION_FLOOR = 1e-15  # 150 dB cap, as polarization.EXTINCTION_CAP_DB
 
 _OPTS = dict(nogil=True, cache=True, fastmath=False, error_model="numpy")
 
+# ----------------------------------------------------------------------------- sine and cosine
+# Argument reduction by π/2 in three Cody-Waite steps, then minimax polynomials on [-π/4, π/4];
+# the constants are those of the freely distributable fdlibm (Sun Microsystems, 1993) as kept in
+# musl libc (k_sin.c, k_cos.c, __rem_pio2.c).
+
+#: Largest |x| [rad] for which :func:`_sincos` is used; beyond it (or for NaN) the C library.
+SINCOS_LIMIT = 1.0e6
+_TOINT = 1.5 / 2.0**-52
+_INVPIO2 = 6.36619772367581382433e-01
+_PIO2_1 = 1.57079632673412561417e00
+_PIO2_2 = 6.07710050630396597660e-11
+_PIO2_2T = 2.02226624879595063154e-21
+_PIO2_3 = 2.02226624871116645580e-21
+_PIO2_3T = 8.47842766036889956997e-32
+_S1 = -1.66666666666666324348e-01
+_S2 = 8.33333333332248946124e-03
+_S3 = -1.98412698298579493134e-04
+_S4 = 2.75573137070700676789e-06
+_S5 = -2.50507602534068634195e-08
+_S6 = 1.58969099521155010221e-10
+_C1 = 4.16666666666666019037e-02
+_C2 = -1.38888888888741095749e-03
+_C3 = 2.48015872894767294178e-05
+_C4 = -2.75573143513906633035e-07
+_C5 = 2.08757232129817482790e-09
+_C6 = -1.13596475577881948265e-11
+
+
+@nb.njit(inline="always", **_OPTS)
+def _sincos(x):
+    """sin x and cos x for |x| < :data:`SINCOS_LIMIT`, within 2 ulp of the C library.
+
+    Notes
+    -----
+    x = n·π/2 + r with n = rint(2x/π) and r carried as y0 + y1 (three-part π/2, good to about
+    150 bits for |x| < 2²⁰·π/2); sin r and cos r from the degree-13 and degree-14 minimax
+    polynomials of fdlibm; the quadrant n mod 4 swaps and negates them.  Plain IEEE arithmetic
+    only, so that the compiler vectorizes it and every lane gives the same bits as scalar code.
+    """
+    fn = (x * _INVPIO2 + _TOINT) - _TOINT
+    n = int(fn)
+    t = x - fn * _PIO2_1
+    w = fn * _PIO2_2
+    r = t - w
+    w = fn * _PIO2_2T - ((t - r) - w)
+    t = r
+    w3 = fn * _PIO2_3
+    r = t - w3
+    w = fn * _PIO2_3T - ((t - r) - w3)
+    y0 = r - w
+    y1 = (r - y0) - w
+    z = y0 * y0
+    zz = z * z
+    rs = _S2 + z * (_S3 + z * _S4) + z * zz * (_S5 + z * _S6)
+    v = z * y0
+    ks = y0 - ((z * (0.5 * y1 - v * rs) - y1) - v * _S1)
+    rc = z * (_C1 + z * (_C2 + z * _C3)) + zz * zz * (_C4 + z * (_C5 + z * _C6))
+    hz = 0.5 * z
+    w1 = 1.0 - hz
+    kc = w1 + (((1.0 - w1) - hz) + (z * rc - y0 * y1))
+    odd = (n & 1) != 0
+    s = kc if odd else ks
+    c = ks if odd else kc
+    s = -s if (n & 2) != 0 else s
+    c = -c if ((n + 1) & 2) != 0 else c
+    return s, c
+
+
+@nb.njit(inline="always", **_OPTS)
+def _sincos_any(x):
+    """:func:`_sincos` where it applies, else the C library (huge arguments, NaN, inf)."""
+    if abs(x) < SINCOS_LIMIT:
+        return _sincos(x)
+    return math.sin(x), math.cos(x)
+
+
+# ----------------------------------------------------------------------------- arc tangent
+# fdlibm's (Sun Microsystems, 1993) atan constants, as kept in musl libc (s_atan.c).
+
+_ATANHI0 = 4.63647609000806093515e-01
+_ATANHI1 = 7.85398163397448278999e-01
+_ATANLO0 = 2.26987774529616870924e-17
+_ATANLO1 = 3.06161699786838301793e-17
+_AT0 = 3.33333333333329318027e-01
+_AT1 = -1.99999999998764832476e-01
+_AT2 = 1.42857142725034663711e-01
+_AT3 = -1.11111104054623557880e-01
+_AT4 = 9.09088713343650656196e-02
+_AT5 = -7.69187620504482999495e-02
+_AT6 = 6.66107313738753120669e-02
+_AT7 = -5.83357013379057348645e-02
+_AT8 = 4.97687799461593236017e-02
+_AT9 = -3.65315727442169155270e-02
+_AT10 = 1.62858201153657823623e-02
+_PIO2_HI = 1.57079632679489655800e00
+_PIO2_LO = 6.12323399573676603587e-17
+_PI = 3.1415926535897931160e00
+_PI_LO = 1.2246467991473531772e-16
+
+
+@nb.njit(inline="always", **_OPTS)
+def _atan2(y, x):
+    """atan2(y, x) [rad] within 2 ulp of the C library, signed zeros and NaN as there.
+
+    Notes
+    -----
+    atan of t = min(|x|, |y|)/max(|x|, |y|) in [0, 1], reduced about 0, 1/2 or 1 as in fdlibm's
+    atan (degree-23 odd polynomial), then placed in its octant by adding 0, π/2 or π (each as
+    hi + lo).  Infinite arguments give NaN (not needed here: Stokes components are bounded).
+    Plain IEEE arithmetic only, so that it vectorizes and every lane gives the same bits.
+    """
+    ax = abs(x)
+    ay = abs(y)
+    steep = ay > ax
+    num = ax if steep else ay
+    den = ay if steep else ax
+    t = 0.0 * num if den == 0.0 else num / den
+    mid = t >= 0.4375
+    top = t >= 0.6875
+    # reduced argument and atan of the reduction point (0, 1/2 or 1)
+    rn = (t - 1.0) if top else ((2.0 * t - 1.0) if mid else t)
+    rd = (t + 1.0) if top else ((2.0 + t) if mid else 1.0)
+    xr = rn / rd
+    hi = _ATANHI1 if top else (_ATANHI0 if mid else 0.0)
+    lo = _ATANLO1 if top else (_ATANLO0 if mid else 0.0)
+    z = xr * xr
+    w = z * z
+    s1 = z * (_AT0 + w * (_AT2 + w * (_AT4 + w * (_AT6 + w * (_AT8 + w * _AT10)))))
+    s2 = w * (_AT1 + w * (_AT3 + w * (_AT5 + w * (_AT7 + w * _AT9))))
+    a = hi - ((xr * (s1 + s2) - lo) - xr)
+    neg = math.copysign(1.0, x) < 0.0
+    bhi = (_PIO2_HI if steep else (_PI if neg else 0.0))
+    blo = (_PIO2_LO if steep else (_PI_LO if neg else 0.0))
+    a = -a if steep != neg else a
+    return math.copysign(bhi + (blo + a), y)
+
+
+# ----------------------------------------------------------------------------- element maths
+
 
 @nb.njit(inline="always", **_OPTS)
 def _metric(s1, s2, s3, p, g1, g2, g3, kind):
@@ -53,9 +199,30 @@ def _metric(s1, s2, s3, p, g1, g2, g3, kind):
 
 
 @nb.njit(inline="always", **_OPTS)
+def _axial_ratio(st3):
+    """Axial ratio b/a of a normalised Stokes vector with third component st3."""
+    q = st3
+    if q > 1.0:
+        q = 1.0
+    elif q < -1.0:
+        q = -1.0
+    return abs(q) / (1.0 + math.sqrt(max(0.0, 1.0 - q * q)))
+
+
+@nb.njit(inline="always", **_OPTS)
+def _azimuth(st1, st2):
+    """Major-axis azimuth [deg, (-90, 90]] of a Stokes vector."""
+    az = 0.5 * math.degrees(_atan2(st2, st1))
+    if az <= -90.0:
+        az += 180.0
+    return az
+
+
+@nb.njit(inline="always", **_OPTS)
 def _propagate(k0, no2, ne2, rat, dn, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj,
                n_layers):
-    """Jones vector of linear input (ca, sa) after the layers; returns Stokes and retardance."""
+    """Jones vector of linear input (ca, sa) after the layers, one wavelength; returns Stokes
+    and retardance with the arithmetic of :func:`_spectrum` (used for discrete source lines)."""
     xr = ca
     xi = 0.0
     yr = sa
@@ -70,9 +237,7 @@ def _propagate(k0, no2, ne2, rat, dn, thick, tfac, c2, s2, sin2i, cphi2, sphi2, 
             dN = abs(Ne - No)
         delta = k0 * thick[l] * dN * tfac[l]
         ret += proj[l] * delta
-        h = 0.5 * delta
-        c = math.cos(h)
-        s = math.sin(h)
+        s, c = _sincos_any(0.5 * delta)
         C = c2[l]
         S = s2[l]
         ur = C * xr + S * yr
@@ -93,19 +258,140 @@ def _propagate(k0, no2, ne2, rat, dn, thick, tfac, c2, s2, sin2i, cphi2, sphi2, 
     return st1, st2, st3, ret
 
 
+# ----------------------------------------------------------------------------- one spectrum
+
+#: Rows of the per-thread work array (each of length W).
+_XR, _XI, _YR, _YI, _H, _RET, _M, _RW, _AR, _AZ = range(10)
+N_WORK = 10
+
+
 @nb.njit(inline="always", **_OPTS)
-def _observables(st1, st2, st3, ret):
-    """Retardance [waves], axial ratio b/a and major-axis azimuth [deg, (-90, 90]]."""
-    q = st3
-    if q > 1.0:
-        q = 1.0
-    elif q < -1.0:
-        q = -1.0
-    ar = abs(q) / (1.0 + math.sqrt(max(0.0, 1.0 - q * q)))
-    az = 0.5 * math.degrees(math.atan2(st2, st1))
-    if az <= -90.0:
-        az += 180.0
-    return ret / (2.0 * math.pi), ar, az
+def _spectrum(k0, no2T, ne2T, ratT, dnT, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj,
+              work):
+    """One sample's output over the grid: Stokes (s1, s2, s3) into work rows _XR, _XI, _YR and
+    the retardance [rad] along the plate's axis into row _RET.
+
+    ``no2T`` … ``dnT`` are (L, W).  Every loop over wavelength vectorizes; a layer whose
+    half-retardance leaves :data:`SINCOS_LIMIT` somewhere takes the scalar path, which makes
+    the same per-element choice, so the bits never depend on the path.
+    """
+    W = k0.shape[0]
+    L = thick.shape[0]
+    xr = work[_XR]
+    xi = work[_XI]
+    yr = work[_YR]
+    yi = work[_YI]
+    hh = work[_H]
+    ret = work[_RET]
+    for w in range(W):
+        xr[w] = ca
+        xi[w] = 0.0
+        yr[w] = sa
+        yi[w] = 0.0
+        ret[w] = 0.0
+    for l in range(L):
+        th = thick[l]
+        tf = tfac[l]
+        pj = proj[l]
+        bad = 0
+        if sin2i == 0.0:
+            dnl = dnT[l]
+            for w in range(W):
+                delta = k0[w] * th * abs(dnl[w]) * tf
+                ret[w] += pj * delta
+                h = 0.5 * delta
+                hh[w] = h
+                bad += 0 if abs(h) < SINCOS_LIMIT else 1
+        else:
+            no2l = no2T[l]
+            ne2l = ne2T[l]
+            ratl = ratT[l]
+            sp = sphi2[l]
+            cp = cphi2[l]
+            for w in range(W):
+                No = math.sqrt(no2l[w] - sin2i)
+                Ne = math.sqrt(ne2l[w] - sin2i * sp - ratl[w] * sin2i * cp)
+                delta = k0[w] * th * abs(Ne - No) * tf
+                ret[w] += pj * delta
+                h = 0.5 * delta
+                hh[w] = h
+                bad += 0 if abs(h) < SINCOS_LIMIT else 1
+        C = c2[l]
+        S = s2[l]
+        if bad == 0:
+            for w in range(W):
+                s, c = _sincos(hh[w])
+                a = xr[w]
+                b = xi[w]
+                e = yr[w]
+                f = yi[w]
+                ur = C * a + S * e
+                ui = C * b + S * f
+                vr = S * a - C * e
+                vi = S * b - C * f
+                xr[w] = c * a + s * ui
+                xi[w] = c * b - s * ur
+                yr[w] = c * e + s * vi
+                yi[w] = c * f - s * vr
+        else:
+            for w in range(W):
+                s, c = _sincos_any(hh[w])
+                a = xr[w]
+                b = xi[w]
+                e = yr[w]
+                f = yi[w]
+                ur = C * a + S * e
+                ui = C * b + S * f
+                vr = S * a - C * e
+                vi = S * b - C * f
+                xr[w] = c * a + s * ui
+                xi[w] = c * b - s * ur
+                yr[w] = c * e + s * vi
+                yi[w] = c * f - s * vr
+    for w in range(W):
+        a = xr[w]
+        b = xi[w]
+        e = yr[w]
+        f = yi[w]
+        xr[w] = a * a + b * b - e * e - f * f
+        xi[w] = 2.0 * (a * e + b * f)
+        yr[w] = 2.0 * (b * e - a * f)
+
+
+@nb.njit(inline="always", **_OPTS)
+def _metric_row(work, g1, g2, g3, kind):
+    """Goal metric of every wavelength into work row _M."""
+    st1 = work[_XR]
+    st2 = work[_XI]
+    st3 = work[_YR]
+    m = work[_M]
+    W = m.shape[0]
+    if kind == METRIC_EXTINCTION:
+        for w in range(W):
+            m[w] = _metric(st1[w], st2[w], st3[w], 1.0, g1, g2, g3, METRIC_EXTINCTION)
+    elif kind == METRIC_FIDELITY:
+        for w in range(W):
+            m[w] = _metric(st1[w], st2[w], st3[w], 1.0, g1, g2, g3, METRIC_FIDELITY)
+    else:
+        for w in range(W):
+            m[w] = _metric(st1[w], st2[w], st3[w], 1.0, g1, g2, g3, METRIC_AXIAL_RATIO)
+
+
+@nb.njit(inline="always", **_OPTS)
+def _observable_rows(work):
+    """Retardance [waves], axial ratio and azimuth [deg] into work rows _RW, _AR, _AZ."""
+    st1 = work[_XR]
+    st2 = work[_XI]
+    st3 = work[_YR]
+    ret = work[_RET]
+    rw = work[_RW]
+    ar = work[_AR]
+    az = work[_AZ]
+    W = rw.shape[0]
+    for w in range(W):
+        rw[w] = ret[w] / (2.0 * math.pi)
+        ar[w] = _axial_ratio(st3[w])
+        az[w] = _azimuth(st1[w], st2[w])
 
 
 @nb.njit(**_OPTS)
@@ -113,25 +399,31 @@ def per_wavelength_values(k0, no2, ne2, rat, dn, thick, tfac, c2, s2, sin2i, cph
                           sa, proj, goal, metric_kind, out):
     """Retardance, axial ratio, azimuth and metric of one sample at every wavelength into
     ``out`` (N_VAR, W), with exactly the arithmetic of :func:`chunk_pass`."""
-    L = thick.shape[0]
+    work = np.empty((N_WORK, k0.shape[0]))
+    _spectrum(k0, np.ascontiguousarray(no2.T), np.ascontiguousarray(ne2.T),
+              np.ascontiguousarray(rat.T), np.ascontiguousarray(dn.T), thick, tfac, c2, s2,
+              sin2i, cphi2, sphi2, ca, sa, proj, work)
+    _metric_row(work, goal[0], goal[1], goal[2], metric_kind)
+    _observable_rows(work)
     for w in range(k0.shape[0]):
-        st1, st2, st3, ret = _propagate(k0[w], no2[w], ne2[w], rat[w], dn[w], thick, tfac, c2, s2,
-                                        sin2i, cphi2, sphi2, ca, sa, proj, L)
-        out[0, w], out[1, w], out[2, w] = _observables(st1, st2, st3, ret)
-        out[3, w] = _metric(st1, st2, st3, 1.0, goal[0], goal[1], goal[2], metric_kind)
+        out[0, w] = work[_RW, w]
+        out[1, w] = work[_AR, w]
+        out[2, w] = work[_AZ, w]
+        out[3, w] = work[_M, w]
 
 
 @nb.njit(**_OPTS)
 def stokes_one(k0, no2, ne2, rat, dn, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj,
                out):
     """Normalised Stokes (s1, s2, s3) of one sample at every wavelength into ``out`` (W, 3)."""
-    L = thick.shape[0]
+    work = np.empty((N_WORK, k0.shape[0]))
+    _spectrum(k0, np.ascontiguousarray(no2.T), np.ascontiguousarray(ne2.T),
+              np.ascontiguousarray(rat.T), np.ascontiguousarray(dn.T), thick, tfac, c2, s2,
+              sin2i, cphi2, sphi2, ca, sa, proj, work)
     for w in range(k0.shape[0]):
-        st1, st2, st3, _ = _propagate(k0[w], no2[w], ne2[w], rat[w], dn[w], thick, tfac, c2, s2,
-                                      sin2i, cphi2, sphi2, ca, sa, proj, L)
-        out[w, 0] = st1
-        out[w, 1] = st2
-        out[w, 2] = st3
+        out[w, 0] = work[_XR, w]
+        out[w, 1] = work[_XI, w]
+        out[w, 2] = work[_YR, w]
 
 
 @nb.njit(parallel=True, **_OPTS)
@@ -150,83 +442,116 @@ def chunk_pass(
     worst, spec_stokes, design_stokes,
     keep, kept,
 ):
-    """Process one chunk; see the module docstring.  Shapes: hist (T, N_VAR, W, B) int64,
-    vmin/vmax (T, N_VAR, W), block_sums (n_blocks, W, 2), worst (S,), spec_stokes (S, 3),
-    design_stokes (S, 3), kept (S, N_VAR, W) float32 when ``keep``."""
+    """Process one chunk; see the module docstring.  Shapes: hist (T, N_VAR, W, B) int32 or
+    int64, vmin/vmax (T, N_VAR, W), block_sums (n_blocks, W, 2), worst (S,), spec_stokes (S, 3),
+    design_stokes (S, 3), kept (S, N_VAR, W) float32 when ``keep``.
+
+    Thread t of T takes a contiguous run of whole blocks and owns hist[t], vmin[t], vmax[t];
+    every per-sample and per-block result is written by one thread only, so the results do not
+    depend on T.
+    """
     S = thick.shape[0]
-    L = thick.shape[1]
     W = k0.shape[0]
     K = line_weight.shape[0]
     B = hist.shape[3]
     T = hist.shape[0]
+    L = thick.shape[1]
     g1 = goal[0]
     g2 = goal[1]
     g3 = goal[2]
+    no2T = np.ascontiguousarray(no2.T)
+    ne2T = np.ascontiguousarray(ne2.T)
+    ratT = np.ascontiguousarray(rat.T)
+    dnT = np.ascontiguousarray(dn.T)
     n_blocks = (S + block_size - 1) // block_size
     per_t = (n_blocks + T - 1) // T
+    if do_hist and B > 65536:
+        raise ValueError("at most 65536 histogram bins")
     for t in nb.prange(T):
         b0 = t * per_t
         b1 = min(n_blocks, b0 + per_t)
-        vals = np.empty(N_VAR)
+        work = np.empty((N_WORK, W))
+        # bin indices of one block, scattered into the histograms row by row after the block,
+        # so that each (variable, wavelength) row is touched once per block (cache locality)
+        jbuf = np.empty((block_size if do_hist else 1, N_VAR, W), dtype=np.uint16)
+        m = work[_M]
+        st1 = work[_XR]
+        st2 = work[_XI]
+        st3 = work[_YR]
         for b in range(b0, b1):
             s_lo = b * block_size
             s_hi = min(S, s_lo + block_size)
+            bs0 = block_sums[b, :, 0]
+            bs1 = block_sums[b, :, 1]
             for s in range(s_lo, s_hi):
+                _spectrum(k0, no2T, ne2T, ratT, dnT, thick[s], tfac[s], c2[s], s2[s], sin2i[s],
+                          cphi2[s], sphi2[s], ca[s], sa[s], proj, work)
+                _metric_row(work, g1, g2, g3, metric_kind)
                 wmin = np.inf
                 a1 = 0.0
                 a2 = 0.0
                 a3 = 0.0
                 for w in range(W):
-                    st1, st2, st3, ret = _propagate(
-                        k0[w], no2[w], ne2[w], rat[w], dn[w], thick[s], tfac[s],
-                        c2[s], s2[s], sin2i[s], cphi2[s], sphi2[s], ca[s], sa[s], proj, L)
-                    m = _metric(st1, st2, st3, 1.0, g1, g2, g3, metric_kind)
-                    if m < wmin:
-                        wmin = m
+                    mw = m[w]
+                    if mw < wmin:
+                        wmin = mw
                     gw = grid_weight[w]
                     if gw != 0.0:
-                        a1 += gw * st1
-                        a2 += gw * st2
-                        a3 += gw * st3
-                    if w == w_design:
-                        design_stokes[s, 0] = st1
-                        design_stokes[s, 1] = st2
-                        design_stokes[s, 2] = st3
-                    if do_hist:
-                        vals[0], vals[1], vals[2] = _observables(st1, st2, st3, ret)
-                        vals[3] = m
-                        d = vals[0] - ret_shift[w]
-                        block_sums[b, w, 0] += d
-                        block_sums[b, w, 1] += d * d
+                        a1 += gw * st1[w]
+                        a2 += gw * st2[w]
+                        a3 += gw * st3[w]
+                if w_design >= 0 and w_design < W:
+                    design_stokes[s, 0] = st1[w_design]
+                    design_stokes[s, 1] = st2[w_design]
+                    design_stokes[s, 2] = st3[w_design]
+                if do_hist:
+                    _observable_rows(work)
+                    rw = work[_RW]
+                    for w in range(W):
+                        d = rw[w] - ret_shift[w]
+                        bs0[w] += d
+                        bs1[w] += d * d
+                    for v in range(N_VAR):
+                        row = work[_RW + v] if v < 3 else m
+                        mn = vmin[t, v]
+                        mx = vmax[t, v]
+                        lov = lo[v]
+                        iwv = inv_width[v]
+                        jv = jbuf[s - s_lo, v]
+                        for w in range(W):
+                            x = row[w]
+                            mn[w] = x if x < mn[w] else mn[w]
+                            mx[w] = x if x > mx[w] else mx[w]
+                            j = int((x - lov[w]) * iwv[w])
+                            j = 0 if j < 0 else j
+                            j = B - 1 if j >= B else j
+                            jv[w] = j
+                    if keep:
                         for v in range(N_VAR):
-                            x = vals[v]
-                            if x < vmin[t, v, w]:
-                                vmin[t, v, w] = x
-                            if x > vmax[t, v, w]:
-                                vmax[t, v, w] = x
-                            j = int((x - lo[v, w]) * inv_width[v, w])
-                            if j < 0:
-                                j = 0
-                            elif j >= B:
-                                j = B - 1
-                            hist[t, v, w, j] += 1
-                            if keep:
-                                kept[s, v, w] = x
+                            row = work[_RW + v] if v < 3 else m
+                            for w in range(W):
+                                kept[s, v, w] = row[w]
                 # discrete lines (laser, line sources), possibly drifting per sample
                 for k in range(K):
                     ss = s if lk0.shape[0] > 1 else 0
-                    st1, st2, st3, ret = _propagate(
+                    l1, l2, l3, _ = _propagate(
                         lk0[ss, k], lno2[ss, k], lne2[ss, k], lrat[ss, k], ldn[ss, k],
                         thick[s], tfac[s], c2[s], s2[s], sin2i[s], cphi2[s], sphi2[s], ca[s],
                         sa[s], proj, L)
                     lw = line_weight[k]
-                    a1 += lw * st1
-                    a2 += lw * st2
-                    a3 += lw * st3
+                    a1 += lw * l1
+                    a2 += lw * l2
+                    a3 += lw * l3
                 worst[s] = wmin
                 spec_stokes[s, 0] = a1
                 spec_stokes[s, 1] = a2
                 spec_stokes[s, 2] = a3
+            if do_hist:
+                for v in range(N_VAR):
+                    for w in range(W):
+                        hvw = hist[t, v, w]
+                        for i in range(s_hi - s_lo):
+                            hvw[jbuf[i, v, w]] += 1
 
 
 def spectral_metric(spec_stokes: np.ndarray, goal: np.ndarray, metric: str):

@@ -83,12 +83,12 @@ def _nm(v, field):
 
 
 def spectrum_of(spec: dict, grid: np.ndarray):
-    from pathlib import Path
-
     from .sources import build_spectrum
 
     base = spec.get("base_dir")
-    return build_spectrum(spec["source"], grid, Path(base) if base else None)
+    fname = Path(spec.get("spec_path", "<spec>")).name
+    return build_spectrum(spec["source"], grid, Path(base) if base else None,
+                          field=f"{fname}: [source]")
 
 
 def tolerances_for(spec: dict, cand: dict) -> dict:
@@ -109,12 +109,14 @@ GRID_NAMES = {
 
 
 def _is_zero(dist: dict) -> bool:
+    """True when a distribution cannot vary (zero width); a fixed range still shifts the value,
+    so it stays active when low == high only if it differs from the nominal."""
     k = dist["kind"]
     if k == "normal":
         return dist["sigma"] == 0
     if k == "uniform":
         return dist["half_width"] == 0
-    return False
+    return dist["low"] == dist["high"]
 
 
 # ----------------------------------------------------------------------------- per-chunk inputs
@@ -230,7 +232,9 @@ class Accumulator:
                  keep: bool):
         from .kernel import N_VAR
 
-        self.hist = np.zeros((threads, N_VAR, W, bins), dtype=np.int64)
+        # int32 counts halve the histograms' memory traffic; int64 only past 2**31 samples
+        self.hist = np.zeros((threads, N_VAR, W, bins),
+                             dtype=np.int32 if n_samples < 2**31 else np.int64)
         self.vmin = np.full((threads, N_VAR, W), np.inf)
         self.vmax = np.full((threads, N_VAR, W), -np.inf)
         self.lo = lo
@@ -250,7 +254,7 @@ def _kernel_call(case, spec, wl_optics, spectrum, inputs, acc: Accumulator | Non
     k0, no2, ne2, rat, dn = wl_optics
     n = stop - start
     lk0, lno2, lne2, lrat, ldn = _line_optics(case.plate, spectrum.lines_nm, inputs["drift"])
-    line_w = np.asarray(spectrum.line_weight, dtype=float)
+    line_w = np.array(spectrum.line_weight, dtype=float)  # a writable copy: one numba signature
     if line_w.size == 0:
         line_w = np.zeros(0)
     worst = np.empty(n)
@@ -264,7 +268,7 @@ def _kernel_call(case, spec, wl_optics, spectrum, inputs, acc: Accumulator | Non
         import numba
 
         T = numba.get_num_threads()
-        hist = np.zeros((T, N_VAR, k0.shape[0] if do_hist else 1, 1), dtype=np.int64)
+        hist = np.zeros((T, N_VAR, k0.shape[0] if do_hist else 1, 1), dtype=np.int32)
         vmin = np.zeros((T, N_VAR, k0.shape[0]))
         vmax = np.zeros((T, N_VAR, k0.shape[0]))
         lo = np.zeros((N_VAR, k0.shape[0]))
@@ -272,7 +276,7 @@ def _kernel_call(case, spec, wl_optics, spectrum, inputs, acc: Accumulator | Non
     keep = keep_out is not None
     kept = keep_out if keep else np.zeros((1, N_VAR, 1), dtype=np.float32)
     chunk_pass(
-        k0, no2, ne2, rat, dn, np.asarray(spectrum.grid_weight, dtype=float),
+        k0, no2, ne2, rat, dn, np.array(spectrum.grid_weight, dtype=float),
         lk0, lno2, lne2, lrat, ldn, line_w,
         inputs["thick"], inputs["tfac"], inputs["c2"], inputs["s2"], inputs["sin2i"],
         inputs["cphi2"], inputs["sphi2"], inputs["ca"], inputs["sa"],
@@ -297,10 +301,18 @@ def prepare(spec: dict):
             raise RetolError(f"{fname}: [[candidate]] {c['name']!r}.{exc.field}", exc.problem,
                              exc.fix) from None
         for la in plate.layers:
-            check_range(la.material, grid,
-                        field=f"{fname}: [wavelength] for candidate {c['name']!r}")
-            if spectrum.lines_nm.size:
-                check_range(la.material, spectrum.lines_nm, field="[source]")
+            try:
+                check_range(la.material, grid,
+                            field=f"{fname}: [wavelength] for candidate {c['name']!r}")
+                if spectrum.lines_nm.size:
+                    lines = np.asarray(spectrum.lines_nm, dtype=float)
+                    span = (spectrum.drift or {}).get("span_nm")
+                    if span is not None:
+                        lines = np.concatenate([lines + float(span[0]), lines + float(span[1])])
+                    check_range(la.material, lines, field=f"{fname}: [source] (with its drift)")
+            except RetolError as exc:
+                raise RetolError(exc.field, exc.problem,
+                                 "choose a [wavelength] grid and source inside it") from None
         w_design = int(np.argmin(np.abs(grid - plate.design_nm)))
         case = Case(plate=plate, spec=c, tolerances=tolerances_for(spec, c),
                     goal=np.zeros(3), handedness=1, w_design=w_design)
@@ -380,12 +392,28 @@ def wilson(k: int, n: int, confidence: float):
 
     if n == 0:
         return float("nan"), float("nan")
+    if k == 0:
+        return 0.0, wilson_high(k, n, confidence)
+    if k == n:
+        return 1.0 - wilson_high(0, n, confidence), 1.0
     z = float(norm.ppf(0.5 + confidence / 2.0))
     p = k / n
     den = 1.0 + z * z / n
     centre = (p + z * z / (2 * n)) / den
     half = z * math.sqrt(p * (1 - p) / n + z * z / (4 * n * n)) / den
     return max(0.0, centre - half), min(1.0, centre + half)
+
+
+def wilson_high(k, n, confidence):
+    """Upper Wilson score limit of k/n."""
+    from scipy.stats import norm
+
+    z = float(norm.ppf(0.5 + confidence / 2.0))
+    p = k / n
+    den = 1.0 + z * z / n
+    centre = (p + z * z / (2 * n)) / den
+    half = z * math.sqrt(p * (1 - p) / n + z * z / (4 * n * n)) / den
+    return min(1.0, centre + half)
 
 
 def hist_quantiles(hist, lo, inv_width, vmin, vmax, qs):
@@ -501,16 +529,20 @@ def run(spec: dict, samples=None, seed=None, chunk_size=None, progress=None,
         _, pm_nom = _pass_metric(spec, np.array([nom["worst"]]), nom["spec_stokes"][None, :],
                                  case.goal)
         nominal_pass = float(pm_nom[0] >= spec["goal"]["min"])
+        nom["spectral_pass"] = nominal_pass
         for name in tol_names:
             for mode in ("alone", "without"):
                 subset = [name] if mode == "alone" else [k for k in active if k != name]
+                # a fixed value (a range with low == high) is a condition, not a tolerance
+                subset += [k for k, v in case.tolerances.items()
+                           if v["kind"] == "range" and _is_zero(v)]
                 if name not in active:
                     y = nominal_pass if mode == "alone" else full_yield_sens
                     done += n_sens
                 elif mode == "alone" and len(active) == 1:
                     y = full_yield_sens
                     done += n_sens
-                elif not subset:
+                elif not [k for k in subset if k in active]:
                     y = nominal_pass
                     done += n_sens
                 else:
@@ -577,8 +609,12 @@ def _finish(case, spec, acc: Accumulator, nom, qs, conf, tol_names, alone, witho
         if gains[best] > 0:
             dominant = best
         else:
+            # no single removal helps (e.g. the nominal plate already fails): name the tolerance
+            # that alone does the most harm, if any does
+            nominal_pass = float(nom["worst"] >= spec["goal"]["min"]) if spec["goal"]["over"] \
+                == "band" else float(nom["spectral_pass"])
             worst_alone = min(alone, key=lambda t: alone[t])
-            if alone[worst_alone] < 1.0:
+            if alone[worst_alone] < nominal_pass:
                 dominant = worst_alone
     return {
         "quantiles": quant, "mean": mean_d + nom["values"][0], "std": np.sqrt(var),

@@ -54,14 +54,6 @@ def summary_rows(ds):
     import numpy as np
 
     rows = []
-    qi = list(ds["quantile"].values)
-
-    def q(var, c, p):
-        v = ds[var].sel(candidate=c)
-        if p in qi:
-            return float(v.sel(quantile=p))
-        return float(np.quantile(ds["worst_metric"].sel(candidate=c), p))
-
     for c in ds["candidate"].values:
         th = ds["layer_thickness"].sel(candidate=c).values
         mats = ds["layer_material"].sel(candidate=c).values
@@ -86,7 +78,6 @@ def summary_rows(ds):
             "rank": int(ds["rank"].sel(candidate=c)),
             "reason": str(ds["reason"].sel(candidate=c).values),
         })
-    _ = q
     return rows
 
 
@@ -189,8 +180,20 @@ def run(spec_file, samples, seed, chunk_size, out, force, formats, no_report, ke
     spec = load_spec(spec_file)
     if keep_samples:
         spec["run"]["keep_samples"] = True
+    argv = ["retol", "run", str(spec_file),
+            "--samples", str(samples if samples is not None else spec["run"]["samples"]),
+            "--seed", str(seed if seed is not None else spec["run"]["seed"])]
+    if out is not None:
+        argv += ["--out", str(out)]
+    for f in formats:
+        if f != "png":
+            argv += ["--format", f]
+    if keep_samples:
+        argv.append("--keep-samples")
+    if no_report:
+        argv.append("--no-report")
     execute(spec, spec_file, out, force, samples, seed, chunk_size, as_json, formats,
-            write_report=not no_report)
+            write_report=not no_report, argv=argv)
 
 
 def _check_formats(formats):

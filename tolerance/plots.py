@@ -1,0 +1,873 @@
+"""Figures of a results grid (the xarray Dataset of ``retol run``).
+
+Every public function takes the grid and returns a :class:`matplotlib.figure.Figure`.  The
+figures are built on ``matplotlib.figure.Figure`` directly (no pyplot, no global figure
+registry), so they render with the Agg canvas whatever backend a notebook uses and are freed
+when dropped.  matplotlib is imported inside the functions so that ``import tolerance`` stays
+fast.
+
+The look (palette, marks, layout) is our own; it lives in ``STYLE`` and ``PALETTE``.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import json
+from pathlib import Path
+
+import numpy as np
+
+from .errors import RetolError
+
+#: Figure file formats that ``save_figures`` writes.
+FORMATS = ("png", "svg", "pdf")
+
+#: Candidate colours, in spec order (repeats after six).
+PALETTE = ["#1d6a80", "#c2562f", "#6b4f96", "#7c8d24", "#c79a12", "#3b4d5c"]
+
+#: Neutral inks.
+INK = "#2b2824"
+GOAL_INK = "#8c1c13"
+SOURCE_INK = "#d7cdb8"
+
+#: matplotlib rc settings of every figure.
+STYLE = {
+    "font.family": "DejaVu Sans",
+    "font.size": 8.5,
+    "axes.titlesize": 9.5,
+    "axes.titleweight": "bold",
+    "axes.titlelocation": "left",
+    "axes.labelsize": 8.5,
+    "axes.labelcolor": INK,
+    "axes.edgecolor": "#6b665d",
+    "axes.linewidth": 0.8,
+    "axes.facecolor": "#fcfbf8",
+    "axes.spines.top": False,
+    "axes.spines.right": False,
+    "axes.grid": True,
+    "grid.color": "#dcd7cc",
+    "grid.linestyle": (0, (1, 2)),
+    "grid.linewidth": 0.8,
+    "xtick.color": "#4a463f",
+    "ytick.color": "#4a463f",
+    "xtick.direction": "out",
+    "ytick.direction": "out",
+    "legend.frameon": False,
+    "legend.fontsize": 8,
+    "lines.linewidth": 1.6,
+    "figure.facecolor": "white",
+    "savefig.facecolor": "white",
+    "svg.fonttype": "path",
+    "pdf.fonttype": 42,
+}
+
+#: Quantile levels the band figures use.
+_BANDS = ((0.01, 0.99), (0.05, 0.95))
+
+
+# ----------------------------------------------------------------------------- helpers
+
+
+def _style():
+    import matplotlib
+
+    return matplotlib.rc_context(STYLE)
+
+
+def _figure(width_in, height_in):
+    from matplotlib.figure import Figure
+
+    return Figure(figsize=(width_in, height_in), layout="constrained")
+
+
+def _finish(fig):
+    """Create ticks and text while the style is active, so later draws keep the look."""
+    fig.draw_without_rendering()
+    return fig
+
+
+def _colour(i):
+    return PALETTE[i % len(PALETTE)]
+
+
+def _names(grid) -> list[str]:
+    return [str(c) for c in grid["candidate"].values]
+
+
+def _has(grid, *names) -> bool:
+    return all(n in grid.variables for n in names)
+
+
+def _attr_float(grid, name):
+    try:
+        value = float(grid.attrs[name])
+    except (KeyError, TypeError, ValueError):
+        return None
+    return value if np.isfinite(value) else None
+
+
+def _quantile(grid, var, c, q):
+    """One quantile curve of ``var`` for candidate index ``c``, or None if ``q`` is absent."""
+    if var not in grid.variables or "quantile" not in grid.coords:
+        return None
+    qs = np.asarray(grid["quantile"].values, dtype=float)
+    k = np.nonzero(np.isclose(qs, q, atol=1e-9))[0]
+    if not k.size:
+        return None
+    return np.asarray(grid[var].isel(candidate=c, quantile=int(k[0])).values, dtype=float)
+
+
+def _metric_label(grid) -> str:
+    name = grid.attrs.get("metric_long_name") or grid.attrs.get("goal_metric") or "goal metric"
+    units = grid.attrs.get("metric_units")
+    name = str(name)
+    name = name[:1].upper() + name[1:]
+    return f"{name} [{units}]" if units not in (None, "") else name
+
+
+def _units(grid, var, default=""):
+    return str(grid[var].attrs.get("units", default)) if var in grid.variables else default
+
+
+def _fmt_goal(grid, goal):
+    units = grid.attrs.get("metric_units", "")
+    return f"goal ≥ {goal:g} {units}".rstrip()
+
+
+def _band(ax, x, lo, hi, **kw):
+    """A shaded band; a short thick bar when there is one wavelength only."""
+    if x.size > 1:
+        return ax.fill_between(x, lo, hi, linewidth=0, **kw)
+    kw.pop("step", None)
+    return ax.bar(x, hi - lo, bottom=lo, width=_bar_width(x), linewidth=0, **kw)
+
+
+def _bar_width(x):
+    return max(0.6, 0.02 * float(abs(x[0]) or 1.0))
+
+
+def _curve(ax, x, y, **kw):
+    if x.size == 1:
+        kw.setdefault("marker", "o")
+        kw.setdefault("markersize", 5)
+    return ax.plot(x, y, **kw)
+
+
+def _metric_ylim(ax, quantile_curves, nominal, goal):
+    """Y range that shows the bands and the goal; a nominal curve that peaks far above (an
+    extinction ratio at its cap, say) runs off the top instead of flattening the bands."""
+    parts = [np.asarray(q, dtype=float).ravel() for q in quantile_curves if q is not None]
+    if goal is not None:
+        parts.append(np.array([goal]))
+    core = np.concatenate(parts) if parts else np.asarray(nominal, dtype=float).ravel()
+    core = core[np.isfinite(core)]
+    nom = np.asarray(nominal, dtype=float)
+    nom = nom[np.isfinite(nom)]
+    if not core.size:
+        return
+    lo, hi = float(core.min()), float(core.max())
+    if nom.size:
+        lo = min(lo, float(nom.min()))
+    span = max(hi - lo, 1e-9 * max(1.0, abs(hi)), 1e-12)
+    if nom.size:  # leave the nominal curve up to half the span of headroom
+        hi = max(hi, min(float(nom.max()), hi + 0.5 * span))
+        span = max(hi - lo, span)
+    ax.set_ylim(lo - 0.08 * span, hi + 0.12 * span)
+
+
+def _wavelength_axis(ax, grid):
+    ax.set_xlabel(f"Wavelength [{_units(grid, 'wavelength', 'nm')}]")
+    wl = np.asarray(grid["wavelength"].values, dtype=float)
+    if wl.size == 1:
+        ax.set_xlim(wl[0] - 10 * _bar_width(wl), wl[0] + 10 * _bar_width(wl))
+        ax.set_xticks([wl[0]])
+
+
+def _source_behind(ax, grid):
+    """The source spectrum shaded behind ``ax`` on a twin y axis; returns the twin (or None)."""
+    if "source_spectrum" not in grid.variables:
+        return None
+    wl = np.asarray(grid["wavelength"].values, dtype=float)
+    sp = np.asarray(grid["source_spectrum"].values, dtype=float)
+    tw = ax.twinx()
+    tw.grid(False)
+    tw.spines["right"].set_visible(True)
+    tw.spines["right"].set_color("#b5aa92")
+    tw.tick_params(axis="y", colors="#8f846b", labelsize=7)
+    if wl.size > 1:
+        tw.fill_between(wl, 0, sp, color=SOURCE_INK, alpha=0.55, linewidth=0)
+    else:
+        tw.bar(wl, sp, width=_bar_width(wl) * 3, color=SOURCE_INK, alpha=0.55, linewidth=0)
+    top = np.nanmax(sp) if np.isfinite(sp).any() else 1.0
+    tw.set_ylim(0, 1.1 * top if top > 0 else 1.0)
+    tw.set_ylabel("Source [rel.]", color="#8f846b", fontsize=7.5)
+    ax.set_zorder(tw.get_zorder() + 1)
+    ax.patch.set_visible(False)
+    return tw
+
+
+def _empty(ax, text):
+    ax.set_axis_off()
+    ax.text(0.5, 0.5, text, ha="center", va="center", transform=ax.transAxes, color="#6b665d",
+            fontsize=9, style="italic")
+
+
+def _candidate_title(ax, grid, c):
+    name = _names(grid)[c]
+    extra = []
+    if "construction" in grid.variables:
+        extra.append(str(grid["construction"].values[c]))
+    if "rank" in grid.variables:
+        extra.append(f"rank {int(grid['rank'].values[c])}")
+    ax.set_title(name + (f"  ({', '.join(extra)})" if extra else ""), color=_colour(c))
+
+
+# ----------------------------------------------------------------------------- figures
+
+
+def metric_bands(grid):
+    """Goal metric vs wavelength per candidate: nominal, median, 5–95 % and 1–99 % bands.
+
+    One panel per candidate on a shared wavelength axis, the goal threshold (attr
+    ``goal_min``) as a line and the source spectrum shaded behind on a second y axis.
+
+    Parameters
+    ----------
+    grid : xarray.Dataset
+        Results grid; uses ``metric_quantile``, ``nominal_metric`` and ``source_spectrum``.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        ``n_candidates`` panels, each with a twin axis for the source when it is present.
+    """
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Patch
+
+    names = _names(grid)
+    wl = np.asarray(grid["wavelength"].values, dtype=float)
+    goal = _attr_float(grid, "goal_min")
+    with _style():
+        fig = _figure(7.6, 0.6 + 2.3 * len(names))
+        axes = fig.subplots(len(names), 1, sharex=True, squeeze=False)[:, 0]
+        for c, ax in enumerate(axes):
+            col = _colour(c)
+            _source_behind(ax, grid)
+            curves = []
+            for (qa, qb), alpha in zip(_BANDS, (0.16, 0.36), strict=True):
+                lo, hi = _quantile(grid, "metric_quantile", c, qa), _quantile(
+                    grid, "metric_quantile", c, qb)
+                if lo is not None and hi is not None:
+                    _band(ax, wl, lo, hi, color=col, alpha=alpha)
+                    curves += [lo, hi]
+            med = _quantile(grid, "metric_quantile", c, 0.5)
+            if med is not None:
+                _curve(ax, wl, med, color=col, linestyle=(0, (4, 2)), linewidth=1.3)
+            nominal = np.asarray(grid["nominal_metric"].isel(candidate=c).values, dtype=float)
+            _curve(ax, wl, nominal, color=INK, linewidth=1.4)
+            if goal is not None:
+                ax.axhline(goal, color=GOAL_INK, linewidth=1.1, linestyle=(0, (6, 2, 1, 2)))
+            _metric_ylim(ax, curves, nominal, goal)
+            ax.set_ylabel(_metric_label(grid) if len(names) == 1 else
+                          f"[{grid.attrs.get('metric_units', '')}]")
+            _candidate_title(ax, grid, c)
+        _wavelength_axis(axes[-1], grid)
+        handles = [
+            Line2D([], [], color=INK, linewidth=1.4, label="nominal plate"),
+            Line2D([], [], color="#555", linestyle=(0, (4, 2)), linewidth=1.3,
+                   label="median of samples"),
+            Patch(color="#555", alpha=0.45, label="5–95 % of samples"),
+            Patch(color="#555", alpha=0.18, label="1–99 % of samples"),
+        ]
+        if goal is not None:
+            handles.append(Line2D([], [], color=GOAL_INK, linestyle=(0, (6, 2, 1, 2)),
+                                  label=_fmt_goal(grid, goal)))
+        if "source_spectrum" in grid.variables:
+            handles.append(Patch(color=SOURCE_INK, alpha=0.8, label="source spectrum"))
+        fig.legend(handles=handles, loc="outside upper center", ncols=3)
+        if len(names) > 1:
+            fig.supylabel(_metric_label(grid), fontsize=8.5, color=INK)
+        return _finish(fig)
+
+
+def p05_overlay(grid):
+    """The 5th-percentile goal metric of every candidate on one axes, with the threshold.
+
+    A plate whose curve stays above the threshold over the band passes in at least 95 % of
+    builds at every wavelength separately (the band-wide yield can still be lower).
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        One axes.
+    """
+    names = _names(grid)
+    wl = np.asarray(grid["wavelength"].values, dtype=float)
+    goal = _attr_float(grid, "goal_min")
+    with _style():
+        fig = _figure(7.6, 3.4)
+        ax = fig.subplots()
+        curves = []
+        for c, name in enumerate(names):
+            p05 = _quantile(grid, "metric_quantile", c, 0.05)
+            if p05 is None:
+                continue
+            curves.append(p05)
+            _curve(ax, wl, p05, color=_colour(c), linewidth=1.8, label=name)
+        if goal is not None:
+            ax.axhline(goal, color=GOAL_INK, linewidth=1.1, linestyle=(0, (6, 2, 1, 2)),
+                       label=_fmt_goal(grid, goal))
+        if curves:
+            _metric_ylim(ax, curves, np.array([]), goal)
+        else:
+            ax.text(0.5, 0.5, "no 5 % quantile in this grid", transform=ax.transAxes,
+                    ha="center", color="#6b665d")
+        if goal is not None:
+            bottom = ax.get_ylim()[0]
+            ax.axhspan(bottom, goal, color=GOAL_INK, alpha=0.035, linewidth=0)
+            ax.set_ylim(bottom=bottom)
+        ax.set_ylabel(f"5th percentile [{grid.attrs.get('metric_units', '')}]")
+        ax.set_title(f"{_metric_label(grid)}: 5th percentile of the samples")
+        _wavelength_axis(ax, grid)
+        ax.legend(loc="best")
+        return _finish(fig)
+
+
+def _target_offset(nominal, target):
+    """Whole waves between a plate's order-kept retardance and its (reduced) target."""
+    finite = nominal[np.isfinite(nominal)]
+    if not finite.size or not np.isfinite(target):
+        return 0.0
+    return float(np.round(np.median(finite) - target))
+
+
+def retardance_bands(grid):
+    """Retardance vs wavelength per candidate: nominal, 5–95 % band and the target.
+
+    A target given in reduced waves (e.g. 0.25) is drawn at the same order as the plate
+    (e.g. 2.25 for a multi-order plate) and labelled so.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        ``n_candidates`` panels on a shared wavelength axis.
+    """
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Patch
+
+    names = _names(grid)
+    wl = np.asarray(grid["wavelength"].values, dtype=float)
+    units = _units(grid, "nominal_retardance", "waves")
+    with _style():
+        fig = _figure(7.6, 0.5 + 2.0 * len(names))
+        axes = fig.subplots(len(names), 1, sharex=True, squeeze=False)[:, 0]
+        for c, ax in enumerate(axes):
+            col = _colour(c)
+            nominal = np.asarray(grid["nominal_retardance"].isel(candidate=c).values, float)
+            lo = _quantile(grid, "retardance_quantile", c, 0.05)
+            hi = _quantile(grid, "retardance_quantile", c, 0.95)
+            if lo is not None and hi is not None:
+                _band(ax, wl, lo, hi, color=col, alpha=0.32)
+            _curve(ax, wl, nominal, color=col, linewidth=1.7)
+            if "target_waves" in grid.variables:
+                target = float(grid["target_waves"].values[c])
+                k = _target_offset(nominal, target)
+                label = f"target {target + k:g} {units}"
+                if k:
+                    label += f" ({target:g} + {k:g})"
+                ax.axhline(target + k, color=GOAL_INK, linewidth=1.0,
+                           linestyle=(0, (6, 2, 1, 2)))
+                ax.annotate(label, (1.0, target + k), xycoords=("axes fraction", "data"),
+                            xytext=(-4, 3), textcoords="offset points", ha="right",
+                            va="bottom", fontsize=7.5, color=GOAL_INK)
+            if "design_wavelength" in grid.variables:
+                ax.axvline(float(grid["design_wavelength"].values[c]), color="#9a948a",
+                           linewidth=0.8, linestyle=":")
+            ax.set_ylabel(f"[{units}]")
+            _candidate_title(ax, grid, c)
+        _wavelength_axis(axes[-1], grid)
+        fig.supylabel(f"Retardance [{units}]", fontsize=8.5, color=INK)
+        handles = [
+            Line2D([], [], color="#555", linewidth=1.7, label="nominal plate"),
+            Patch(color="#555", alpha=0.4, label="5–95 % of samples"),
+            Line2D([], [], color=GOAL_INK, linestyle=(0, (6, 2, 1, 2)), label="target"),
+            Line2D([], [], color="#9a948a", linestyle=":", label="design wavelength"),
+        ]
+        fig.legend(handles=handles, loc="outside upper center", ncols=4)
+        return _finish(fig)
+
+
+def yield_chart(grid):
+    """Yield of every candidate with its confidence interval (``yield_low``/``yield_high``).
+
+    Candidates are listed best rank first; the bar is the interval, the dot the estimate.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        One axes.
+    """
+    names = _names(grid)
+    y = np.asarray(grid["yield"].values, dtype=float) * 100
+    lo = np.asarray(grid["yield_low"].values, dtype=float) * 100 if _has(grid, "yield_low") \
+        else y
+    hi = np.asarray(grid["yield_high"].values, dtype=float) * 100 if _has(grid, "yield_high") \
+        else y
+    order = list(range(len(names)))
+    if "rank" in grid.variables:
+        order = list(np.argsort(np.asarray(grid["rank"].values), kind="stable"))
+    conf = grid["yield"].attrs.get("confidence", grid.attrs.get("confidence"))
+    method = grid["yield"].attrs.get("method")
+    with _style():
+        fig = _figure(7.6, 1.0 + 0.48 * len(names))
+        ax = fig.subplots()
+        for row, c in enumerate(order):
+            pos = len(order) - 1 - row
+            col = _colour(c)
+            ax.plot([lo[c], hi[c]], [pos, pos], color=col, linewidth=7, alpha=0.35,
+                    solid_capstyle="round")
+            ax.plot([y[c]], [pos], marker="o", markersize=7, color=col, markeredgecolor="white",
+                    markeredgewidth=1.2, linestyle="none")
+            ax.annotate(f"{y[c]:.1f} %  [{lo[c]:.1f}–{hi[c]:.1f}]",
+                        (min(hi[c], 100.0), pos), xytext=(8, 0), textcoords="offset points",
+                        va="center", fontsize=8, color=INK)
+        ax.set_yticks(range(len(order)), [names[c] for c in order][::-1])
+        for lab, c in zip(ax.get_yticklabels(), order[::-1], strict=True):
+            lab.set_color(_colour(c))
+        ax.set_xlim(0, 125)
+        ax.set_xticks(np.arange(0, 101, 20))
+        ax.set_ylim(-0.7, len(order) - 0.3)
+        ax.grid(axis="y", visible=False)
+        text = "Yield [%]"
+        if conf is not None:
+            text += f" — dot: estimate; bar: {float(conf):.0%} interval"
+            if method:
+                text += f" ({method})"
+        ax.set_xlabel(text)
+        return _finish(fig)
+
+
+def sensitivity_chart(grid):
+    """Per candidate: the yield with each tolerance alone and with all but it.
+
+    Tolerances are sorted by effect = ``sensitivity_without`` − ``yield`` (the yield gained by
+    removing the tolerance), largest on top.  The vertical line is the yield with everything on.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        ``n_candidates`` panels.
+    """
+    from matplotlib.lines import Line2D
+
+    names = _names(grid)
+    tols = [str(t) for t in grid["tolerance_name"].values] if "tolerance_name" in grid.coords else []
+    have = bool(tols) and _has(grid, "sensitivity_alone", "sensitivity_without")
+    n_rows = max(len(tols), 1)
+    with _style():
+        fig = _figure(7.6, 0.7 + len(names) * (0.55 + 0.27 * n_rows))
+        axes = fig.subplots(len(names), 1, sharex=True, squeeze=False)[:, 0]
+        for c, ax in enumerate(axes):
+            _candidate_title(ax, grid, c)
+            if not have:
+                _empty(ax, "no tolerances in this run")
+                continue
+            col = _colour(c)
+            full = float(grid["yield"].values[c]) * 100
+            alone = np.asarray(grid["sensitivity_alone"].isel(candidate=c).values, float) * 100
+            without = np.asarray(grid["sensitivity_without"].isel(candidate=c).values,
+                                 float) * 100
+            effect = without - full
+            order = np.argsort(-np.nan_to_num(effect, nan=-np.inf), kind="stable")
+            for row, j in enumerate(order):
+                pos = len(order) - 1 - row
+                ax.plot([alone[j], without[j]], [pos, pos], color="#b9b2a5", linewidth=1.2)
+                ax.plot([alone[j]], [pos], marker="D", markersize=5.5, color="white",
+                        markeredgecolor=col, markeredgewidth=1.4, linestyle="none")
+                ax.plot([without[j]], [pos], marker="o", markersize=6.5, color=col,
+                        linestyle="none")
+                ax.annotate(f"{effect[j]:+.1f}", (101, pos), xytext=(4, 0),
+                            textcoords="offset points", va="center", fontsize=7.5,
+                            color=INK if effect[j] > 0 else "#8a857c",
+                            annotation_clip=False)
+            ax.axvline(full, color=INK, linewidth=1.0, linestyle=(0, (3, 2)))
+            ax.set_yticks(range(len(order)), [tols[j] for j in order][::-1])
+            ax.set_ylim(-0.6, len(order) - 0.4)
+            ax.set_xlim(-2, 102)
+            ax.grid(axis="y", visible=False)
+        axes[-1].set_xlabel("Yield [%]   (right margin: effect = yield without it − yield, "
+                            "in points)")
+        handles = [
+            Line2D([], [], marker="o", color="#555", linestyle="none",
+                   label="all tolerances but this one"),
+            Line2D([], [], marker="D", color="white", markeredgecolor="#555", linestyle="none",
+                   label="this tolerance alone"),
+            Line2D([], [], color=INK, linestyle=(0, (3, 2)), label="all tolerances"),
+        ]
+        fig.legend(handles=handles, loc="outside upper center", ncols=3)
+        return _finish(fig)
+
+
+_NAMED_STATES = {
+    "right-circular": (0.0, 0.0, 1.0), "rcp": (0.0, 0.0, 1.0),
+    "left-circular": (0.0, 0.0, -1.0), "lcp": (0.0, 0.0, -1.0),
+    "horizontal": (1.0, 0.0, 0.0), "vertical": (-1.0, 0.0, 0.0),
+    "diagonal": (0.0, 1.0, 0.0), "anti-diagonal": (0.0, -1.0, 0.0),
+}
+
+
+def goal_stokes(grid):
+    """The goal state as a normalised Stokes 3-vector, or None if the grid does not say.
+
+    Looked up in order: attr ``goal_stokes`` (JSON list), attr ``goal_state`` as a JSON list or
+    a state name, then the spec's ``goal`` table ("circular" with ``handedness``, or "linear"
+    with ``azimuth`` [deg]).  Right-handed (clockwise looking toward the source) is S3 > 0.
+    """
+    for key in ("goal_stokes", "goal_state"):
+        raw = grid.attrs.get(key)
+        vec = _as_vector(raw)
+        if vec is not None:
+            return vec
+    state = str(grid.attrs.get("goal_state", "")).strip().lower()
+    if state in _NAMED_STATES:
+        return np.array(_NAMED_STATES[state])
+    goal = {}
+    with contextlib.suppress(TypeError, ValueError, AttributeError):
+        goal = json.loads(grid.attrs.get("spec", "{}")).get("goal", {}) or {}
+    state = str(goal.get("state", state)).lower()
+    if state == "circular":
+        hand = goal.get("handedness", 1)
+        sign = -1.0 if str(hand).lower() in ("left", "-1", "ccw", "counterclockwise") else 1.0
+        return np.array([0.0, 0.0, sign])
+    if state == "linear":
+        try:
+            az = float(goal.get("azimuth", 0.0))
+        except (TypeError, ValueError):
+            return None
+        return np.array([np.cos(np.radians(2 * az)), np.sin(np.radians(2 * az)), 0.0])
+    return None
+
+
+def _as_vector(raw):
+    if raw is None:
+        return None
+    if isinstance(raw, str):
+        try:
+            raw = json.loads(raw)
+        except ValueError:
+            return None
+    try:
+        vec = np.asarray(raw, dtype=float).ravel()
+    except (TypeError, ValueError):
+        return None
+    if vec.size == 4:
+        vec = vec[1:] / vec[0] if vec[0] else vec[1:]
+    if vec.size != 3 or not np.isfinite(vec).all():
+        return None
+    return vec
+
+
+#: Most sampled states drawn per candidate on the sphere.
+MAX_SPHERE_POINTS = 2000
+
+
+def _sphere_disc(ax, h_label, v_label, depth_label):
+    from matplotlib.patches import Circle, Ellipse
+
+    ax.set_aspect("equal")
+    ax.set_xlim(-1.2, 1.2)
+    ax.set_ylim(-1.2, 1.2)
+    ax.set_axis_off()
+    ax.add_patch(Circle((0, 0), 1.0, facecolor="#f4f1ea", edgecolor="#6b665d", linewidth=0.9,
+                        zorder=0))
+    for z in (-0.5, 0.5):  # circles of latitude around the viewing axis, seen face on
+        ax.add_patch(Circle((0, 0), np.sqrt(1 - z * z), fill=False, edgecolor="#d3ccbd",
+                            linewidth=0.6, linestyle=":", zorder=0))
+    for w in (0.5,):  # great circles through the viewing axis, seen edge on as ellipses
+        ax.add_patch(Ellipse((0, 0), 2 * w, 2, fill=False, edgecolor="#d3ccbd", linewidth=0.6,
+                             linestyle=":", zorder=0))
+        ax.add_patch(Ellipse((0, 0), 2, 2 * w, fill=False, edgecolor="#d3ccbd", linewidth=0.6,
+                             linestyle=":", zorder=0))
+    ax.plot([-1, 1], [0, 0], color="#c9c1b0", linewidth=0.6, zorder=0)
+    ax.plot([0, 0], [-1, 1], color="#c9c1b0", linewidth=0.6, zorder=0)
+    ax.text(1.11, 0, f"+{h_label}", ha="left", va="center", fontsize=7.5, color="#4a463f",
+            clip_on=False)
+    ax.text(0.06, 1.11, f"+{v_label}", ha="left", va="bottom", fontsize=7.5, color="#4a463f",
+            clip_on=False)
+    ax.text(-1.18, -1.18, f"seen from +{depth_label}", ha="left", va="bottom", fontsize=7,
+            color="#8a857c", style="italic")
+
+
+def poincare_views(grid):
+    """Sampled output states at the design wavelength on two views of the Poincaré sphere.
+
+    Left: the s1–s2 disc seen from +s3 (the right-circular pole in the middle); right: the
+    s2–s3 disc seen from +s1.  States on the near hemisphere are filled dots, on the far one
+    open rings.  At most ``MAX_SPHERE_POINTS`` samples per candidate (evenly strided) are drawn;
+    the goal state is a star, the nominal plate's state a cross.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        ``2 × n_candidates`` axes.
+    """
+    from matplotlib.lines import Line2D
+
+    names = _names(grid)
+    goal = goal_stokes(grid)
+    comps = [str(s) for s in grid["stokes"].values] if "stokes" in grid.coords else \
+        ["s1", "s2", "s3"]
+    idx = {name: comps.index(name) for name in ("s1", "s2", "s3")}
+    views = (("s1", "s2", "s3"), ("s2", "s3", "s1"))
+    with _style():
+        fig = _figure(6.4, 0.5 + 3.0 * len(names))
+        axes = fig.subplots(len(names), 2, squeeze=False)
+        for c in range(len(names)):
+            col = _colour(c)
+            st = np.asarray(grid["design_stokes"].isel(candidate=c).values, dtype=float)
+            st = st[np.isfinite(st).all(axis=1)]
+            if st.shape[0] > MAX_SPHERE_POINTS:
+                st = st[np.linspace(0, st.shape[0] - 1, MAX_SPHERE_POINTS).astype(int)]
+            norm = np.linalg.norm(st, axis=1, keepdims=True)
+            st = st / np.where(norm > 0, norm, 1.0)
+            nominal = None
+            if _has(grid, "nominal_stokes", "design_wavelength"):
+                wl = np.asarray(grid["wavelength"].values, dtype=float)
+                k = int(np.argmin(np.abs(wl - float(grid["design_wavelength"].values[c]))))
+                nominal = np.asarray(grid["nominal_stokes"].isel(candidate=c, wavelength=k)
+                                     .values, dtype=float)
+            for v, (h, vv, d) in enumerate(views):
+                ax = axes[c, v]
+                _sphere_disc(ax, h, vv, d)
+                x, y, z = st[:, idx[h]], st[:, idx[vv]], st[:, idx[d]]
+                near = z >= 0
+                ax.scatter(x[~near], y[~near], s=9, facecolors="none", edgecolors=col,
+                           linewidths=0.5, alpha=0.45, zorder=2)
+                ax.scatter(x[near], y[near], s=7, color=col, alpha=0.55, linewidths=0,
+                           zorder=3)
+                if nominal is not None:
+                    ax.plot(nominal[idx[h]], nominal[idx[vv]], marker="X", markersize=8,
+                            color=INK, markeredgecolor="white", markeredgewidth=0.8,
+                            linestyle="none", zorder=5)
+                if goal is not None:
+                    g = {"s1": goal[0], "s2": goal[1], "s3": goal[2]}
+                    ax.plot(g[h], g[vv], marker="*", markersize=17, markerfacecolor="none",
+                            markeredgecolor=GOAL_INK, markeredgewidth=1.3,
+                            linestyle="--" if g[d] < 0 else "-", linewidth=0, zorder=6)
+                if v == 0:
+                    _candidate_title(ax, grid, c)
+        handles = [
+            Line2D([], [], marker="o", color="#555", linestyle="none", markersize=4,
+                   label="sample, near side"),
+            Line2D([], [], marker="o", color="#555", markerfacecolor="none", linestyle="none",
+                   markersize=4, label="far side"),
+            Line2D([], [], marker="X", color=INK, linestyle="none", label="nominal plate"),
+        ]
+        if goal is not None:
+            handles.append(Line2D([], [], marker="*", markerfacecolor="none",
+                                  markeredgecolor=GOAL_INK, linestyle="none", markersize=11,
+                                  label="goal state"))
+        fig.legend(handles=handles, loc="outside upper center", ncols=len(handles))
+        return _finish(fig)
+
+
+def has_environment(grid) -> bool:
+    """True if the grid holds a temperature or a tilt retardance-error map."""
+    return "retardance_error_temperature" in grid.variables or \
+        "retardance_error_tilt" in grid.variables
+
+
+def environment_maps(grid):
+    """Retardance error vs temperature and vs tilt / plane-of-incidence azimuth.
+
+    Top: one line per candidate of ``retardance_error_temperature``.  Below: per candidate a
+    polar map of ``retardance_error_tilt`` (radius = angle of incidence, angle = azimuth from
+    the fast axis) with its own colour bar and the ± ``acceptance_limit_waves`` contour.  Parts
+    whose variables are absent are left out; with neither, one axes says so.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        (1 if temperature) + (2 × n_candidates if tilt) axes, or 1 axes with a note.
+    """
+    from matplotlib.colors import TwoSlopeNorm
+
+    names = _names(grid)
+    has_t = "retardance_error_temperature" in grid.variables
+    has_tilt = "retardance_error_tilt" in grid.variables
+    limit = _attr_float(grid, "acceptance_limit_waves")
+    with _style():
+        if not (has_t or has_tilt):
+            fig = _figure(7.6, 1.2)
+            _empty(fig.subplots(), "no temperature or tilt maps in this grid")
+            return _finish(fig)
+        n = len(names)
+        ncols = 3 if n >= 3 else 2
+        nrows_polar = int(np.ceil(n / ncols)) if has_tilt else 0
+        heights = ([2.4] if has_t else []) + [2.9] * nrows_polar
+        fig = _figure(7.6, 0.4 + sum(heights))
+        gs = fig.add_gridspec(len(heights), ncols, height_ratios=heights)
+        row = 0
+        if has_t:
+            ax = fig.add_subplot(gs[0, :])
+            temps = np.asarray(grid["temperature"].values, dtype=float)
+            units = _units(grid, "retardance_error_temperature", "waves")
+            for c, name in enumerate(names):
+                err = np.asarray(grid["retardance_error_temperature"].isel(candidate=c).values,
+                                 dtype=float)
+                _curve(ax, temps, err, color=_colour(c), linewidth=1.7, label=name)
+            if limit is not None:
+                for s in (-1, 1):
+                    ax.axhline(s * limit, color=GOAL_INK, linewidth=0.9,
+                               linestyle=(0, (6, 2, 1, 2)),
+                               label=f"± {limit:g} {units}" if s > 0 else None)
+            ax.axhline(0, color="#8a857c", linewidth=0.7)
+            ax.set_xlabel(f"Plate temperature [{_units(grid, 'temperature', 'degC')}]"
+                          .replace("[degC]", "[°C]"))
+            ax.set_ylabel(f"Retardance error [{units}]")
+            ax.set_title("Retardance error at the design wavelength vs temperature")
+            ax.legend(loc="best", ncols=2)
+            row = 1
+        if has_tilt:
+            tilt = np.asarray(grid["tilt"].values, dtype=float)
+            az = np.asarray(grid["tilt_azimuth"].values, dtype=float)
+            units = _units(grid, "retardance_error_tilt", "waves")
+            for c, name in enumerate(names):
+                sub = gs[row + c // ncols, c % ncols].subgridspec(
+                    2, 1, height_ratios=[1, 0.06], hspace=0.05)
+                ax = fig.add_subplot(sub[0], projection="polar")
+                cax = fig.add_subplot(sub[1])
+                err = np.asarray(grid["retardance_error_tilt"].isel(candidate=c)
+                                 .transpose("tilt", "tilt_azimuth").values, dtype=float)
+                span = float(np.nanmax(np.abs(err))) if np.isfinite(err).any() else 0.0
+                span = span if span > 0 else 1e-6
+                norm = TwoSlopeNorm(0.0, -span, span)
+                th = np.radians(np.append(az, az[0] + 360.0)) if az.size > 1 else np.radians(az)
+                e = np.concatenate([err, err[:, :1]], axis=1) if az.size > 1 else err
+                if tilt.size > 1 and th.size > 1:
+                    mesh = ax.pcolormesh(th, tilt, e, cmap="PuOr_r", norm=norm,
+                                         shading="gouraud", rasterized=True)
+                    if limit is not None and span > limit:
+                        ax.contour(th, tilt, e, levels=[-limit, limit], colors=[INK],
+                                   linewidths=0.9, linestyles=["--", "-"])
+                else:
+                    mesh = ax.scatter(th.repeat(tilt.size) if th.size else th,
+                                      np.tile(tilt, max(th.size, 1)), c=e.T.ravel(),
+                                      cmap="PuOr_r", norm=norm)
+                ax.set_ylim(0, float(tilt.max()) if tilt.size else 1.0)
+                ax.set_title(name, color=_colour(c), loc="center", fontsize=8.5, pad=10)
+                ax.tick_params(labelsize=6.5)
+                if tilt.size and tilt.max() > 0:
+                    ax.set_rticks(np.round([tilt.max() / 2, tilt.max()], 1))
+                ax.set_rlabel_position(112.5)
+                ax.grid(color="#ffffff", alpha=0.6, linestyle="-", linewidth=0.5)
+                cb = fig.colorbar(mesh, cax=cax, orientation="horizontal")
+                cb.ax.tick_params(labelsize=6.5)
+                cb.ax.xaxis.get_offset_text().set_fontsize(6.5)
+                cb.set_label(f"retardance error [{units}]", fontsize=7)
+            tu = _units(grid, "tilt", "deg").replace("deg", "°")
+            fig.supxlabel(f"Polar maps: radius = angle of incidence [{tu}], angle = azimuth "
+                          "of the plane of incidence from the fast axis", fontsize=7.5,
+                          color="#4a463f")
+            for k in range(n, nrows_polar * ncols):  # empty cells of the last row
+                fig.add_subplot(gs[row + k // ncols, k % ncols]).set_axis_off()
+        return _finish(fig)
+
+
+# ----------------------------------------------------------------------------- saving
+
+#: name -> (function, caption); the report shows them in this order.
+FIGURES = {
+    "metric_bands": (metric_bands, "Goal metric across the band: nominal plate, median, "
+                     "5–95 % and 1–99 % of the Monte Carlo samples, goal threshold, and the "
+                     "source spectrum behind."),
+    "p05_overlay": (p05_overlay, "5th-percentile goal metric of every candidate; the shaded "
+                    "area is below the goal."),
+    "retardance_bands": (retardance_bands, "Retardance across the band: nominal plate and "
+                         "5–95 % of samples, with the target retardance."),
+    "yield": (yield_chart, "Yield (fraction of sampled builds meeting the goal) with its "
+              "confidence interval."),
+    "sensitivity": (sensitivity_chart, "Yield with each tolerance alone and with all but it; "
+                    "the top row is the tolerance whose removal helps most."),
+    "poincare": (poincare_views, "Sampled output states at the design wavelength on two "
+                 "orthographic views of the Poincaré sphere."),
+    "environment": (environment_maps, "Retardance error at the design wavelength vs plate "
+                    "temperature and vs angle of incidence and its azimuth from the fast axis."),
+}
+
+
+def check_formats(formats) -> tuple[str, ...]:
+    """Normalise figure formats (case-insensitive); unknown -> RetolError naming --format."""
+    if isinstance(formats, str):
+        formats = (formats,)
+    out = []
+    for f in formats or ("png",):
+        f = str(f).strip().lower().lstrip(".")
+        if f not in FORMATS:
+            raise RetolError("--format", f"unknown figure format {f!r}",
+                             f"use one of {', '.join(FORMATS)}")
+        if f not in out:
+            out.append(f)
+    return tuple(out)
+
+
+#: Variables each figure cannot do without.
+REQUIRES = {
+    "metric_bands": ("nominal_metric",),
+    "p05_overlay": ("metric_quantile",),
+    "retardance_bands": ("nominal_retardance",),
+    "yield": ("yield",),
+    "sensitivity": ("yield",),
+    "poincare": ("design_stokes",),
+    "environment": (),
+}
+
+
+def figure_names(grid) -> list[str]:
+    """The figures that apply to ``grid``: those whose variables it holds (the environment
+    figure only with a temperature or tilt map)."""
+    return [n for n in FIGURES if _has(grid, *REQUIRES[n])
+            and (n != "environment" or has_environment(grid))]
+
+
+def render(fig, target, fmt: str, dpi: int = 130):
+    """Save ``fig`` to a path or binary file object in format ``fmt``, in our style."""
+    with _style():
+        fig.savefig(target, format=fmt, dpi=dpi)
+
+
+def save_figures(grid, folder, formats=("png",)) -> dict[str, list[Path]]:
+    """Write every figure that applies to ``grid`` into ``folder``.
+
+    Parameters
+    ----------
+    grid : xarray.Dataset
+        Results grid.
+    folder : str or Path
+        Destination folder, created if missing.
+    formats : sequence of str
+        Any of "png", "svg", "pdf".
+
+    Returns
+    -------
+    dict
+        Figure name -> list of written paths (one per format).
+
+    Raises
+    ------
+    RetolError
+        For an unknown format (field "--format").
+    """
+    formats = check_formats(formats)
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    written: dict[str, list[Path]] = {}
+    for name in figure_names(grid):
+        fig = FIGURES[name][0](grid)
+        written[name] = []
+        for fmt in formats:
+            path = folder / f"{name}.{fmt}"
+            render(fig, path, fmt)
+            written[name].append(path)
+        del fig
+    return written

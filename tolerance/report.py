@@ -1,0 +1,661 @@
+"""A self-contained HTML report, a summary table and figure files from a results grid.
+
+``write_report`` writes into one folder:
+
+- ``report.html``: everything in one file (PNG figures as base64 ``data:`` URIs, inline CSS,
+  no scripts, fonts, links or other files), readable on a laptop screen and printable;
+- ``summary.csv``: one row per candidate;
+- ``figures/``: every figure in each requested format (png, svg, pdf).
+
+Writing is all-or-nothing: the files are built in a temporary folder next to the destination
+(same parent, so the final moves are renames on one file system) and only then moved in.
+"""
+
+from __future__ import annotations
+
+import base64
+import contextlib
+import csv
+import html
+import io
+import json
+import os
+import shutil
+import tempfile
+from pathlib import Path
+
+import numpy as np
+
+from .errors import RetolError
+
+#: Files (and the folder) that make up a report; any of them marks a folder as holding one.
+REPORT_FILE = "report.html"
+SUMMARY_FILE = "summary.csv"
+FIGURE_DIR = "figures"
+
+#: Columns of summary.csv, in order.
+SUMMARY_COLUMNS = [
+    "name", "construction", "materials", "thicknesses_um", "design_wavelength_nm",
+    "nominal_worst", "p05_worst", "yield", "yield_low", "yield_high", "dominant", "nominal_dop",
+    "temperature_coefficient_deg_per_k", "acceptance_half_angle_deg", "rank",
+]
+
+#: Variables a grid must hold to be reported on.
+REQUIRED = ("nominal_metric", "yield")
+
+LASER_CAUTION = (
+    "retol predicts polarization states only; it does not assess laser hazards. A retarder "
+    "changes what reflects where downstream: back-reflections may pass polarizing optics or an "
+    "optical isolator that would otherwise stop them, and a polarizing beam splitter may send "
+    "power out of its other port. Before a new, re-clocked or re-tilted plate goes into a laser "
+    "beam, have the set-up reviewed under IEC 60825-1 or ANSI Z136.1, as applies where you "
+    "work, follow your local rules and consult the site's laser safety officer."
+)
+
+
+# ----------------------------------------------------------------------------- folder checks
+
+
+def _holds_report(folder: Path) -> bool:
+    return any((folder / n).exists() for n in (REPORT_FILE, SUMMARY_FILE, FIGURE_DIR))
+
+
+def check_writable(out_dir, force: bool = False) -> Path:
+    """Check that a report may be written into ``out_dir``; return it as an absolute path.
+
+    Call this before a long run so that a bad ``--out`` fails at once.  A folder that does not
+    exist yet, or exists and holds no report (e.g. only the ``grid.nc`` the current run just
+    wrote), is fine; one that holds a previous report (``report.html``, ``summary.csv`` or
+    ``figures/``) is refused unless ``force``.
+
+    Raises
+    ------
+    RetolError
+        Field "--out": the path is a file, holds a report (fix: use --force or another folder),
+        or its nearest existing ancestor is not a writable folder.
+    """
+    out = Path(out_dir).expanduser().absolute()
+    if out.exists() and not out.is_dir():
+        raise RetolError("--out", f"{out} is a file, not a folder", "give a folder path")
+    if out.is_dir() and _holds_report(out) and not force:
+        raise RetolError("--out", f"{out} already holds a report",
+                         "use --force or another folder")
+    ancestor = out.parent
+    while not ancestor.exists() and ancestor != ancestor.parent:
+        ancestor = ancestor.parent
+    if not ancestor.is_dir():
+        raise RetolError("--out", f"cannot create {out}: {ancestor} is not a folder",
+                         "choose another folder")
+    for folder in (ancestor, out) if out.is_dir() else (ancestor,):
+        if not os.access(folder, os.W_OK | os.X_OK):
+            raise RetolError("--out", f"cannot write in {folder}",
+                             "choose a folder you can write to")
+    return out
+
+
+def check_grid(grid) -> None:
+    """Refuse a Dataset that is not a results grid (missing core variables)."""
+    missing = [n for n in REQUIRED if n not in grid.variables]
+    if "candidate" not in grid.coords or "wavelength" not in grid.coords:
+        missing = ["candidate/wavelength coordinates"] + missing
+    if missing:
+        raise RetolError("grid", f"not a results grid: missing {', '.join(missing)}",
+                         "give a grid.nc written by retol run")
+
+
+# ----------------------------------------------------------------------------- values
+
+
+def _s(value) -> str:
+    if isinstance(value, bytes):
+        return value.decode("utf-8", "replace")
+    if isinstance(value, np.ndarray) and value.shape == ():
+        return _s(value.item())
+    return str(value)
+
+
+def _num(value):
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        return None
+    return v if np.isfinite(v) else None
+
+
+def _var(grid, name, c):
+    """Value of a per-candidate variable for candidate index ``c`` (None if absent)."""
+    if name not in grid.variables:
+        return None
+    return grid[name].values[c]
+
+
+def _json_attr(grid, name, default):
+    raw = grid.attrs.get(name)
+    if raw is None:
+        return default
+    if not isinstance(raw, str):
+        return raw
+    try:
+        return json.loads(raw)
+    except ValueError:
+        return default
+
+
+def _layers(grid, c):
+    """[(material, thickness um, axis deg)] of candidate ``c``, padding left out."""
+    if "layer_thickness" not in grid.variables:
+        return []
+    th = np.asarray(grid["layer_thickness"].values[c], dtype=float)
+    mats = grid["layer_material"].values[c] if "layer_material" in grid.variables \
+        else [""] * th.size
+    axes = np.asarray(grid["layer_axis"].values[c], dtype=float) \
+        if "layer_axis" in grid.variables else np.full(th.size, np.nan)
+    return [(_s(m), float(t), float(a)) for m, t, a in zip(mats, th, axes, strict=True)
+            if np.isfinite(t)]
+
+
+def _p05_worst(grid, c):
+    if "worst_metric_quantile" in grid.variables:
+        qs = np.asarray(grid["quantile"].values, dtype=float)
+        k = np.nonzero(np.isclose(qs, 0.05))[0]
+        if k.size:
+            return _num(grid["worst_metric_quantile"].values[c, k[0]])
+    if "worst_metric" in grid.variables:
+        w = np.asarray(grid["worst_metric"].values[c], dtype=float)
+        w = w[np.isfinite(w)]
+        return float(np.quantile(w, 0.05)) if w.size else None
+    return None
+
+
+def summary_rows(grid) -> list[dict]:
+    """One dict per candidate (spec order) with the ``SUMMARY_COLUMNS`` keys; None = absent."""
+    rows = []
+    for c, name in enumerate(grid["candidate"].values):
+        layers = _layers(grid, c)
+        rank = _var(grid, "rank", c)
+        rows.append({
+            "name": _s(name),
+            "construction": _s(_var(grid, "construction", c) or ""),
+            "materials": " + ".join(m for m, _, _ in layers),
+            "thicknesses_um": " + ".join(f"{t:.3f}" for _, t, _ in layers),
+            "design_wavelength_nm": _num(_var(grid, "design_wavelength", c)),
+            "nominal_worst": _num(_var(grid, "nominal_worst", c)),
+            "p05_worst": _p05_worst(grid, c),
+            "yield": _num(_var(grid, "yield", c)),
+            "yield_low": _num(_var(grid, "yield_low", c)),
+            "yield_high": _num(_var(grid, "yield_high", c)),
+            "dominant": _s(_var(grid, "dominant", c) or ""),
+            "nominal_dop": _num(_var(grid, "nominal_dop", c)),
+            "temperature_coefficient_deg_per_k": _num(_var(grid, "temperature_coefficient", c)),
+            "acceptance_half_angle_deg": _num(_var(grid, "acceptance_half_angle", c)),
+            "rank": int(rank) if _num(rank) is not None else None,
+        })
+    return rows
+
+
+def write_summary_csv(grid, path) -> Path:
+    """Write ``summary_rows`` as CSV (numbers to 6 significant digits, blank = absent)."""
+    path = Path(path)
+    with path.open("w", newline="", encoding="utf-8") as fh:
+        w = csv.DictWriter(fh, fieldnames=SUMMARY_COLUMNS, lineterminator="\n")
+        w.writeheader()
+        for row in summary_rows(grid):
+            w.writerow({k: "" if v is None else (f"{v:.6g}" if isinstance(v, float) else v)
+                        for k, v in row.items()})
+    return path
+
+
+# ----------------------------------------------------------------------------- HTML
+
+_CSS = """
+:root { --ink:#2b2824; --muted:#6b665d; --rule:#dcd7cc; --paper:#fbfaf6; --accent:#1d6a80;
+        --warn:#8c1c13; --pick:#eef5f2; }
+* { box-sizing: border-box; }
+html { background: #efece4; }
+body { margin: 0 auto; max-width: 1080px; padding: 28px 36px 48px; background: var(--paper);
+       color: var(--ink); font: 15px/1.5 system-ui, -apple-system, "Segoe UI", Roboto,
+       "Helvetica Neue", Arial, sans-serif; }
+header { border-bottom: 3px solid var(--accent); padding-bottom: 12px; margin-bottom: 18px; }
+header .kicker { text-transform: uppercase; letter-spacing: .12em; font-size: 12px;
+                 color: var(--accent); font-weight: 600; }
+h1 { font-size: 26px; margin: 4px 0 6px; line-height: 1.2; }
+h2 { font-size: 19px; margin: 34px 0 10px; padding-bottom: 4px; border-bottom: 1px solid
+     var(--rule); }
+h3 { font-size: 15px; margin: 18px 0 6px; }
+.facts { display: flex; flex-wrap: wrap; gap: 6px 22px; margin: 8px 0 0; padding: 0;
+         list-style: none; color: var(--muted); font-size: 14px; }
+.facts b { color: var(--ink); font-weight: 600; }
+.pick { background: var(--pick); border-left: 5px solid var(--accent); padding: 12px 16px;
+        margin: 16px 0; }
+.pick .name { font-size: 18px; font-weight: 700; }
+.caution { border: 2px solid var(--warn); background: #fbf1ee; padding: 12px 16px;
+           margin: 16px 0; }
+.caution strong { color: var(--warn); }
+table { border-collapse: collapse; width: 100%; font-size: 13.5px; margin: 6px 0 10px; }
+th, td { padding: 5px 8px; border-bottom: 1px solid var(--rule); text-align: left;
+         vertical-align: top; }
+th { background: #f1eee6; font-weight: 600; }
+td.num, th.num { text-align: right; font-variant-numeric: tabular-nums; }
+td.num { white-space: nowrap; }
+td b { white-space: nowrap; }
+tr.best td { background: var(--pick); }
+.nw { white-space: nowrap; }
+.scroll { overflow-x: auto; }
+figure { margin: 22px 0; }
+figure img { display: block; max-width: 100%; height: auto; margin: 0 auto;
+             border: 1px solid var(--rule); background: #fff; }
+figcaption { color: var(--muted); font-size: 13.5px; margin-top: 6px; }
+figcaption b { color: var(--ink); }
+pre { background: #f3f0e8; border: 1px solid var(--rule); padding: 10px 12px; overflow-x: auto;
+      font: 12.5px/1.45 ui-monospace, "SFMono-Regular", Menlo, Consolas, monospace;
+      white-space: pre-wrap; word-break: break-word; }
+code { font-family: ui-monospace, "SFMono-Regular", Menlo, Consolas, monospace;
+       font-size: 13px; }
+ul.assume li { margin: 3px 0; }
+.muted { color: var(--muted); }
+footer { margin-top: 40px; color: var(--muted); font-size: 12.5px; border-top: 1px solid
+         var(--rule); padding-top: 8px; }
+@media (max-width: 700px) { body { padding: 16px; } h1 { font-size: 21px; } }
+@media print {
+  @page { margin: 14mm 12mm; }
+  html, body { background: #fff; }
+  body { max-width: none; padding: 0; font-size: 10.5pt; }
+  h2 { break-after: avoid; page-break-after: avoid; }
+  figure, table, .pick, .caution, pre { break-inside: avoid; page-break-inside: avoid; }
+  figure img { border: none; max-height: 235mm; width: auto; }
+  .scroll { overflow: visible; }
+  pre { white-space: pre-wrap; }
+}
+"""
+
+
+def _e(text) -> str:
+    return html.escape(_s(text), quote=True)
+
+
+def _fmt(v, digits=3, unit="") -> str:
+    if v is None:
+        return "—"
+    return f"{v:.{digits}g}{(' ' + unit) if unit else ''}"
+
+
+def _pct(v) -> str:
+    return "—" if v is None else f"{100 * v:.1f} %"
+
+
+def _metric_unit(grid) -> str:
+    return _s(grid.attrs.get("metric_units", ""))
+
+
+def _goal_text(grid) -> str:
+    metric = _s(grid.attrs.get("metric_long_name") or grid.attrs.get("goal_metric") or "metric")
+    state = _s(grid.attrs.get("goal_state", "")).strip()
+    gmin = _num(grid.attrs.get("goal_min"))
+    over = _s(grid.attrs.get("goal_over", "band"))
+    text = metric
+    if gmin is not None:
+        text += f" ≥ {gmin:g} {_metric_unit(grid)}".rstrip()
+    text += " over the " + ("source spectrum (source-weighted)" if over == "spectrum"
+                            else "whole band (worst wavelength)")
+    if state:
+        text = f"{state} output; " + text
+    return text
+
+
+def _table(head, body_rows, best_flags) -> str:
+    """An HTML table; ``head`` is [(label, numeric)], cells are pre-escaped HTML."""
+    out = ['<div class="scroll"><table><thead><tr>']
+    out += [f'<th class="num">{_e(h)}</th>' if num else f"<th>{_e(h)}</th>" for h, num in head]
+    out.append("</tr></thead><tbody>")
+    for cells, best in zip(body_rows, best_flags, strict=True):
+        out.append('<tr class="best">' if best else "<tr>")
+        for (_, num), cell in zip(head, cells, strict=True):
+            out.append(f'<td class="num">{cell}</td>' if num else f"<td>{cell}</td>")
+        out.append("</tr>")
+    out.append("</tbody></table></div>")
+    return "".join(out)
+
+
+def _by_rank(rows):
+    return sorted(enumerate(rows), key=lambda cr: (cr[1]["rank"] or 10**9, cr[0]))
+
+
+def _candidate_tables(grid, rows) -> str:
+    """Two tables, best rank first: the plates as built, and how they fare."""
+    unit = _metric_unit(grid)
+    unit_txt = f" [{unit}]" if unit else ""
+    conf = _num(grid["yield"].attrs.get("confidence", grid.attrs.get("confidence"))) or 0.95
+    ordered = _by_rank(rows)
+    best = [r["rank"] == 1 for _, r in ordered]
+
+    def rank(r):
+        return _e(r["rank"] if r["rank"] is not None else "—")
+
+    design_head = [("Rank", True), ("Candidate", False), ("Construction", False),
+                   ("Layers (light meets the first one first)", False), ("Design λ [nm]", True)]
+    design_rows = []
+    for c, r in ordered:
+        layers = "<br>".join(
+            f'<span class="nw">{_e(m)} {t:.3f} µm' + (f" at {a:g}°" if np.isfinite(a) else "")
+            + "</span>" for m, t, a in _layers(grid, c)) or "—"
+        design_rows.append([rank(r), f"<b>{_e(r['name'])}</b>", _e(r["construction"] or "—"),
+                            layers, _e(_fmt(r["design_wavelength_nm"], 6))])
+    perf_head = [("Rank", True), ("Candidate", False), (f"Worst, nominal{unit_txt}", True),
+                 (f"Worst, 5th pct{unit_txt}", True),
+                 (f"Yield ({conf:.0%} interval)", True), ("Dominant tolerance", False),
+                 ("DOP, nominal", True), ("dδ/dT [°/K]", True), ("Tilt ½-angle [°]", True)]
+    perf_rows = []
+    for _, r in ordered:
+        y = _pct(r["yield"])
+        if r["yield_low"] is not None and r["yield_high"] is not None:
+            y += f' <span class="muted">({100 * r["yield_low"]:.1f}–' \
+                 f'{100 * r["yield_high"]:.1f})</span>'
+        perf_rows.append([
+            rank(r), f"<b>{_e(r['name'])}</b>", _e(_fmt(r["nominal_worst"], 4)),
+            _e(_fmt(r["p05_worst"], 4)), y, _e(r["dominant"] or "—"),
+            _e(_fmt(r["nominal_dop"], 4)), _e(_fmt(r["temperature_coefficient_deg_per_k"], 3)),
+            _e(_fmt(r["acceptance_half_angle_deg"], 3)),
+        ])
+    return ("<h3>The plates</h3>" + _table(design_head, design_rows, best)
+            + "<h3>How they fare</h3>" + _table(perf_head, perf_rows, best))
+
+
+def _ranking(grid, rows) -> str:
+    if "rank" not in grid.variables:
+        return '<p class="muted">This grid holds no ranking.</p>'
+    items = []
+    for c, r in _by_rank(rows):
+        reason = _s(_var(grid, "reason", c) or "")
+        items.append(f"<li><b>{_e(r['name'])}</b>" + (f" — {_e(reason)}" if reason else "")
+                     + "</li>")
+    return "<ol>" + "".join(items) + "</ol>"
+
+
+def _describe(value) -> str:
+    if isinstance(value, dict):
+        return ", ".join(f"{k} = {_describe(v)}" for k, v in value.items())
+    if isinstance(value, list | tuple):
+        return "; ".join(_describe(v) for v in value)
+    return _s(value)
+
+
+def assumptions(grid) -> list[str]:
+    """Plain-text assumptions of the run, read from the grid's attrs and spec where it can."""
+    spec = _json_attr(grid, "spec", {}) or {}
+    if not isinstance(spec, dict):
+        spec = {}
+    out = []
+    tols = spec.get("tolerances")
+    names = [_s(t) for t in grid["tolerance_name"].values] if "tolerance_name" in grid.coords else []
+    if isinstance(tols, dict) and tols:
+        parts = [f"{k}: {_describe(v)}" for k, v in tols.items()]
+        out.append("Tolerances drawn independently for each sampled build — " + "; ".join(parts)
+                   + ".")
+    elif isinstance(tols, list) and tols:
+        out.append("Tolerances drawn independently for each sampled build — "
+                   + "; ".join(_describe(t) for t in tols) + ".")
+    elif names:
+        out.append("Tolerances drawn independently for each sampled build: "
+                   + ", ".join(names) + " (distributions as in the spec below).")
+    else:
+        out.append("No tolerance was active: every sample is the nominal plate.")
+    samples, seed = grid.attrs.get("samples"), grid.attrs.get("seed")
+    conf = grid["yield"].attrs.get("confidence", grid.attrs.get("confidence"))
+    method = grid["yield"].attrs.get("method")
+    text = "Monte Carlo"
+    if samples is not None:
+        text += f" with {_s(samples)} samples per candidate"
+    if seed is not None:
+        text += f" (seed {_s(seed)})"
+    text += "; yield = fraction of samples that pass"
+    if conf is not None:
+        text += f", with a {float(conf):.0%} confidence interval"
+        if method:
+            text += f" ({_s(method)})"
+    out.append(text + ".")
+    out.append("A sample passes when " + _goal_text(grid) + ".")
+    if grid.sizes.get("wavelength", 1) > 1:
+        out.append("Light of different wavelengths adds incoherently: output Stokes vectors are "
+                   "averaged with the source weights of the grid cells; the spectral degree of "
+                   "polarization shows the depolarization this causes.")
+    ref = None
+    for key in ("reference_temperature", "temperature", "design_temperature"):
+        if _num(spec.get(key)) is not None:
+            ref = _num(spec.get(key))
+            break
+    out.append("Plates are designed (thicknesses chosen) at the reference temperature"
+               + (f" of {ref:g} °C" if ref is not None else "")
+               + "; temperature changes the retardance through each material's thermal data.")
+    out.append("Each layer is an ideal linear retarder (Jones calculus); reflections inside "
+               "and between layers, absorption, scatter and coatings are not modelled.")
+    limit = _num(grid.attrs.get("acceptance_limit_waves"))
+    if limit is not None and "acceptance_half_angle" in grid.variables:
+        out.append(f"Acceptance half-angle: the angle of incidence at which the retardance error "
+                   f"first reaches ±{limit:g} waves at some plane-of-incidence azimuth.")
+    if "design_stokes" in grid.variables:
+        out.append("Sphere plots use the grid wavelength nearest each candidate's design "
+                   "wavelength.")
+    extra = grid.attrs.get("assumptions") or spec.get("assumptions")
+    if extra:
+        extra = _json_attr(grid, "assumptions", extra) if isinstance(extra, str) else extra
+        out += [_s(a) for a in (extra if isinstance(extra, list) else [extra])]
+    return out
+
+
+def _materials(grid) -> str:
+    mats = _json_attr(grid, "material_sources", [])
+    if not isinstance(mats, list) or not mats:
+        return '<p class="muted">The grid names no material sources.</p>'
+    rows = ["<table><thead><tr><th>Material</th><th>Dispersion data</th>"
+            "<th>Thermal data</th></tr></thead><tbody>"]
+    for m in mats:
+        m = m if isinstance(m, dict) else {"name": m}
+        rows.append(f"<tr><td>{_e(m.get('name', ''))}</td><td>{_e(m.get('source', '—'))}</td>"
+                    f"<td>{_e(m.get('thermal_source', '—'))}</td></tr>")
+    rows.append("</tbody></table>")
+    return "".join(rows)
+
+
+def _figure_html(name, caption, png: bytes) -> str:
+    data = base64.b64encode(png).decode("ascii")
+    return (f'<figure id="fig-{_e(name)}"><img src="data:image/png;base64,{data}" '
+            f'alt="{_e(caption)}"><figcaption>{_e(caption)}</figcaption></figure>')
+
+
+def build_html(grid, figures, command=None) -> str:
+    """The report page as one string.
+
+    Parameters
+    ----------
+    grid : xarray.Dataset
+        Results grid.
+    figures : list of (name, caption, png bytes)
+        Embedded as data URIs, in this order.
+    command : str, optional
+        The command that wrote this report (shown beside the run's own command).
+    """
+    from . import __version__
+
+    rows = summary_rows(grid)
+    title = _s(grid.attrs.get("title") or "Retarder tolerance study")
+    spec = _json_attr(grid, "spec", None)
+    spec_text = json.dumps(spec, indent=2, ensure_ascii=False) if spec is not None else \
+        _s(grid.attrs.get("spec", "(not recorded)"))
+    version = _s(grid.attrs.get("version", "unknown"))
+    run_cmd = _s(grid.attrs.get("command") or "(not recorded)")
+    seed = _s(grid.attrs.get("seed", "(not recorded)"))
+    samples = grid.attrs.get("samples", grid.sizes.get("sample"))
+    wl = np.asarray(grid["wavelength"].values, dtype=float)
+    band = f"{wl.min():g}–{wl.max():g} nm ({wl.size} wavelengths)" if wl.size > 1 else \
+        f"{wl[0]:g} nm"
+
+    best = [r for r in rows if r["rank"] == 1]
+    facts = [("Goal", _goal_text(grid)), ("Band", band),
+             ("Source", _s(grid.attrs.get("source_description", "—"))),
+             ("Candidates", str(len(rows))), ("Samples", _s(samples)), ("Seed", seed)]
+    p = []
+    p.append("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">")
+    p.append('<meta name="viewport" content="width=device-width, initial-scale=1">')
+    p.append(f"<title>{_e(title)} — retol report</title><style>{_CSS}</style></head><body>")
+    p.append('<header><div class="kicker">Retarder tolerance report</div>')
+    p.append(f"<h1>{_e(title)}</h1><ul class=\"facts\">")
+    p += [f"<li><b>{_e(k)}:</b> {_e(v)}</li>" for k, v in facts]
+    p.append("</ul></header>")
+    if best:
+        b = best[0]
+        c = [r["name"] for r in rows].index(b["name"])
+        reason = _s(_var(grid, "reason", c) or "")
+        p.append(f'<div class="pick"><div class="muted">Recommended</div><div class="name">'
+                 f"{_e(b['name'])} <span class=\"muted\">({_e(b['construction'])})</span></div>"
+                 f"<div>{_e(reason)}</div></div>")
+    p.append('<div class="caution" id="laser-safety"><strong>Laser safety.</strong> '
+             f"{_e(LASER_CAUTION)}")
+    extra = _s(grid.attrs.get("laser_caution", "")).strip()
+    if extra and extra != LASER_CAUTION:
+        p.append(f"<br><span class=\"muted\">Note recorded with the run:</span> {_e(extra)}")
+    p.append("</div>")
+
+    p.append("<h2>Candidates</h2>")
+    p.append(_candidate_tables(grid, rows))
+    p.append('<p class="muted">Worst: the lowest goal metric over the band, for the nominal '
+             "plate and as the 5th percentile over the sampled builds. Yield: share of builds "
+             "that pass. Dominant tolerance: the one whose removal raises the yield most. DOP: "
+             "degree of polarization of the source-averaged output. dδ/dT: retardance change "
+             "per kelvin at the design wavelength. Tilt ½-angle: angle of incidence at which "
+             "the retardance error reaches the acceptance limit.</p>")
+    p.append("<h2>Ranking</h2>")
+    p.append(_ranking(grid, rows))
+
+    p.append("<h2>Figures</h2>")
+    for k, (name, caption, png) in enumerate(figures, start=1):
+        p.append(_figure_html(name, f"Figure {k}. {caption}", png))
+
+    p.append("<h2>Assumptions</h2><ul class=\"assume\">")
+    p += [f"<li>{_e(a)}</li>" for a in assumptions(grid)]
+    p.append("</ul>")
+    p.append("<h2>Materials and data sources</h2>")
+    p.append(_materials(grid))
+
+    p.append("<h2>The job</h2>")
+    spec_path = grid.attrs.get("spec_path")
+    if spec_path:
+        p.append(f"<p>Spec file: <code>{_e(spec_path)}</code>. The validated spec as run:</p>")
+    p.append(f'<pre id="spec">{_e(spec_text)}</pre>')
+
+    p.append("<h2>Reproduce this run</h2><table><tbody>")
+    p.append(f"<tr><th>Software</th><td>retol {_e(version)} (run)"
+             + (f"; report written by retol {_e(__version__)}" if __version__ != version else "")
+             + "</td></tr>")
+    p.append(f'<tr><th>Seed</th><td id="seed">{_e(seed)}</td></tr>')
+    p.append(f"<tr><th>Samples</th><td>{_e(samples)}</td></tr>")
+    p.append("</tbody></table>")
+    p.append("<p>The exact command that reproduces the run:</p>")
+    p.append(f'<pre id="command">{_e(run_cmd)}</pre>')
+    if command:
+        p.append(f"<p>This report was written by:</p><pre>{_e(command)}</pre>")
+    p.append(f"<footer>Written by retol {_e(__version__)}. Predictions of a model under the "
+             "assumptions above; verify critical parts by measurement.</footer>")
+    p.append("</body></html>\n")
+    return "\n".join(p)
+
+
+# ----------------------------------------------------------------------------- writing
+
+
+def _render_all(grid, folder: Path, formats):
+    """Draw each figure once; write the requested formats into ``folder``; return PNGs."""
+    from .plots import FIGURES, figure_names, render
+
+    embedded = []
+    folder.mkdir()
+    for name in figure_names(grid):
+        func, caption = FIGURES[name]
+        fig = func(grid)
+        buf = io.BytesIO()
+        render(fig, buf, "png")
+        png = buf.getvalue()
+        embedded.append((name, caption, png))
+        for fmt in formats:
+            target = folder / f"{name}.{fmt}"
+            if fmt == "png":
+                target.write_bytes(png)
+            else:
+                render(fig, target, fmt)
+        del fig
+    return embedded
+
+
+def write_report(grid, out_dir, formats=("png",), force: bool = False, command=None) -> Path:
+    """Write report.html, summary.csv and figures/ for ``grid`` into ``out_dir``.
+
+    Parameters
+    ----------
+    grid : xarray.Dataset
+        Results grid of ``retol run``.
+    out_dir : str or Path
+        Destination folder.  It may not exist yet, or exist holding other files (``retol run``
+        writes grid.nc there first); a previous report in it is replaced only with ``force``.
+    formats : sequence of str
+        Figure file formats for figures/: any of "png", "svg", "pdf".  The HTML always embeds
+        PNG.
+    force : bool
+        Replace a previous report in ``out_dir``.
+    command : str, optional
+        The command line that wrote this report, shown in it.
+
+    Returns
+    -------
+    pathlib.Path
+        Path of report.html.
+
+    Notes
+    -----
+    Everything is built in a temporary folder in ``out_dir``'s parent; if anything fails it is
+    removed and ``out_dir`` is untouched.  Then, if ``out_dir`` does not exist, the temporary
+    folder is renamed to it (one atomic step); otherwise figures/ is swapped in and the two
+    files are moved in with ``os.replace``, report.html last, so that a report.html on disk
+    always belongs to a complete report.  Callers that run a long job first should call
+    :func:`check_writable` before the job.
+
+    Raises
+    ------
+    RetolError
+        Unknown format ("--format"); a bad, unwritable or already-reported-in ``out_dir``
+        ("--out"); a Dataset that is not a results grid ("grid").
+    """
+    from .plots import check_formats
+
+    formats = check_formats(formats)
+    check_grid(grid)
+    out = check_writable(out_dir, force)
+    parent = out.parent
+    try:
+        parent.mkdir(parents=True, exist_ok=True)
+        tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.partial-", dir=parent))
+        umask = os.umask(0)
+        os.umask(umask)
+        tmp.chmod(0o777 & ~umask)  # mkdtemp makes it private; the report folder should not be
+    except OSError as exc:
+        raise RetolError("--out", f"cannot write in {parent}: {exc.strerror or exc}",
+                         "choose a folder you can write to") from None
+    try:
+        figures = _render_all(grid, tmp / FIGURE_DIR, formats)
+        write_summary_csv(grid, tmp / SUMMARY_FILE)
+        (tmp / REPORT_FILE).write_text(build_html(grid, figures, command), encoding="utf-8")
+        if not out.exists():
+            os.replace(tmp, out)
+            return out / REPORT_FILE
+        old = out / FIGURE_DIR
+        if old.exists():
+            os.replace(old, tmp / ".previous-figures")
+        os.replace(tmp / FIGURE_DIR, old)
+        for name in (SUMMARY_FILE, REPORT_FILE):
+            os.replace(tmp / name, out / name)
+    except OSError as exc:
+        raise RetolError("--out", f"cannot write the report into {out}: "
+                         f"{exc.strerror or exc}", "choose a folder you can write to") from None
+    finally:
+        with contextlib.suppress(OSError):
+            if tmp.exists():
+                shutil.rmtree(tmp)
+    return out / REPORT_FILE
