@@ -15,7 +15,7 @@ import math
 import tomllib
 import warnings
 from dataclasses import dataclass, field
-from functools import lru_cache
+from functools import cache
 from importlib import resources
 from pathlib import Path
 
@@ -181,7 +181,9 @@ def birefringence(material: Material, wavelength_nm, temperature_c=None, extrapo
 def thermal_factor(material: Material, temperature_c):
     """Relative change of retardance, 1 + γ·(T − T_ref). [1]"""
     t = np.asarray(temperature_c, dtype=float)
-    return 1.0 + material.retardance_temperature_coefficient * (t - material.reference_temperature_c)
+    return 1.0 + material.retardance_temperature_coefficient * (
+        t - material.reference_temperature_c
+    )
 
 
 # ----------------------------------------------------------------------------- loading
@@ -227,7 +229,9 @@ def material_from_dict(d: dict, path: str = "<dict>") -> Material:
     name = _require(d, "name", where, str)
     kind = _require(d, "kind", where, str)
     if kind not in KINDS:
-        raise RetolError(f"{where}: kind", f"unknown kind {kind!r}", f"use one of {', '.join(KINDS)}")
+        raise RetolError(
+            f"{where}: kind", f"unknown kind {kind!r}", f"use one of {', '.join(KINDS)}"
+        )
     unit = d.get("wavelength_unit", "um")
     if unit != "um":
         raise RetolError(f"{where}: wavelength_unit", f"{unit!r} not supported", "use 'um'")
@@ -239,8 +243,9 @@ def material_from_dict(d: dict, path: str = "<dict>") -> Material:
     ftype = _require(formula_d, "type", f"{where}: formula", str)
     if ftype not in FORMULA_TYPES[:3]:
         raise RetolError(
-            f"{where}: formula.type", f"unknown formula {ftype!r}", "use ghosh, sellmeier or "
-            "oscillator-birefringence"
+            f"{where}: formula.type",
+            f"unknown formula {ftype!r}",
+            "use ghosh, sellmeier or oscillator-birefringence",
         )
     if ftype == "oscillator-birefringence":
         coeffs = {
@@ -252,7 +257,9 @@ def material_from_dict(d: dict, path: str = "<dict>") -> Material:
                 raise RetolError(f"{where}: formula.{k}", "is not finite", "fix the number")
     else:
         coeffs = {
-            "ordinary": _coeff_block(formula_d.get("ordinary"), ftype, f"{where}: formula.ordinary"),
+            "ordinary": _coeff_block(
+                formula_d.get("ordinary"), ftype, f"{where}: formula.ordinary"
+            ),
             "extraordinary": _coeff_block(
                 formula_d.get("extraordinary"), ftype, f"{where}: formula.extraordinary"
             ),
@@ -264,13 +271,15 @@ def material_from_dict(d: dict, path: str = "<dict>") -> Material:
     def opt_number(table, key, default, label):
         v = table.get(key, default)
         if isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(v):
-            raise RetolError(f"{where}: {label}", f"must be a finite number, got {v!r}",
-                             "fix the value")
+            raise RetolError(
+                f"{where}: {label}", f"must be a finite number, got {v!r}", "fix the value"
+            )
         return float(v)
 
     t_ref = opt_number(d, "reference_temperature_c", 20.0, "reference_temperature_c")
-    gamma = opt_number(thermal, "retardance_coefficient_per_k", 0.0,
-                       "thermal.retardance_coefficient_per_k")
+    gamma = opt_number(
+        thermal, "retardance_coefficient_per_k", 0.0, "thermal.retardance_coefficient_per_k"
+    )
     gamma_u = opt_number(thermal, "uncertainty_per_k", 0.0, "thermal.uncertainty_per_k")
     return Material(
         name=name.lower(),
@@ -366,7 +375,7 @@ def _materials_folder():
         return Path(__file__).resolve().parent.parent / "materials"
 
 
-@lru_cache(maxsize=None)
+@cache
 def _builtin() -> dict[str, Material]:
     out = {}
     for entry in sorted(_materials_folder().iterdir(), key=lambda e: e.name):
@@ -378,8 +387,14 @@ def _builtin() -> dict[str, Material]:
     return out
 
 
-ALIASES = {"sio2": "quartz", "crystal quartz": "quartz", "al2o3": "sapphire", "pc": "polycarbonate",
-           "magnesium fluoride": "mgf2", "caco3": "calcite"}
+ALIASES = {
+    "sio2": "quartz",
+    "crystal quartz": "quartz",
+    "al2o3": "sapphire",
+    "pc": "polycarbonate",
+    "magnesium fluoride": "mgf2",
+    "caco3": "calcite",
+}
 
 
 def list_materials() -> list[Material]:

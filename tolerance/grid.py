@@ -78,137 +78,282 @@ def build_grid(spec, wl, spectrum, cases, results, qs, tol_names, seed, n, chunk
     from .kernel import spectral_metric
 
     for r, c in zip(results, cases, strict=True):
-        fid_nom.append(float(spectral_metric(r["nominal_spec_stokes"][None, :], c.goal,
-                                             "fidelity")[0]))
-    ranks, reasons = rank(names, [r["yield"] for r in results],
-                          [r["yield_low"] for r in results], [r["yield_high"] for r in results],
-                          fid_nom, accept, tcoef)
+        fid_nom.append(
+            float(spectral_metric(r["nominal_spec_stokes"][None, :], c.goal, "fidelity")[0])
+        )
+    ranks, reasons = rank(
+        names,
+        [r["yield"] for r in results],
+        [r["yield_low"] for r in results],
+        [r["yield_high"] for r in results],
+        fid_nom,
+        accept,
+        tcoef,
+    )
     qarr = np.asarray(qs, dtype=float)
 
     def wq(a, axis=0):
         return np.quantile(a, qarr, axis=axis, method="linear")
 
     data = {
-        "source_spectrum": _da(np.asarray(spectrum.density, float), ("wavelength",), "1",
-                               "relative spectral power density of the source (peak 1)"),
-        "source_weight": _da(np.asarray(spectrum.grid_weight, float), ("wavelength",), "1",
-                             "fraction of the source power in each grid cell"),
-        "construction": _da(np.array([c.plate.construction for c in cases], dtype=object),
-                            ("candidate",), "", "plate construction"),
-        "design_wavelength": _da(np.array([c.plate.design_nm for c in cases]), ("candidate",),
-                                 "nm", "design wavelength"),
-        "target_waves": _da(np.array([c.plate.waves for c in cases]), ("candidate",), "waves",
-                            "target retardance beyond whole waves"),
-        "handedness": _da(np.array([c.handedness for c in cases]), ("candidate",), "1",
-                          "goal sense: +1 right (clockwise looking toward the source), -1 left"),
+        "source_spectrum": _da(
+            np.asarray(spectrum.density, float),
+            ("wavelength",),
+            "1",
+            "relative spectral power density of the source (peak 1)",
+        ),
+        "source_weight": _da(
+            np.asarray(spectrum.grid_weight, float),
+            ("wavelength",),
+            "1",
+            "fraction of the source power in each grid cell",
+        ),
+        "construction": _da(
+            np.array([c.plate.construction for c in cases], dtype=object),
+            ("candidate",),
+            "",
+            "plate construction",
+        ),
+        "design_wavelength": _da(
+            np.array([c.plate.design_nm for c in cases]), ("candidate",), "nm", "design wavelength"
+        ),
+        "target_waves": _da(
+            np.array([c.plate.waves for c in cases]),
+            ("candidate",),
+            "waves",
+            "target retardance beyond whole waves",
+        ),
+        "handedness": _da(
+            np.array([c.handedness for c in cases]),
+            ("candidate",),
+            "1",
+            "goal sense: +1 right (clockwise looking toward the source), -1 left",
+        ),
         "layer_material": _da(lay_mat, ("candidate", "layer"), "", "layer material"),
         "layer_thickness": _da(lay_th, ("candidate", "layer"), "um", "layer thickness"),
         "layer_axis": _da(lay_ax, ("candidate", "layer"), "deg", "layer fast-axis angle"),
-        "nominal_retardance": _da(nomv[:, 0], ("candidate", "wavelength"), "waves",
-                                  "error-free retardance along the plate's fast axis"),
-        "nominal_axial_ratio": _da(nomv[:, 1], ("candidate", "wavelength"), "1",
-                                   "error-free axial ratio b/a"),
-        "nominal_azimuth": _da(nomv[:, 2], ("candidate", "wavelength"), "deg",
-                               "error-free major-axis azimuth"),
+        "nominal_retardance": _da(
+            nomv[:, 0],
+            ("candidate", "wavelength"),
+            "waves",
+            "error-free retardance along the plate's fast axis",
+        ),
+        "nominal_axial_ratio": _da(
+            nomv[:, 1], ("candidate", "wavelength"), "1", "error-free axial ratio b/a"
+        ),
+        "nominal_azimuth": _da(
+            nomv[:, 2], ("candidate", "wavelength"), "deg", "error-free major-axis azimuth"
+        ),
         "nominal_metric": _da(nomv[:, 3], ("candidate", "wavelength"), mu, f"error-free {mlong}"),
-        "nominal_stokes": _da(np.stack([r["nominal_stokes"] for r in results]),
-                              ("candidate", "wavelength", "stokes"), "1",
-                              "error-free normalised Stokes vector"),
-        "retardance_mean": _da(stack("mean"), ("candidate", "wavelength"), "waves",
-                               "mean retardance over samples"),
-        "retardance_std": _da(stack("std"), ("candidate", "wavelength"), "waves",
-                              "standard deviation of retardance over samples"),
-        "worst_metric": _da(stack("worst"), ("candidate", "sample"), mu,
-                            f"each sample's worst {mlong} over the band"),
-        "spectral_metric": _da(stack("spectral_metric"), ("candidate", "sample"), mu,
-                               f"each sample's source-weighted {mlong}"),
-        "spectral_dop": _da(stack("dop"), ("candidate", "sample"), "1",
-                            "degree of polarization of the source-averaged output"),
-        "pass_metric": _da(stack("pass_metric"), ("candidate", "sample"), mu,
-                           f"the {mlong} that the pass test uses"),
-        "design_stokes": _da(stack("design_stokes"), ("candidate", "sample", "stokes"), "1",
-                             "normalised output Stokes vector at the design wavelength"),
-        "nominal_worst": _da(np.array([r["nominal_worst"] for r in results]), ("candidate",), mu,
-                             f"error-free worst {mlong} in band"),
-        "nominal_spectral_metric": _da(np.array([r["nominal_spectral_metric"] for r in results]),
-                                       ("candidate",), mu, f"error-free source-weighted {mlong}"),
-        "nominal_dop": _da(np.array([r["nominal_dop"] for r in results]), ("candidate",), "1",
-                           "degree of polarization of the error-free output over the source"),
-        "nominal_spectral_fidelity": _da(np.array(fid_nom), ("candidate",), "1",
-                                         "error-free source-averaged fidelity to the goal "
-                                         "(unpolarized part counted)"),
-        "worst_metric_quantile": _da(wq(stack("worst"), axis=1).T, ("candidate", "quantile"), mu,
-                                     f"quantiles of the worst {mlong} in band"),
-        "pass_metric_quantile": _da(wq(stack("pass_metric"), axis=1).T, ("candidate", "quantile"),
-                                    mu, f"quantiles of the pass-test {mlong}"),
-        "dop_quantile": _da(wq(stack("dop"), axis=1).T, ("candidate", "quantile"), "1",
-                            "quantiles of the source-averaged degree of polarization"),
-        "yield": _da(np.array([r["yield"] for r in results]), ("candidate",), "1",
-                     "fraction of assemblies that meet the goal", confidence=spec["run"]["confidence"],
-                     method="Wilson score"),
-        "yield_low": _da(np.array([r["yield_low"] for r in results]), ("candidate",), "1",
-                         "lower confidence limit of the yield"),
-        "yield_high": _da(np.array([r["yield_high"] for r in results]), ("candidate",), "1",
-                          "upper confidence limit of the yield"),
-        "sensitivity_alone": _da(np.array([[r["sens_alone"].get(t, np.nan) for t in tol_names]
-                                           for r in results]).reshape(C, len(tol_names)),
-                                 ("candidate", "tolerance_name"), "1",
-                                 "yield with only this tolerance acting",
-                                 samples=int(results[0]["sensitivity_samples"])),
-        "sensitivity_without": _da(np.array([[r["sens_without"].get(t, np.nan)
-                                              for t in tol_names]
-                                             for r in results]).reshape(C, len(tol_names)),
-                                   ("candidate", "tolerance_name"), "1",
-                                   "yield with every tolerance but this one (what holding it "
-                                   "exactly would buy)",
-                                   samples=int(results[0]["sensitivity_samples"])),
-        "dominant": _da(np.array([r["dominant"] for r in results], dtype=object), ("candidate",),
-                        "", "tolerance whose removal raises the yield most"),
-        "retardance_error_temperature": _da(env_t, ("candidate", "temperature"), "waves",
-                                            "retardance change with temperature at the design "
-                                            "wavelength"),
-        "retardance_error_tilt": _da(env_tilt, ("candidate", "tilt", "tilt_azimuth"), "waves",
-                                     "retardance change with angle of incidence at the design "
-                                     "wavelength"),
-        "acceptance_half_angle": _da(accept, ("candidate",), "deg",
-                                     "largest angle of incidence keeping the retardance error "
-                                     "within the limit at every azimuth", limit_waves=limit),
-        "temperature_coefficient": _da(tcoef, ("candidate",), "deg/K",
-                                       "retardance change per kelvin at the design wavelength"),
+        "nominal_stokes": _da(
+            np.stack([r["nominal_stokes"] for r in results]),
+            ("candidate", "wavelength", "stokes"),
+            "1",
+            "error-free normalised Stokes vector",
+        ),
+        "retardance_mean": _da(
+            stack("mean"), ("candidate", "wavelength"), "waves", "mean retardance over samples"
+        ),
+        "retardance_std": _da(
+            stack("std"),
+            ("candidate", "wavelength"),
+            "waves",
+            "standard deviation of retardance over samples",
+        ),
+        "worst_metric": _da(
+            stack("worst"),
+            ("candidate", "sample"),
+            mu,
+            f"each sample's worst {mlong} over the band",
+        ),
+        "spectral_metric": _da(
+            stack("spectral_metric"),
+            ("candidate", "sample"),
+            mu,
+            f"each sample's source-weighted {mlong}",
+        ),
+        "spectral_dop": _da(
+            stack("dop"),
+            ("candidate", "sample"),
+            "1",
+            "degree of polarization of the source-averaged output",
+        ),
+        "pass_metric": _da(
+            stack("pass_metric"),
+            ("candidate", "sample"),
+            mu,
+            f"the {mlong} that the pass test uses",
+        ),
+        "design_stokes": _da(
+            stack("design_stokes"),
+            ("candidate", "sample", "stokes"),
+            "1",
+            "normalised output Stokes vector at the design wavelength",
+        ),
+        "nominal_worst": _da(
+            np.array([r["nominal_worst"] for r in results]),
+            ("candidate",),
+            mu,
+            f"error-free worst {mlong} in band",
+        ),
+        "nominal_spectral_metric": _da(
+            np.array([r["nominal_spectral_metric"] for r in results]),
+            ("candidate",),
+            mu,
+            f"error-free source-weighted {mlong}",
+        ),
+        "nominal_dop": _da(
+            np.array([r["nominal_dop"] for r in results]),
+            ("candidate",),
+            "1",
+            "degree of polarization of the error-free output over the source",
+        ),
+        "nominal_spectral_fidelity": _da(
+            np.array(fid_nom),
+            ("candidate",),
+            "1",
+            "error-free source-averaged fidelity to the goal (unpolarized part counted)",
+        ),
+        "worst_metric_quantile": _da(
+            wq(stack("worst"), axis=1).T,
+            ("candidate", "quantile"),
+            mu,
+            f"quantiles of the worst {mlong} in band",
+        ),
+        "pass_metric_quantile": _da(
+            wq(stack("pass_metric"), axis=1).T,
+            ("candidate", "quantile"),
+            mu,
+            f"quantiles of the pass-test {mlong}",
+        ),
+        "dop_quantile": _da(
+            wq(stack("dop"), axis=1).T,
+            ("candidate", "quantile"),
+            "1",
+            "quantiles of the source-averaged degree of polarization",
+        ),
+        "yield": _da(
+            np.array([r["yield"] for r in results]),
+            ("candidate",),
+            "1",
+            "fraction of assemblies that meet the goal",
+            confidence=spec["run"]["confidence"],
+            method="Wilson score",
+        ),
+        "yield_low": _da(
+            np.array([r["yield_low"] for r in results]),
+            ("candidate",),
+            "1",
+            "lower confidence limit of the yield",
+        ),
+        "yield_high": _da(
+            np.array([r["yield_high"] for r in results]),
+            ("candidate",),
+            "1",
+            "upper confidence limit of the yield",
+        ),
+        "sensitivity_alone": _da(
+            np.array(
+                [[r["sens_alone"].get(t, np.nan) for t in tol_names] for r in results]
+            ).reshape(C, len(tol_names)),
+            ("candidate", "tolerance_name"),
+            "1",
+            "yield with only this tolerance acting",
+            samples=int(results[0]["sensitivity_samples"]),
+        ),
+        "sensitivity_without": _da(
+            np.array(
+                [[r["sens_without"].get(t, np.nan) for t in tol_names] for r in results]
+            ).reshape(C, len(tol_names)),
+            ("candidate", "tolerance_name"),
+            "1",
+            "yield with every tolerance but this one (what holding it exactly would buy)",
+            samples=int(results[0]["sensitivity_samples"]),
+        ),
+        "dominant": _da(
+            np.array([r["dominant"] for r in results], dtype=object),
+            ("candidate",),
+            "",
+            "tolerance whose removal raises the yield most",
+        ),
+        "retardance_error_temperature": _da(
+            env_t,
+            ("candidate", "temperature"),
+            "waves",
+            "retardance change with temperature at the design wavelength",
+        ),
+        "retardance_error_tilt": _da(
+            env_tilt,
+            ("candidate", "tilt", "tilt_azimuth"),
+            "waves",
+            "retardance change with angle of incidence at the design wavelength",
+        ),
+        "acceptance_half_angle": _da(
+            accept,
+            ("candidate",),
+            "deg",
+            "largest angle of incidence keeping the retardance error "
+            "within the limit at every azimuth",
+            limit_waves=limit,
+        ),
+        "temperature_coefficient": _da(
+            tcoef, ("candidate",), "deg/K", "retardance change per kelvin at the design wavelength"
+        ),
         "rank": _da(ranks, ("candidate",), "1", "rank of the candidate (1 = pick)"),
         "reason": _da(reasons, ("candidate",), "", "one-line reason for the rank"),
     }
     for v, key in enumerate(VARIABLES):
         units = {"retardance": "waves", "axial_ratio": "1", "azimuth": "deg", "metric": mu}[key]
-        long = {"retardance": "retardance", "axial_ratio": "axial ratio b/a",
-                "azimuth": "major-axis azimuth", "metric": mlong}[key]
-        data[f"{key}_quantile"] = _da(quant[:, :, v], ("candidate", "quantile", "wavelength"),
-                                      units, f"quantiles over samples of the {long}")
+        long = {
+            "retardance": "retardance",
+            "axial_ratio": "axial ratio b/a",
+            "azimuth": "major-axis azimuth",
+            "metric": mlong,
+        }[key]
+        data[f"{key}_quantile"] = _da(
+            quant[:, :, v],
+            ("candidate", "quantile", "wavelength"),
+            units,
+            f"quantiles over samples of the {long}",
+        )
         if results[0]["kept"] is not None:
-            data[f"sample_{key}"] = _da(np.stack([r["kept"][:, v, :] for r in results]),
-                                        ("candidate", "sample", "wavelength"), units,
-                                        f"per-sample {long}")
+            data[f"sample_{key}"] = _da(
+                np.stack([r["kept"][:, v, :] for r in results]),
+                ("candidate", "sample", "wavelength"),
+                units,
+                f"per-sample {long}",
+            )
     coords = {
         "candidate": _da(np.array(names, dtype=object), ("candidate",), "", "candidate plate"),
         "wavelength": _da(wl, ("wavelength",), "nm", "vacuum wavelength"),
         "quantile": _da(qarr, ("quantile",), "1", "quantile over samples"),
         "sample": _da(np.arange(n), ("sample",), "1", "Monte Carlo sample"),
-        "tolerance_name": _da(np.array(tol_names, dtype=object), ("tolerance_name",), "",
-                         "tolerance name"),
-        "stokes": _da(np.array(["s1", "s2", "s3"], dtype=object), ("stokes",), "1",
-                      "normalised Stokes component"),
+        "tolerance_name": _da(
+            np.array(tol_names, dtype=object), ("tolerance_name",), "", "tolerance name"
+        ),
+        "stokes": _da(
+            np.array(["s1", "s2", "s3"], dtype=object),
+            ("stokes",),
+            "1",
+            "normalised Stokes component",
+        ),
         "layer": _da(np.arange(L), ("layer",), "1", "layer index (light meets 0 first)"),
         "temperature": _da(temps, ("temperature",), "degC", "plate temperature"),
         "tilt": _da(tilts, ("tilt",), "deg", "angle of incidence"),
-        "tilt_azimuth": _da(azs, ("tilt_azimuth",), "deg",
-                            "plane-of-incidence azimuth from the plate's fast axis"),
+        "tilt_azimuth": _da(
+            azs, ("tilt_azimuth",), "deg", "plane-of-incidence azimuth from the plate's fast axis"
+        ),
     }
     mats = {}
     for c in cases:
         for la in c.plate.layers:
             m = la.material
-            mats[m.name] = {"name": m.name, "source": m.source, "thermal_source": m.thermal_source,
-                            "valid_nm": [m.valid_min_nm, m.valid_max_nm]}
+            mats[m.name] = {
+                "name": m.name,
+                "source": m.source,
+                "thermal_source": m.thermal_source,
+                "valid_nm": [m.valid_min_nm, m.valid_max_nm],
+            }
     clean_spec = {k: v for k, v in spec.items() if k not in ("base_dir",)}
     attrs = {
         "title": spec["title"],
@@ -231,9 +376,11 @@ def build_grid(spec, wl, spectrum, cases, results, qs, tol_names, seed, n, chunk
         "nominal_temperature_c": float(env["temperature_c"]),
         "command": "",
         "laser_caution": LASER_CAUTION,
-        "conventions": ("time dependence exp(i(kz - wt)); S3 > 0 = clockwise looking toward the "
-                        "source = right-handed; angles counter-clockwise from x looking toward "
-                        "the source"),
+        "conventions": (
+            "time dependence exp(i(kz - wt)); S3 > 0 = clockwise looking toward the "
+            "source = right-handed; angles counter-clockwise from x looking toward "
+            "the source"
+        ),
     }
     return xr.Dataset(data, coords=coords, attrs=attrs)
 
@@ -264,5 +411,6 @@ def load_grid(path) -> xr.Dataset:
         with xr.open_dataset(p, engine="h5netcdf") as ds:
             return ds.load()
     except (OSError, ValueError) as exc:
-        raise RetolError(str(p), f"cannot be read as a results grid ({exc})",
-                         "give the grid.nc a run wrote") from None
+        raise RetolError(
+            str(p), f"cannot be read as a results grid ({exc})", "give the grid.nc a run wrote"
+        ) from None

@@ -53,7 +53,9 @@ class Plate:
 
     def signs(self) -> np.ndarray:
         """Projection cos 2(θᵢ − θ) of each layer's fast axis on the plate's fast axis."""
-        return np.array([np.cos(np.radians(2 * (la.axis_deg - self.axis_deg))) for la in self.layers])
+        return np.array(
+            [np.cos(np.radians(2 * (la.axis_deg - self.axis_deg))) for la in self.layers]
+        )
 
     def aligned(self) -> bool:
         """True when every layer's axis is parallel or crossed to the plate's axis."""
@@ -61,7 +63,8 @@ class Plate:
 
     def describe(self) -> str:
         parts = [
-            f"{la.material.name} {la.thickness_um:.3f} um @ {la.axis_deg:g} deg" for la in self.layers
+            f"{la.material.name} {la.thickness_um:.3f} um @ {la.axis_deg:g} deg"
+            for la in self.layers
         ]
         return "; ".join(parts)
 
@@ -128,9 +131,7 @@ def compound(material, waves, design_nm, axis_deg=0.0, thick_plate_um=None, **_)
     return (Layer(m, d1, axis_deg), Layer(m, d2, axis_deg + 90.0)), {"difference_um": diff}
 
 
-def achromatic(
-    material, waves, design_nm, axis_deg=0.0, partner=None, match_nm=None, **_
-):
+def achromatic(material, waves, design_nm, axis_deg=0.0, partner=None, match_nm=None, **_):
     """Two different crystals with crossed axes, achromatic at two wavelengths or in slope.
 
     Thicknesses solve x₁·|Δn₁(λ)| + x₂·|Δn₂(λ)| = W·λ at the two wavelengths ``match_nm`` (or in
@@ -142,7 +143,9 @@ def achromatic(
     """
     m1 = get_material(material)
     if partner is None:
-        raise RetolError("partner", "is required for an achromatic plate", "give e.g. --partner mgf2")
+        raise RetolError(
+            "partner", "is required for an achromatic plate", "give e.g. --partner mgf2"
+        )
     m2 = get_material(partner)
     if m2.name == m1.name:
         raise RetolError("partner", "must be a different material", "e.g. quartz with mgf2")
@@ -167,7 +170,9 @@ def achromatic(
     try:
         x = np.linalg.solve(A, b)
     except np.linalg.LinAlgError:
-        raise RetolError("partner", "dispersions too alike to make an achromat", "pick another") from None
+        raise RetolError(
+            "partner", "dispersions too alike to make an achromat", "pick another"
+        ) from None
     layers = tuple(
         Layer(m, abs(float(xi)), axis_deg if xi > 0 else axis_deg + 90.0)
         for m, xi in zip((m1, m2), x, strict=True)
@@ -199,15 +204,21 @@ def stack(material=None, waves=None, design_nm=None, axis_deg=0.0, layers=None, 
     out = []
     for i, la in enumerate(layers):
         if not isinstance(la, dict):
-            raise RetolError(f"layers[{i}]", "must be a table", "give material, thickness, axis_deg")
+            raise RetolError(
+                f"layers[{i}]", "must be a table", "give material, thickness, axis_deg"
+            )
         if "material" not in la:
             raise RetolError(f"layers[{i}].material", "missing", "name the layer's material")
         th = la.get("thickness_um", la.get("thickness"))
         from .units import length_um
 
-        d = _positive(length_um(th, f"layers[{i}].thickness") if th is not None else None,
-                      f"layers[{i}].thickness")
-        out.append(Layer(get_material(la["material"]), d, float(la.get("axis_deg", 0.0)) + axis_deg))
+        d = _positive(
+            length_um(th, f"layers[{i}].thickness") if th is not None else None,
+            f"layers[{i}].thickness",
+        )
+        out.append(
+            Layer(get_material(la["material"]), d, float(la.get("axis_deg", 0.0)) + axis_deg)
+        )
     return tuple(out), {}
 
 
@@ -245,7 +256,8 @@ def design_plate(
         close = difflib.get_close_matches(construction, list(CONSTRUCTIONS), n=1)
         hint = f"did you mean {close[0]!r}? " if close else ""
         raise RetolError(
-            "construction", f"unknown construction {construction!r}",
+            "construction",
+            f"unknown construction {construction!r}",
             f"{hint}use one of {', '.join(CONSTRUCTIONS)}",
         )
     if construction != "stack":
@@ -274,8 +286,14 @@ def design_plate(
     )
 
 
-def layer_retardances(plate: Plate, wavelength_nm, temperature_c=None, aoi_deg=0.0,
-                      incidence_azimuth_deg=0.0, extrapolate=False):
+def layer_retardances(
+    plate: Plate,
+    wavelength_nm,
+    temperature_c=None,
+    aoi_deg=0.0,
+    incidence_azimuth_deg=0.0,
+    extrapolate=False,
+):
     """Retardance of each layer, shape (n_layers, ...). [rad]
 
     ``incidence_azimuth_deg`` is the plane of incidence's azimuth in the lab frame.
@@ -283,32 +301,52 @@ def layer_retardances(plate: Plate, wavelength_nm, temperature_c=None, aoi_deg=0
     return np.stack(
         [
             layer_retardance(
-                la.material, la.thickness_um, wavelength_nm, temperature_c, aoi_deg,
-                np.asarray(incidence_azimuth_deg) - la.optic_axis_deg, extrapolate,
+                la.material,
+                la.thickness_um,
+                wavelength_nm,
+                temperature_c,
+                aoi_deg,
+                np.asarray(incidence_azimuth_deg) - la.optic_axis_deg,
+                extrapolate,
             )
             for la in plate.layers
         ]
     )
 
 
-def plate_retardance(plate: Plate, wavelength_nm, temperature_c=None, aoi_deg=0.0,
-                     incidence_azimuth_deg=0.0, extrapolate=False):
+def plate_retardance(
+    plate: Plate,
+    wavelength_nm,
+    temperature_c=None,
+    aoi_deg=0.0,
+    incidence_azimuth_deg=0.0,
+    extrapolate=False,
+):
     """Retardance of the plate along its fast axis: Σ cos 2(θᵢ − θ)·δᵢ. [rad]
 
     For plates whose layers are parallel or crossed (every construction but a general stack)
     this is exactly the retardance of the equivalent linear retarder, order kept.
     """
-    d = layer_retardances(plate, wavelength_nm, temperature_c, aoi_deg, incidence_azimuth_deg,
-                          extrapolate)
+    d = layer_retardances(
+        plate, wavelength_nm, temperature_c, aoi_deg, incidence_azimuth_deg, extrapolate
+    )
     s = plate.signs().reshape((-1,) + (1,) * (d.ndim - 1))
     return np.sum(s * d, axis=0)
 
 
-def plate_jones(plate: Plate, wavelength_nm, temperature_c=None, aoi_deg=0.0,
-                incidence_azimuth_deg=0.0, clocking_deg=0.0, extrapolate=False):
+def plate_jones(
+    plate: Plate,
+    wavelength_nm,
+    temperature_c=None,
+    aoi_deg=0.0,
+    incidence_azimuth_deg=0.0,
+    clocking_deg=0.0,
+    extrapolate=False,
+):
     """Jones matrix of the whole plate, light meeting layer 0 first. [(..., 2, 2) complex]"""
-    d = layer_retardances(plate, wavelength_nm, temperature_c, aoi_deg, incidence_azimuth_deg,
-                          extrapolate)
+    d = layer_retardances(
+        plate, wavelength_nm, temperature_c, aoi_deg, incidence_azimuth_deg, extrapolate
+    )
     J = None
     for la, di in zip(plate.layers, d, strict=True):
         Ji = retarder_jones(di, la.axis_deg + clocking_deg)

@@ -208,8 +208,17 @@ def _source_behind(ax, grid):
 
 def _empty(ax, text):
     ax.set_axis_off()
-    ax.text(0.5, 0.5, text, ha="center", va="center", transform=ax.transAxes, color="#6b665d",
-            fontsize=9, style="italic")
+    ax.text(
+        0.5,
+        0.5,
+        text,
+        ha="center",
+        va="center",
+        transform=ax.transAxes,
+        color="#6b665d",
+        fontsize=9,
+        style="italic",
+    )
 
 
 def _candidate_title(ax, grid, c):
@@ -255,8 +264,10 @@ def metric_bands(grid):
             _source_behind(ax, grid)
             curves = []
             for (qa, qb), alpha in zip(_BANDS, (0.16, 0.36), strict=True):
-                lo, hi = _quantile(grid, "metric_quantile", c, qa), _quantile(
-                    grid, "metric_quantile", c, qb)
+                lo, hi = (
+                    _quantile(grid, "metric_quantile", c, qa),
+                    _quantile(grid, "metric_quantile", c, qb),
+                )
                 if lo is not None and hi is not None:
                     _band(ax, wl, lo, hi, color=col, alpha=alpha)
                     curves += [lo, hi]
@@ -268,20 +279,32 @@ def metric_bands(grid):
             if goal is not None:
                 ax.axhline(goal, color=GOAL_INK, linewidth=1.1, linestyle=(0, (6, 2, 1, 2)))
             _metric_ylim(ax, curves, nominal, goal)
-            ax.set_ylabel(_metric_label(grid) if len(names) == 1 else
-                          f"[{grid.attrs.get('metric_units', '')}]")
+            ax.set_ylabel(
+                _metric_label(grid)
+                if len(names) == 1
+                else f"[{grid.attrs.get('metric_units', '')}]"
+            )
             _candidate_title(ax, grid, c)
         _wavelength_axis(axes[-1], grid)
         handles = [
             Line2D([], [], color=INK, linewidth=1.4, label="nominal plate"),
-            Line2D([], [], color="#555", linestyle=(0, (4, 2)), linewidth=1.3,
-                   label="median of samples"),
+            Line2D(
+                [],
+                [],
+                color="#555",
+                linestyle=(0, (4, 2)),
+                linewidth=1.3,
+                label="median of samples",
+            ),
             Patch(color="#555", alpha=0.45, label="5–95 % of samples"),
             Patch(color="#555", alpha=0.18, label="1–99 % of samples"),
         ]
         if goal is not None:
-            handles.append(Line2D([], [], color=GOAL_INK, linestyle=(0, (6, 2, 1, 2)),
-                                  label=_fmt_goal(grid, goal)))
+            handles.append(
+                Line2D(
+                    [], [], color=GOAL_INK, linestyle=(0, (6, 2, 1, 2)), label=_fmt_goal(grid, goal)
+                )
+            )
         if "source_spectrum" in grid.variables:
             handles.append(Patch(color=SOURCE_INK, alpha=0.8, label="source spectrum"))
         fig.legend(handles=handles, loc="outside upper center", ncols=3)
@@ -315,13 +338,24 @@ def p05_overlay(grid):
             curves.append(p05)
             _curve(ax, wl, p05, color=_colour(c), linewidth=1.8, label=name)
         if goal is not None:
-            ax.axhline(goal, color=GOAL_INK, linewidth=1.1, linestyle=(0, (6, 2, 1, 2)),
-                       label=_fmt_goal(grid, goal))
+            ax.axhline(
+                goal,
+                color=GOAL_INK,
+                linewidth=1.1,
+                linestyle=(0, (6, 2, 1, 2)),
+                label=_fmt_goal(grid, goal),
+            )
         if curves:
             _metric_ylim(ax, curves, np.array([]), goal)
         else:
-            ax.text(0.5, 0.5, "no 5 % quantile in this grid", transform=ax.transAxes,
-                    ha="center", color="#6b665d")
+            ax.text(
+                0.5,
+                0.5,
+                "no 5 % quantile in this grid",
+                transform=ax.transAxes,
+                ha="center",
+                color="#6b665d",
+            )
         if goal is not None:
             bottom = ax.get_ylim()[0]
             ax.axhspan(bottom, goal, color=GOAL_INK, alpha=0.035, linewidth=0)
@@ -375,14 +409,25 @@ def retardance_bands(grid):
                 label = f"target {target + k:g} {units}"
                 if k:
                     label += f" ({target:g} + {k:g})"
-                ax.axhline(target + k, color=GOAL_INK, linewidth=1.0,
-                           linestyle=(0, (6, 2, 1, 2)))
-                ax.annotate(label, (1.0, target + k), xycoords=("axes fraction", "data"),
-                            xytext=(-4, 3), textcoords="offset points", ha="right",
-                            va="bottom", fontsize=7.5, color=GOAL_INK)
+                ax.axhline(target + k, color=GOAL_INK, linewidth=1.0, linestyle=(0, (6, 2, 1, 2)))
+                ax.annotate(
+                    label,
+                    (1.0, target + k),
+                    xycoords=("axes fraction", "data"),
+                    xytext=(-4, 3),
+                    textcoords="offset points",
+                    ha="right",
+                    va="bottom",
+                    fontsize=7.5,
+                    color=GOAL_INK,
+                )
             if "design_wavelength" in grid.variables:
-                ax.axvline(float(grid["design_wavelength"].values[c]), color="#9a948a",
-                           linewidth=0.8, linestyle=":")
+                ax.axvline(
+                    float(grid["design_wavelength"].values[c]),
+                    color="#9a948a",
+                    linewidth=0.8,
+                    linestyle=":",
+                )
             ax.set_ylabel(f"[{units}]")
             _candidate_title(ax, grid, c)
         _wavelength_axis(axes[-1], grid)
@@ -409,10 +454,8 @@ def yield_chart(grid):
     """
     names = _names(grid)
     y = np.asarray(grid["yield"].values, dtype=float) * 100
-    lo = np.asarray(grid["yield_low"].values, dtype=float) * 100 if _has(grid, "yield_low") \
-        else y
-    hi = np.asarray(grid["yield_high"].values, dtype=float) * 100 if _has(grid, "yield_high") \
-        else y
+    lo = np.asarray(grid["yield_low"].values, dtype=float) * 100 if _has(grid, "yield_low") else y
+    hi = np.asarray(grid["yield_high"].values, dtype=float) * 100 if _has(grid, "yield_high") else y
     order = list(range(len(names)))
     if "rank" in grid.variables:
         order = list(np.argsort(np.asarray(grid["rank"].values), kind="stable"))
@@ -424,13 +467,33 @@ def yield_chart(grid):
         for row, c in enumerate(order):
             pos = len(order) - 1 - row
             col = _colour(c)
-            ax.plot([lo[c], hi[c]], [pos, pos], color=col, linewidth=7, alpha=0.35,
-                    solid_capstyle="round")
-            ax.plot([y[c]], [pos], marker="o", markersize=7, color=col, markeredgecolor="white",
-                    markeredgewidth=1.2, linestyle="none")
-            ax.annotate(f"{y[c]:.1f} %  [{lo[c]:.1f}–{hi[c]:.1f}]",
-                        (min(hi[c], 100.0), pos), xytext=(8, 0), textcoords="offset points",
-                        va="center", fontsize=8, color=INK)
+            ax.plot(
+                [lo[c], hi[c]],
+                [pos, pos],
+                color=col,
+                linewidth=7,
+                alpha=0.35,
+                solid_capstyle="round",
+            )
+            ax.plot(
+                [y[c]],
+                [pos],
+                marker="o",
+                markersize=7,
+                color=col,
+                markeredgecolor="white",
+                markeredgewidth=1.2,
+                linestyle="none",
+            )
+            ax.annotate(
+                f"{y[c]:.1f} %  [{lo[c]:.1f}–{hi[c]:.1f}]",
+                (min(hi[c], 100.0), pos),
+                xytext=(8, 0),
+                textcoords="offset points",
+                va="center",
+                fontsize=8,
+                color=INK,
+            )
         ax.set_yticks(range(len(order)), [names[c] for c in order][::-1])
         for lab, c in zip(ax.get_yticklabels(), order[::-1], strict=True):
             lab.set_color(_colour(c))
@@ -461,7 +524,9 @@ def sensitivity_chart(grid):
     from matplotlib.lines import Line2D
 
     names = _names(grid)
-    tols = [str(t) for t in grid["tolerance_name"].values] if "tolerance_name" in grid.coords else []
+    tols = (
+        [str(t) for t in grid["tolerance_name"].values] if "tolerance_name" in grid.coords else []
+    )
     have = bool(tols) and _has(grid, "sensitivity_alone", "sensitivity_without")
     n_rows = max(len(tols), 1)
     with _style():
@@ -475,33 +540,61 @@ def sensitivity_chart(grid):
             col = _colour(c)
             full = float(grid["yield"].values[c]) * 100
             alone = np.asarray(grid["sensitivity_alone"].isel(candidate=c).values, float) * 100
-            without = np.asarray(grid["sensitivity_without"].isel(candidate=c).values,
-                                 float) * 100
+            without = np.asarray(grid["sensitivity_without"].isel(candidate=c).values, float) * 100
             effect = without - full
             order = np.argsort(-np.nan_to_num(effect, nan=-np.inf), kind="stable")
             for row, j in enumerate(order):
                 pos = len(order) - 1 - row
                 ax.plot([alone[j], without[j]], [pos, pos], color="#b9b2a5", linewidth=1.2)
-                ax.plot([alone[j]], [pos], marker="D", markersize=5.5, color="white",
-                        markeredgecolor=col, markeredgewidth=1.4, linestyle="none")
-                ax.plot([without[j]], [pos], marker="o", markersize=6.5, color=col,
-                        linestyle="none")
-                ax.annotate(f"{effect[j]:+.1f}", (101, pos), xytext=(4, 0),
-                            textcoords="offset points", va="center", fontsize=7.5,
-                            color=INK if effect[j] > 0 else "#8a857c",
-                            annotation_clip=False)
+                ax.plot(
+                    [alone[j]],
+                    [pos],
+                    marker="D",
+                    markersize=5.5,
+                    color="white",
+                    markeredgecolor=col,
+                    markeredgewidth=1.4,
+                    linestyle="none",
+                )
+                ax.plot(
+                    [without[j]], [pos], marker="o", markersize=6.5, color=col, linestyle="none"
+                )
+                ax.annotate(
+                    f"{effect[j]:+.1f}",
+                    (101, pos),
+                    xytext=(4, 0),
+                    textcoords="offset points",
+                    va="center",
+                    fontsize=7.5,
+                    color=INK if effect[j] > 0 else "#8a857c",
+                    annotation_clip=False,
+                )
             ax.axvline(full, color=INK, linewidth=1.0, linestyle=(0, (3, 2)))
             ax.set_yticks(range(len(order)), [tols[j] for j in order][::-1])
             ax.set_ylim(-0.6, len(order) - 0.4)
             ax.set_xlim(-2, 102)
             ax.grid(axis="y", visible=False)
-        axes[-1].set_xlabel("Yield [%]   (right margin: effect = yield without it − yield, "
-                            "in points)")
+        axes[-1].set_xlabel(
+            "Yield [%]   (right margin: effect = yield without it − yield, in points)"
+        )
         handles = [
-            Line2D([], [], marker="o", color="#555", linestyle="none",
-                   label="all tolerances but this one"),
-            Line2D([], [], marker="D", color="white", markeredgecolor="#555", linestyle="none",
-                   label="this tolerance alone"),
+            Line2D(
+                [],
+                [],
+                marker="o",
+                color="#555",
+                linestyle="none",
+                label="all tolerances but this one",
+            ),
+            Line2D(
+                [],
+                [],
+                marker="D",
+                color="white",
+                markeredgecolor="#555",
+                linestyle="none",
+                label="this tolerance alone",
+            ),
             Line2D([], [], color=INK, linestyle=(0, (3, 2)), label="all tolerances"),
         ]
         fig.legend(handles=handles, loc="outside upper center", ncols=3)
@@ -509,10 +602,14 @@ def sensitivity_chart(grid):
 
 
 _NAMED_STATES = {
-    "right-circular": (0.0, 0.0, 1.0), "rcp": (0.0, 0.0, 1.0),
-    "left-circular": (0.0, 0.0, -1.0), "lcp": (0.0, 0.0, -1.0),
-    "horizontal": (1.0, 0.0, 0.0), "vertical": (-1.0, 0.0, 0.0),
-    "diagonal": (0.0, 1.0, 0.0), "anti-diagonal": (0.0, -1.0, 0.0),
+    "right-circular": (0.0, 0.0, 1.0),
+    "rcp": (0.0, 0.0, 1.0),
+    "left-circular": (0.0, 0.0, -1.0),
+    "lcp": (0.0, 0.0, -1.0),
+    "horizontal": (1.0, 0.0, 0.0),
+    "vertical": (-1.0, 0.0, 0.0),
+    "diagonal": (0.0, 1.0, 0.0),
+    "anti-diagonal": (0.0, -1.0, 0.0),
 }
 
 
@@ -578,24 +675,71 @@ def _sphere_disc(ax, h_label, v_label, depth_label):
     ax.set_xlim(-1.2, 1.2)
     ax.set_ylim(-1.2, 1.2)
     ax.set_axis_off()
-    ax.add_patch(Circle((0, 0), 1.0, facecolor="#f4f1ea", edgecolor="#6b665d", linewidth=0.9,
-                        zorder=0))
+    ax.add_patch(
+        Circle((0, 0), 1.0, facecolor="#f4f1ea", edgecolor="#6b665d", linewidth=0.9, zorder=0)
+    )
     for z in (-0.5, 0.5):  # circles of latitude around the viewing axis, seen face on
-        ax.add_patch(Circle((0, 0), np.sqrt(1 - z * z), fill=False, edgecolor="#d3ccbd",
-                            linewidth=0.6, linestyle=":", zorder=0))
+        ax.add_patch(
+            Circle(
+                (0, 0),
+                np.sqrt(1 - z * z),
+                fill=False,
+                edgecolor="#d3ccbd",
+                linewidth=0.6,
+                linestyle=":",
+                zorder=0,
+            )
+        )
     for w in (0.5,):  # great circles through the viewing axis, seen edge on as ellipses
-        ax.add_patch(Ellipse((0, 0), 2 * w, 2, fill=False, edgecolor="#d3ccbd", linewidth=0.6,
-                             linestyle=":", zorder=0))
-        ax.add_patch(Ellipse((0, 0), 2, 2 * w, fill=False, edgecolor="#d3ccbd", linewidth=0.6,
-                             linestyle=":", zorder=0))
+        ax.add_patch(
+            Ellipse(
+                (0, 0),
+                2 * w,
+                2,
+                fill=False,
+                edgecolor="#d3ccbd",
+                linewidth=0.6,
+                linestyle=":",
+                zorder=0,
+            )
+        )
+        ax.add_patch(
+            Ellipse(
+                (0, 0),
+                2,
+                2 * w,
+                fill=False,
+                edgecolor="#d3ccbd",
+                linewidth=0.6,
+                linestyle=":",
+                zorder=0,
+            )
+        )
     ax.plot([-1, 1], [0, 0], color="#c9c1b0", linewidth=0.6, zorder=0)
     ax.plot([0, 0], [-1, 1], color="#c9c1b0", linewidth=0.6, zorder=0)
-    ax.text(1.11, 0, f"+{h_label}", ha="left", va="center", fontsize=7.5, color="#4a463f",
-            clip_on=False)
-    ax.text(0.06, 1.11, f"+{v_label}", ha="left", va="bottom", fontsize=7.5, color="#4a463f",
-            clip_on=False)
-    ax.text(-1.18, -1.18, f"seen from +{depth_label}", ha="left", va="bottom", fontsize=7,
-            color="#8a857c", style="italic")
+    ax.text(
+        1.11, 0, f"+{h_label}", ha="left", va="center", fontsize=7.5, color="#4a463f", clip_on=False
+    )
+    ax.text(
+        0.06,
+        1.11,
+        f"+{v_label}",
+        ha="left",
+        va="bottom",
+        fontsize=7.5,
+        color="#4a463f",
+        clip_on=False,
+    )
+    ax.text(
+        -1.18,
+        -1.18,
+        f"seen from +{depth_label}",
+        ha="left",
+        va="bottom",
+        fontsize=7,
+        color="#8a857c",
+        style="italic",
+    )
 
 
 def poincare_views(grid):
@@ -615,8 +759,9 @@ def poincare_views(grid):
 
     names = _names(grid)
     goal = goal_stokes(grid)
-    comps = [str(s) for s in grid["stokes"].values] if "stokes" in grid.coords else \
-        ["s1", "s2", "s3"]
+    comps = (
+        [str(s) for s in grid["stokes"].values] if "stokes" in grid.coords else ["s1", "s2", "s3"]
+    )
     idx = {name: comps.index(name) for name in ("s1", "s2", "s3")}
     views = (("s1", "s2", "s3"), ("s2", "s3", "s1"))
     with _style():
@@ -634,47 +779,98 @@ def poincare_views(grid):
             if _has(grid, "nominal_stokes", "design_wavelength"):
                 wl = np.asarray(grid["wavelength"].values, dtype=float)
                 k = int(np.argmin(np.abs(wl - float(grid["design_wavelength"].values[c]))))
-                nominal = np.asarray(grid["nominal_stokes"].isel(candidate=c, wavelength=k)
-                                     .values, dtype=float)
+                nominal = np.asarray(
+                    grid["nominal_stokes"].isel(candidate=c, wavelength=k).values, dtype=float
+                )
             for v, (h, vv, d) in enumerate(views):
                 ax = axes[c, v]
                 _sphere_disc(ax, h, vv, d)
                 x, y, z = st[:, idx[h]], st[:, idx[vv]], st[:, idx[d]]
                 near = z >= 0
-                ax.scatter(x[~near], y[~near], s=9, facecolors="none", edgecolors=col,
-                           linewidths=0.5, alpha=0.45, zorder=2)
-                ax.scatter(x[near], y[near], s=7, color=col, alpha=0.55, linewidths=0,
-                           zorder=3)
+                ax.scatter(
+                    x[~near],
+                    y[~near],
+                    s=9,
+                    facecolors="none",
+                    edgecolors=col,
+                    linewidths=0.5,
+                    alpha=0.45,
+                    zorder=2,
+                )
+                ax.scatter(x[near], y[near], s=7, color=col, alpha=0.55, linewidths=0, zorder=3)
                 if nominal is not None:
-                    ax.plot(nominal[idx[h]], nominal[idx[vv]], marker="X", markersize=8,
-                            color=INK, markeredgecolor="white", markeredgewidth=0.8,
-                            linestyle="none", zorder=5)
+                    ax.plot(
+                        nominal[idx[h]],
+                        nominal[idx[vv]],
+                        marker="X",
+                        markersize=8,
+                        color=INK,
+                        markeredgecolor="white",
+                        markeredgewidth=0.8,
+                        linestyle="none",
+                        zorder=5,
+                    )
                 if goal is not None:
                     g = {"s1": goal[0], "s2": goal[1], "s3": goal[2]}
-                    ax.plot(g[h], g[vv], marker="*", markersize=17, markerfacecolor="none",
-                            markeredgecolor=GOAL_INK, markeredgewidth=1.3,
-                            linestyle="--" if g[d] < 0 else "-", linewidth=0, zorder=6)
+                    ax.plot(
+                        g[h],
+                        g[vv],
+                        marker="*",
+                        markersize=17,
+                        markerfacecolor="none",
+                        markeredgecolor=GOAL_INK,
+                        markeredgewidth=1.3,
+                        linestyle="--" if g[d] < 0 else "-",
+                        linewidth=0,
+                        zorder=6,
+                    )
                 if v == 0:
                     _candidate_title(ax, grid, c)
         handles = [
-            Line2D([], [], marker="o", color="#555", linestyle="none", markersize=4,
-                   label="sample, near side"),
-            Line2D([], [], marker="o", color="#555", markerfacecolor="none", linestyle="none",
-                   markersize=4, label="far side"),
+            Line2D(
+                [],
+                [],
+                marker="o",
+                color="#555",
+                linestyle="none",
+                markersize=4,
+                label="sample, near side",
+            ),
+            Line2D(
+                [],
+                [],
+                marker="o",
+                color="#555",
+                markerfacecolor="none",
+                linestyle="none",
+                markersize=4,
+                label="far side",
+            ),
             Line2D([], [], marker="X", color=INK, linestyle="none", label="nominal plate"),
         ]
         if goal is not None:
-            handles.append(Line2D([], [], marker="*", markerfacecolor="none",
-                                  markeredgecolor=GOAL_INK, linestyle="none", markersize=11,
-                                  label="goal state"))
+            handles.append(
+                Line2D(
+                    [],
+                    [],
+                    marker="*",
+                    markerfacecolor="none",
+                    markeredgecolor=GOAL_INK,
+                    linestyle="none",
+                    markersize=11,
+                    label="goal state",
+                )
+            )
         fig.legend(handles=handles, loc="outside upper center", ncols=len(handles))
         return _finish(fig)
 
 
 def has_environment(grid) -> bool:
     """True if the grid holds a temperature or a tilt retardance-error map."""
-    return "retardance_error_temperature" in grid.variables or \
-        "retardance_error_tilt" in grid.variables
+    return (
+        "retardance_error_temperature" in grid.variables
+        or "retardance_error_tilt" in grid.variables
+    )
 
 
 def environment_maps(grid):
@@ -713,17 +909,25 @@ def environment_maps(grid):
             temps = np.asarray(grid["temperature"].values, dtype=float)
             units = _units(grid, "retardance_error_temperature", "waves")
             for c, name in enumerate(names):
-                err = np.asarray(grid["retardance_error_temperature"].isel(candidate=c).values,
-                                 dtype=float)
+                err = np.asarray(
+                    grid["retardance_error_temperature"].isel(candidate=c).values, dtype=float
+                )
                 _curve(ax, temps, err, color=_colour(c), linewidth=1.7, label=name)
             if limit is not None:
                 for s in (-1, 1):
-                    ax.axhline(s * limit, color=GOAL_INK, linewidth=0.9,
-                               linestyle=(0, (6, 2, 1, 2)),
-                               label=f"± {limit:g} {units}" if s > 0 else None)
+                    ax.axhline(
+                        s * limit,
+                        color=GOAL_INK,
+                        linewidth=0.9,
+                        linestyle=(0, (6, 2, 1, 2)),
+                        label=f"± {limit:g} {units}" if s > 0 else None,
+                    )
             ax.axhline(0, color="#8a857c", linewidth=0.7)
-            ax.set_xlabel(f"Plate temperature [{_units(grid, 'temperature', 'degC')}]"
-                          .replace("[degC]", "[°C]"))
+            ax.set_xlabel(
+                f"Plate temperature [{_units(grid, 'temperature', 'degC')}]".replace(
+                    "[degC]", "[°C]"
+                )
+            )
             ax.set_ylabel(f"Retardance error [{units}]")
             ax.set_title("Retardance error at the design wavelength vs temperature")
             ax.legend(loc="best", ncols=2)
@@ -734,26 +938,44 @@ def environment_maps(grid):
             units = _units(grid, "retardance_error_tilt", "waves")
             for c, name in enumerate(names):
                 sub = gs[row + c // ncols, c % ncols].subgridspec(
-                    2, 1, height_ratios=[1, 0.06], hspace=0.05)
+                    2, 1, height_ratios=[1, 0.06], hspace=0.05
+                )
                 ax = fig.add_subplot(sub[0], projection="polar")
                 cax = fig.add_subplot(sub[1])
-                err = np.asarray(grid["retardance_error_tilt"].isel(candidate=c)
-                                 .transpose("tilt", "tilt_azimuth").values, dtype=float)
+                err = np.asarray(
+                    grid["retardance_error_tilt"]
+                    .isel(candidate=c)
+                    .transpose("tilt", "tilt_azimuth")
+                    .values,
+                    dtype=float,
+                )
                 span = float(np.nanmax(np.abs(err))) if np.isfinite(err).any() else 0.0
                 span = span if span > 0 else 1e-6
                 norm = TwoSlopeNorm(0.0, -span, span)
                 th = np.radians(np.append(az, az[0] + 360.0)) if az.size > 1 else np.radians(az)
                 e = np.concatenate([err, err[:, :1]], axis=1) if az.size > 1 else err
                 if tilt.size > 1 and th.size > 1:
-                    mesh = ax.pcolormesh(th, tilt, e, cmap="PuOr_r", norm=norm,
-                                         shading="gouraud", rasterized=True)
+                    mesh = ax.pcolormesh(
+                        th, tilt, e, cmap="PuOr_r", norm=norm, shading="gouraud", rasterized=True
+                    )
                     if limit is not None and span > limit:
-                        ax.contour(th, tilt, e, levels=[-limit, limit], colors=[INK],
-                                   linewidths=0.9, linestyles=["--", "-"])
+                        ax.contour(
+                            th,
+                            tilt,
+                            e,
+                            levels=[-limit, limit],
+                            colors=[INK],
+                            linewidths=0.9,
+                            linestyles=["--", "-"],
+                        )
                 else:
-                    mesh = ax.scatter(th.repeat(tilt.size) if th.size else th,
-                                      np.tile(tilt, max(th.size, 1)), c=e.T.ravel(),
-                                      cmap="PuOr_r", norm=norm)
+                    mesh = ax.scatter(
+                        th.repeat(tilt.size) if th.size else th,
+                        np.tile(tilt, max(th.size, 1)),
+                        c=e.T.ravel(),
+                        cmap="PuOr_r",
+                        norm=norm,
+                    )
                 ax.set_ylim(0, float(tilt.max()) if tilt.size else 1.0)
                 ax.set_title(name, color=_colour(c), loc="center", fontsize=8.5, pad=10)
                 ax.tick_params(labelsize=6.5)
@@ -766,9 +988,12 @@ def environment_maps(grid):
                 cb.ax.xaxis.get_offset_text().set_fontsize(6.5)
                 cb.set_label(f"retardance error [{units}]", fontsize=7)
             tu = _units(grid, "tilt", "deg").replace("deg", "°")
-            fig.supxlabel(f"Polar maps: radius = angle of incidence [{tu}], angle = azimuth "
-                          "of the plane of incidence from the fast axis", fontsize=7.5,
-                          color="#4a463f")
+            fig.supxlabel(
+                f"Polar maps: radius = angle of incidence [{tu}], angle = azimuth "
+                "of the plane of incidence from the fast axis",
+                fontsize=7.5,
+                color="#4a463f",
+            )
             for k in range(n, nrows_polar * ncols):  # empty cells of the last row
                 fig.add_subplot(gs[row + k // ncols, k % ncols]).set_axis_off()
         return _finish(fig)
@@ -778,21 +1003,40 @@ def environment_maps(grid):
 
 #: name -> (function, caption); the report shows them in this order.
 FIGURES = {
-    "metric_bands": (metric_bands, "Goal metric across the band: nominal plate, median, "
-                     "5–95 % and 1–99 % of the Monte Carlo samples, goal threshold, and the "
-                     "source spectrum behind."),
-    "p05_overlay": (p05_overlay, "5th-percentile goal metric of every candidate; the shaded "
-                    "area is below the goal."),
-    "retardance_bands": (retardance_bands, "Retardance across the band: nominal plate and "
-                         "5–95 % of samples, with the target retardance."),
-    "yield": (yield_chart, "Yield (fraction of sampled builds meeting the goal) with its "
-              "confidence interval."),
-    "sensitivity": (sensitivity_chart, "Yield with each tolerance alone and with all but it; "
-                    "the top row is the tolerance whose removal helps most."),
-    "poincare": (poincare_views, "Sampled output states at the design wavelength on two "
-                 "orthographic views of the Poincaré sphere."),
-    "environment": (environment_maps, "Retardance error at the design wavelength vs plate "
-                    "temperature and vs angle of incidence and its azimuth from the fast axis."),
+    "metric_bands": (
+        metric_bands,
+        "Goal metric across the band: nominal plate, median, "
+        "5–95 % and 1–99 % of the Monte Carlo samples, goal threshold, and the "
+        "source spectrum behind.",
+    ),
+    "p05_overlay": (
+        p05_overlay,
+        "5th-percentile goal metric of every candidate; the shaded area is below the goal.",
+    ),
+    "retardance_bands": (
+        retardance_bands,
+        "Retardance across the band: nominal plate and "
+        "5–95 % of samples, with the target retardance.",
+    ),
+    "yield": (
+        yield_chart,
+        "Yield (fraction of sampled builds meeting the goal) with its confidence interval.",
+    ),
+    "sensitivity": (
+        sensitivity_chart,
+        "Yield with each tolerance alone and with all but it; "
+        "the top row is the tolerance whose removal helps most.",
+    ),
+    "poincare": (
+        poincare_views,
+        "Sampled output states at the design wavelength on two "
+        "orthographic views of the Poincaré sphere.",
+    ),
+    "environment": (
+        environment_maps,
+        "Retardance error at the design wavelength vs plate "
+        "temperature and vs angle of incidence and its azimuth from the fast axis.",
+    ),
 }
 
 
@@ -804,8 +1048,9 @@ def check_formats(formats) -> tuple[str, ...]:
     for f in formats or ("png",):
         f = str(f).strip().lower().lstrip(".")
         if f not in FORMATS:
-            raise RetolError("--format", f"unknown figure format {f!r}",
-                             f"use one of {', '.join(FORMATS)}")
+            raise RetolError(
+                "--format", f"unknown figure format {f!r}", f"use one of {', '.join(FORMATS)}"
+            )
         if f not in out:
             out.append(f)
     return tuple(out)
@@ -826,8 +1071,11 @@ REQUIRES = {
 def figure_names(grid) -> list[str]:
     """The figures that apply to ``grid``: those whose variables it holds (the environment
     figure only with a temperature or tilt map)."""
-    return [n for n in FIGURES if _has(grid, *REQUIRES[n])
-            and (n != "environment" or has_environment(grid))]
+    return [
+        n
+        for n in FIGURES
+        if _has(grid, *REQUIRES[n]) and (n != "environment" or has_environment(grid))
+    ]
 
 
 def render(fig, target, fmt: str, dpi: int = 130):

@@ -35,9 +35,21 @@ FIGURE_DIR = "figures"
 
 #: Columns of summary.csv, in order.
 SUMMARY_COLUMNS = [
-    "name", "construction", "materials", "thicknesses_um", "design_wavelength_nm",
-    "nominal_worst", "p05_worst", "yield", "yield_low", "yield_high", "dominant", "nominal_dop",
-    "temperature_coefficient_deg_per_k", "acceptance_half_angle_deg", "rank",
+    "name",
+    "construction",
+    "materials",
+    "thicknesses_um",
+    "design_wavelength_nm",
+    "nominal_worst",
+    "p05_worst",
+    "yield",
+    "yield_low",
+    "yield_high",
+    "dominant",
+    "nominal_dop",
+    "temperature_coefficient_deg_per_k",
+    "acceptance_half_angle_deg",
+    "rank",
 ]
 
 #: Variables a grid must hold to be reported on.
@@ -78,18 +90,19 @@ def check_writable(out_dir, force: bool = False) -> Path:
     if out.exists() and not out.is_dir():
         raise RetolError("--out", f"{out} is a file, not a folder", "give a folder path")
     if out.is_dir() and _holds_report(out) and not force:
-        raise RetolError("--out", f"{out} already holds a report",
-                         "use --force or another folder")
+        raise RetolError("--out", f"{out} already holds a report", "use --force or another folder")
     ancestor = out.parent
     while not ancestor.exists() and ancestor != ancestor.parent:
         ancestor = ancestor.parent
     if not ancestor.is_dir():
-        raise RetolError("--out", f"cannot create {out}: {ancestor} is not a folder",
-                         "choose another folder")
+        raise RetolError(
+            "--out", f"cannot create {out}: {ancestor} is not a folder", "choose another folder"
+        )
     for folder in (ancestor, out) if out.is_dir() else (ancestor,):
         if not os.access(folder, os.W_OK | os.X_OK):
-            raise RetolError("--out", f"cannot write in {folder}",
-                             "choose a folder you can write to")
+            raise RetolError(
+                "--out", f"cannot write in {folder}", "choose a folder you can write to"
+            )
     return out
 
 
@@ -99,8 +112,11 @@ def check_grid(grid) -> None:
     if "candidate" not in grid.coords or "wavelength" not in grid.coords:
         missing = ["candidate/wavelength coordinates"] + missing
     if missing:
-        raise RetolError("grid", f"not a results grid: missing {', '.join(missing)}",
-                         "give a grid.nc written by retol run")
+        raise RetolError(
+            "grid",
+            f"not a results grid: missing {', '.join(missing)}",
+            "give a grid.nc written by retol run",
+        )
 
 
 # ----------------------------------------------------------------------------- values
@@ -146,12 +162,19 @@ def _layers(grid, c):
     if "layer_thickness" not in grid.variables:
         return []
     th = np.asarray(grid["layer_thickness"].values[c], dtype=float)
-    mats = grid["layer_material"].values[c] if "layer_material" in grid.variables \
-        else [""] * th.size
-    axes = np.asarray(grid["layer_axis"].values[c], dtype=float) \
-        if "layer_axis" in grid.variables else np.full(th.size, np.nan)
-    return [(_s(m), float(t), float(a)) for m, t, a in zip(mats, th, axes, strict=True)
-            if np.isfinite(t)]
+    mats = (
+        grid["layer_material"].values[c] if "layer_material" in grid.variables else [""] * th.size
+    )
+    axes = (
+        np.asarray(grid["layer_axis"].values[c], dtype=float)
+        if "layer_axis" in grid.variables
+        else np.full(th.size, np.nan)
+    )
+    return [
+        (_s(m), float(t), float(a))
+        for m, t, a in zip(mats, th, axes, strict=True)
+        if np.isfinite(t)
+    ]
 
 
 def _p05_worst(grid, c):
@@ -173,23 +196,25 @@ def summary_rows(grid) -> list[dict]:
     for c, name in enumerate(grid["candidate"].values):
         layers = _layers(grid, c)
         rank = _var(grid, "rank", c)
-        rows.append({
-            "name": _s(name),
-            "construction": _s(_var(grid, "construction", c) or ""),
-            "materials": " + ".join(m for m, _, _ in layers),
-            "thicknesses_um": " + ".join(f"{t:.3f}" for _, t, _ in layers),
-            "design_wavelength_nm": _num(_var(grid, "design_wavelength", c)),
-            "nominal_worst": _num(_var(grid, "nominal_worst", c)),
-            "p05_worst": _p05_worst(grid, c),
-            "yield": _num(_var(grid, "yield", c)),
-            "yield_low": _num(_var(grid, "yield_low", c)),
-            "yield_high": _num(_var(grid, "yield_high", c)),
-            "dominant": _s(_var(grid, "dominant", c) or ""),
-            "nominal_dop": _num(_var(grid, "nominal_dop", c)),
-            "temperature_coefficient_deg_per_k": _num(_var(grid, "temperature_coefficient", c)),
-            "acceptance_half_angle_deg": _num(_var(grid, "acceptance_half_angle", c)),
-            "rank": int(rank) if _num(rank) is not None else None,
-        })
+        rows.append(
+            {
+                "name": _s(name),
+                "construction": _s(_var(grid, "construction", c) or ""),
+                "materials": " + ".join(m for m, _, _ in layers),
+                "thicknesses_um": " + ".join(f"{t:.3f}" for _, t, _ in layers),
+                "design_wavelength_nm": _num(_var(grid, "design_wavelength", c)),
+                "nominal_worst": _num(_var(grid, "nominal_worst", c)),
+                "p05_worst": _p05_worst(grid, c),
+                "yield": _num(_var(grid, "yield", c)),
+                "yield_low": _num(_var(grid, "yield_low", c)),
+                "yield_high": _num(_var(grid, "yield_high", c)),
+                "dominant": _s(_var(grid, "dominant", c) or ""),
+                "nominal_dop": _num(_var(grid, "nominal_dop", c)),
+                "temperature_coefficient_deg_per_k": _num(_var(grid, "temperature_coefficient", c)),
+                "acceptance_half_angle_deg": _num(_var(grid, "acceptance_half_angle", c)),
+                "rank": int(rank) if _num(rank) is not None else None,
+            }
+        )
     return rows
 
 
@@ -200,8 +225,12 @@ def write_summary_csv(grid, path) -> Path:
         w = csv.DictWriter(fh, fieldnames=SUMMARY_COLUMNS, lineterminator="\n")
         w.writeheader()
         for row in summary_rows(grid):
-            w.writerow({k: "" if v is None else (f"{v:.6g}" if isinstance(v, float) else v)
-                        for k, v in row.items()})
+            w.writerow(
+                {
+                    k: "" if v is None else (f"{v:.6g}" if isinstance(v, float) else v)
+                    for k, v in row.items()
+                }
+            )
     return path
 
 
@@ -295,8 +324,11 @@ def _goal_text(grid) -> str:
     text = metric
     if gmin is not None:
         text += f" ≥ {gmin:g} {_metric_unit(grid)}".rstrip()
-    text += " over the " + ("source spectrum (source-weighted)" if over == "spectrum"
-                            else "whole band (worst wavelength)")
+    text += " over the " + (
+        "source spectrum (source-weighted)"
+        if over == "spectrum"
+        else "whole band (worst wavelength)"
+    )
     if state:
         text = f"{state} output; " + text
     return text
@@ -331,33 +363,71 @@ def _candidate_tables(grid, rows) -> str:
     def rank(r):
         return _e(r["rank"] if r["rank"] is not None else "—")
 
-    design_head = [("Rank", True), ("Candidate", False), ("Construction", False),
-                   ("Layers (light meets the first one first)", False), ("Design λ [nm]", True)]
+    design_head = [
+        ("Rank", True),
+        ("Candidate", False),
+        ("Construction", False),
+        ("Layers (light meets the first one first)", False),
+        ("Design λ [nm]", True),
+    ]
     design_rows = []
     for c, r in ordered:
-        layers = "<br>".join(
-            f'<span class="nw">{_e(m)} {t:.3f} µm' + (f" at {a:g}°" if np.isfinite(a) else "")
-            + "</span>" for m, t, a in _layers(grid, c)) or "—"
-        design_rows.append([rank(r), f"<b>{_e(r['name'])}</b>", _e(r["construction"] or "—"),
-                            layers, _e(_fmt(r["design_wavelength_nm"], 6))])
-    perf_head = [("Rank", True), ("Candidate", False), (f"Worst, nominal{unit_txt}", True),
-                 (f"Worst, 5th pct{unit_txt}", True),
-                 (f"Yield ({conf:.0%} interval)", True), ("Dominant tolerance", False),
-                 ("DOP, nominal", True), ("dδ/dT [°/K]", True), ("Tilt ½-angle [°]", True)]
+        layers = (
+            "<br>".join(
+                f'<span class="nw">{_e(m)} {t:.3f} µm'
+                + (f" at {a:g}°" if np.isfinite(a) else "")
+                + "</span>"
+                for m, t, a in _layers(grid, c)
+            )
+            or "—"
+        )
+        design_rows.append(
+            [
+                rank(r),
+                f"<b>{_e(r['name'])}</b>",
+                _e(r["construction"] or "—"),
+                layers,
+                _e(_fmt(r["design_wavelength_nm"], 6)),
+            ]
+        )
+    perf_head = [
+        ("Rank", True),
+        ("Candidate", False),
+        (f"Worst, nominal{unit_txt}", True),
+        (f"Worst, 5th pct{unit_txt}", True),
+        (f"Yield ({conf:.0%} interval)", True),
+        ("Dominant tolerance", False),
+        ("DOP, nominal", True),
+        ("dδ/dT [°/K]", True),
+        ("Tilt ½-angle [°]", True),
+    ]
     perf_rows = []
     for _, r in ordered:
         y = _pct(r["yield"])
         if r["yield_low"] is not None and r["yield_high"] is not None:
-            y += f' <span class="muted">({100 * r["yield_low"]:.1f}–' \
-                 f'{100 * r["yield_high"]:.1f})</span>'
-        perf_rows.append([
-            rank(r), f"<b>{_e(r['name'])}</b>", _e(_fmt(r["nominal_worst"], 4)),
-            _e(_fmt(r["p05_worst"], 4)), y, _e(r["dominant"] or "—"),
-            _e(_fmt(r["nominal_dop"], 4)), _e(_fmt(r["temperature_coefficient_deg_per_k"], 3)),
-            _e(_fmt(r["acceptance_half_angle_deg"], 3)),
-        ])
-    return ("<h3>The plates</h3>" + _table(design_head, design_rows, best)
-            + "<h3>How they fare</h3>" + _table(perf_head, perf_rows, best))
+            y += (
+                f' <span class="muted">({100 * r["yield_low"]:.1f}–'
+                f"{100 * r['yield_high']:.1f})</span>"
+            )
+        perf_rows.append(
+            [
+                rank(r),
+                f"<b>{_e(r['name'])}</b>",
+                _e(_fmt(r["nominal_worst"], 4)),
+                _e(_fmt(r["p05_worst"], 4)),
+                y,
+                _e(r["dominant"] or "—"),
+                _e(_fmt(r["nominal_dop"], 4)),
+                _e(_fmt(r["temperature_coefficient_deg_per_k"], 3)),
+                _e(_fmt(r["acceptance_half_angle_deg"], 3)),
+            ]
+        )
+    return (
+        "<h3>The plates</h3>"
+        + _table(design_head, design_rows, best)
+        + "<h3>How they fare</h3>"
+        + _table(perf_head, perf_rows, best)
+    )
 
 
 def _ranking(grid, rows) -> str:
@@ -366,8 +436,9 @@ def _ranking(grid, rows) -> str:
     items = []
     for c, r in _by_rank(rows):
         reason = _s(_var(grid, "reason", c) or "")
-        items.append(f"<li><b>{_e(r['name'])}</b>" + (f" — {_e(reason)}" if reason else "")
-                     + "</li>")
+        items.append(
+            f"<li><b>{_e(r['name'])}</b>" + (f" — {_e(reason)}" if reason else "") + "</li>"
+        )
     return "<ol>" + "".join(items) + "</ol>"
 
 
@@ -386,17 +457,26 @@ def assumptions(grid) -> list[str]:
         spec = {}
     out = []
     tols = spec.get("tolerances")
-    names = [_s(t) for t in grid["tolerance_name"].values] if "tolerance_name" in grid.coords else []
+    names = (
+        [_s(t) for t in grid["tolerance_name"].values] if "tolerance_name" in grid.coords else []
+    )
     if isinstance(tols, dict) and tols:
         parts = [f"{k}: {_describe(v)}" for k, v in tols.items()]
-        out.append("Tolerances drawn independently for each sampled build — " + "; ".join(parts)
-                   + ".")
+        out.append(
+            "Tolerances drawn independently for each sampled build — " + "; ".join(parts) + "."
+        )
     elif isinstance(tols, list) and tols:
-        out.append("Tolerances drawn independently for each sampled build — "
-                   + "; ".join(_describe(t) for t in tols) + ".")
+        out.append(
+            "Tolerances drawn independently for each sampled build — "
+            + "; ".join(_describe(t) for t in tols)
+            + "."
+        )
     elif names:
-        out.append("Tolerances drawn independently for each sampled build: "
-                   + ", ".join(names) + " (distributions as in the spec below).")
+        out.append(
+            "Tolerances drawn independently for each sampled build: "
+            + ", ".join(names)
+            + " (distributions as in the spec below)."
+        )
     else:
         out.append("No tolerance was active: every sample is the nominal plate.")
     samples, seed = grid.attrs.get("samples"), grid.attrs.get("seed")
@@ -415,26 +495,35 @@ def assumptions(grid) -> list[str]:
     out.append(text + ".")
     out.append("A sample passes when " + _goal_text(grid) + ".")
     if grid.sizes.get("wavelength", 1) > 1:
-        out.append("Light of different wavelengths adds incoherently: output Stokes vectors are "
-                   "averaged with the source weights of the grid cells; the spectral degree of "
-                   "polarization shows the depolarization this causes.")
+        out.append(
+            "Light of different wavelengths adds incoherently: output Stokes vectors are "
+            "averaged with the source weights of the grid cells; the spectral degree of "
+            "polarization shows the depolarization this causes."
+        )
     ref = None
     for key in ("reference_temperature", "temperature", "design_temperature"):
         if _num(spec.get(key)) is not None:
             ref = _num(spec.get(key))
             break
-    out.append("Plates are designed (thicknesses chosen) at the reference temperature"
-               + (f" of {ref:g} °C" if ref is not None else "")
-               + "; temperature changes the retardance through each material's thermal data.")
-    out.append("Each layer is an ideal linear retarder (Jones calculus); reflections inside "
-               "and between layers, absorption, scatter and coatings are not modelled.")
+    out.append(
+        "Plates are designed (thicknesses chosen) at the reference temperature"
+        + (f" of {ref:g} °C" if ref is not None else "")
+        + "; temperature changes the retardance through each material's thermal data."
+    )
+    out.append(
+        "Each layer is an ideal linear retarder (Jones calculus); reflections inside "
+        "and between layers, absorption, scatter and coatings are not modelled."
+    )
     limit = _num(grid.attrs.get("acceptance_limit_waves"))
     if limit is not None and "acceptance_half_angle" in grid.variables:
-        out.append(f"Acceptance half-angle: the angle of incidence at which the retardance error "
-                   f"first reaches ±{limit:g} waves at some plane-of-incidence azimuth.")
+        out.append(
+            f"Acceptance half-angle: the angle of incidence at which the retardance error "
+            f"first reaches ±{limit:g} waves at some plane-of-incidence azimuth."
+        )
     if "design_stokes" in grid.variables:
-        out.append("Sphere plots use the grid wavelength nearest each candidate's design "
-                   "wavelength.")
+        out.append(
+            "Sphere plots use the grid wavelength nearest each candidate's design wavelength."
+        )
     extra = grid.attrs.get("assumptions") or spec.get("assumptions")
     if extra:
         extra = _json_attr(grid, "assumptions", extra) if isinstance(extra, str) else extra
@@ -446,20 +535,26 @@ def _materials(grid) -> str:
     mats = _json_attr(grid, "material_sources", [])
     if not isinstance(mats, list) or not mats:
         return '<p class="muted">The grid names no material sources.</p>'
-    rows = ["<table><thead><tr><th>Material</th><th>Dispersion data</th>"
-            "<th>Thermal data</th></tr></thead><tbody>"]
+    rows = [
+        "<table><thead><tr><th>Material</th><th>Dispersion data</th>"
+        "<th>Thermal data</th></tr></thead><tbody>"
+    ]
     for m in mats:
         m = m if isinstance(m, dict) else {"name": m}
-        rows.append(f"<tr><td>{_e(m.get('name', ''))}</td><td>{_e(m.get('source', '—'))}</td>"
-                    f"<td>{_e(m.get('thermal_source', '—'))}</td></tr>")
+        rows.append(
+            f"<tr><td>{_e(m.get('name', ''))}</td><td>{_e(m.get('source', '—'))}</td>"
+            f"<td>{_e(m.get('thermal_source', '—'))}</td></tr>"
+        )
     rows.append("</tbody></table>")
     return "".join(rows)
 
 
 def _figure_html(name, caption, png: bytes) -> str:
     data = base64.b64encode(png).decode("ascii")
-    return (f'<figure id="fig-{_e(name)}"><img src="data:image/png;base64,{data}" '
-            f'alt="{_e(caption)}"><figcaption>{_e(caption)}</figcaption></figure>')
+    return (
+        f'<figure id="fig-{_e(name)}"><img src="data:image/png;base64,{data}" '
+        f'alt="{_e(caption)}"><figcaption>{_e(caption)}</figcaption></figure>'
+    )
 
 
 def build_html(grid, figures, command=None) -> str:
@@ -479,50 +574,64 @@ def build_html(grid, figures, command=None) -> str:
     rows = summary_rows(grid)
     title = _s(grid.attrs.get("title") or "Retarder tolerance study")
     spec = _json_attr(grid, "spec", None)
-    spec_text = json.dumps(spec, indent=2, ensure_ascii=False) if spec is not None else \
-        _s(grid.attrs.get("spec", "(not recorded)"))
+    spec_text = (
+        json.dumps(spec, indent=2, ensure_ascii=False)
+        if spec is not None
+        else _s(grid.attrs.get("spec", "(not recorded)"))
+    )
     version = _s(grid.attrs.get("version", "unknown"))
     run_cmd = _s(grid.attrs.get("command") or "(not recorded)")
     seed = _s(grid.attrs.get("seed", "(not recorded)"))
     samples = grid.attrs.get("samples", grid.sizes.get("sample"))
     wl = np.asarray(grid["wavelength"].values, dtype=float)
-    band = f"{wl.min():g}–{wl.max():g} nm ({wl.size} wavelengths)" if wl.size > 1 else \
-        f"{wl[0]:g} nm"
+    band = (
+        f"{wl.min():g}–{wl.max():g} nm ({wl.size} wavelengths)" if wl.size > 1 else f"{wl[0]:g} nm"
+    )
 
     best = [r for r in rows if r["rank"] == 1]
-    facts = [("Goal", _goal_text(grid)), ("Band", band),
-             ("Source", _s(grid.attrs.get("source_description", "—"))),
-             ("Candidates", str(len(rows))), ("Samples", _s(samples)), ("Seed", seed)]
+    facts = [
+        ("Goal", _goal_text(grid)),
+        ("Band", band),
+        ("Source", _s(grid.attrs.get("source_description", "—"))),
+        ("Candidates", str(len(rows))),
+        ("Samples", _s(samples)),
+        ("Seed", seed),
+    ]
     p = []
-    p.append("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">")
+    p.append('<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">')
     p.append('<meta name="viewport" content="width=device-width, initial-scale=1">')
     p.append(f"<title>{_e(title)} — retol report</title><style>{_CSS}</style></head><body>")
     p.append('<header><div class="kicker">Retarder tolerance report</div>')
-    p.append(f"<h1>{_e(title)}</h1><ul class=\"facts\">")
+    p.append(f'<h1>{_e(title)}</h1><ul class="facts">')
     p += [f"<li><b>{_e(k)}:</b> {_e(v)}</li>" for k, v in facts]
     p.append("</ul></header>")
     if best:
         b = best[0]
         c = [r["name"] for r in rows].index(b["name"])
         reason = _s(_var(grid, "reason", c) or "")
-        p.append(f'<div class="pick"><div class="muted">Recommended</div><div class="name">'
-                 f"{_e(b['name'])} <span class=\"muted\">({_e(b['construction'])})</span></div>"
-                 f"<div>{_e(reason)}</div></div>")
-    p.append('<div class="caution" id="laser-safety"><strong>Laser safety.</strong> '
-             f"{_e(LASER_CAUTION)}")
+        p.append(
+            f'<div class="pick"><div class="muted">Recommended</div><div class="name">'
+            f'{_e(b["name"])} <span class="muted">({_e(b["construction"])})</span></div>'
+            f"<div>{_e(reason)}</div></div>"
+        )
+    p.append(
+        f'<div class="caution" id="laser-safety"><strong>Laser safety.</strong> {_e(LASER_CAUTION)}'
+    )
     extra = _s(grid.attrs.get("laser_caution", "")).strip()
     if extra and extra != LASER_CAUTION:
-        p.append(f"<br><span class=\"muted\">Note recorded with the run:</span> {_e(extra)}")
+        p.append(f'<br><span class="muted">Note recorded with the run:</span> {_e(extra)}')
     p.append("</div>")
 
     p.append("<h2>Candidates</h2>")
     p.append(_candidate_tables(grid, rows))
-    p.append('<p class="muted">Worst: the lowest goal metric over the band, for the nominal '
-             "plate and as the 5th percentile over the sampled builds. Yield: share of builds "
-             "that pass. Dominant tolerance: the one whose removal raises the yield most. DOP: "
-             "degree of polarization of the source-averaged output. dδ/dT: retardance change "
-             "per kelvin at the design wavelength. Tilt ½-angle: angle of incidence at which "
-             "the retardance error reaches the acceptance limit.</p>")
+    p.append(
+        '<p class="muted">Worst: the lowest goal metric over the band, for the nominal '
+        "plate and as the 5th percentile over the sampled builds. Yield: share of builds "
+        "that pass. Dominant tolerance: the one whose removal raises the yield most. DOP: "
+        "degree of polarization of the source-averaged output. dδ/dT: retardance change "
+        "per kelvin at the design wavelength. Tilt ½-angle: angle of incidence at which "
+        "the retardance error reaches the acceptance limit.</p>"
+    )
     p.append("<h2>Ranking</h2>")
     p.append(_ranking(grid, rows))
 
@@ -530,7 +639,7 @@ def build_html(grid, figures, command=None) -> str:
     for k, (name, caption, png) in enumerate(figures, start=1):
         p.append(_figure_html(name, f"Figure {k}. {caption}", png))
 
-    p.append("<h2>Assumptions</h2><ul class=\"assume\">")
+    p.append('<h2>Assumptions</h2><ul class="assume">')
     p += [f"<li>{_e(a)}</li>" for a in assumptions(grid)]
     p.append("</ul>")
     p.append("<h2>Materials and data sources</h2>")
@@ -543,9 +652,11 @@ def build_html(grid, figures, command=None) -> str:
     p.append(f'<pre id="spec">{_e(spec_text)}</pre>')
 
     p.append("<h2>Reproduce this run</h2><table><tbody>")
-    p.append(f"<tr><th>Software</th><td>retol {_e(version)} (run)"
-             + (f"; report written by retol {_e(__version__)}" if __version__ != version else "")
-             + "</td></tr>")
+    p.append(
+        f"<tr><th>Software</th><td>retol {_e(version)} (run)"
+        + (f"; report written by retol {_e(__version__)}" if __version__ != version else "")
+        + "</td></tr>"
+    )
     p.append(f'<tr><th>Seed</th><td id="seed">{_e(seed)}</td></tr>')
     p.append(f"<tr><th>Samples</th><td>{_e(samples)}</td></tr>")
     p.append("</tbody></table>")
@@ -553,8 +664,10 @@ def build_html(grid, figures, command=None) -> str:
     p.append(f'<pre id="command">{_e(run_cmd)}</pre>')
     if command:
         p.append(f"<p>This report was written by:</p><pre>{_e(command)}</pre>")
-    p.append(f"<footer>Written by retol {_e(__version__)}. Predictions of a model under the "
-             "assumptions above; verify critical parts by measurement.</footer>")
+    p.append(
+        f"<footer>Written by retol {_e(__version__)}. Predictions of a model under the "
+        "assumptions above; verify critical parts by measurement.</footer>"
+    )
     p.append("</body></html>\n")
     return "\n".join(p)
 
@@ -636,8 +749,11 @@ def write_report(grid, out_dir, formats=("png",), force: bool = False, command=N
         os.umask(umask)
         tmp.chmod(0o777 & ~umask)  # mkdtemp makes it private; the report folder should not be
     except OSError as exc:
-        raise RetolError("--out", f"cannot write in {parent}: {exc.strerror or exc}",
-                         "choose a folder you can write to") from None
+        raise RetolError(
+            "--out",
+            f"cannot write in {parent}: {exc.strerror or exc}",
+            "choose a folder you can write to",
+        ) from None
     try:
         figures = _render_all(grid, tmp / FIGURE_DIR, formats)
         write_summary_csv(grid, tmp / SUMMARY_FILE)
@@ -652,8 +768,11 @@ def write_report(grid, out_dir, formats=("png",), force: bool = False, command=N
         for name in (SUMMARY_FILE, REPORT_FILE):
             os.replace(tmp / name, out / name)
     except OSError as exc:
-        raise RetolError("--out", f"cannot write the report into {out}: "
-                         f"{exc.strerror or exc}", "choose a folder you can write to") from None
+        raise RetolError(
+            "--out",
+            f"cannot write the report into {out}: {exc.strerror or exc}",
+            "choose a folder you can write to",
+        ) from None
     finally:
         with contextlib.suppress(OSError):
             if tmp.exists():

@@ -18,19 +18,56 @@ from pathlib import Path
 from .errors import RetolError
 from .units import interval_nm, length_um, wavelength_nm
 
-TOP_KEYS = ("title", "wavelength", "source", "input", "goal", "candidate", "tolerances", "run",
-            "environment", "report")
+TOP_KEYS = (
+    "title",
+    "wavelength",
+    "source",
+    "input",
+    "goal",
+    "candidate",
+    "tolerances",
+    "run",
+    "environment",
+    "report",
+)
 WAVELENGTH_KEYS = ("start", "stop", "step")
 INPUT_KEYS = ("azimuth_deg",)
-GOAL_KEYS = ("state", "metric", "min", "over", "azimuth_deg", "handedness",
-             "acceptance_limit_waves")
+GOAL_KEYS = (
+    "state",
+    "metric",
+    "min",
+    "over",
+    "azimuth_deg",
+    "handedness",
+    "acceptance_limit_waves",
+)
 GOAL_STATES = ("circular", "linear")
 GOAL_METRICS = ("axial_ratio", "extinction_db", "fidelity")
 GOAL_OVER = ("band", "spectrum")
-CANDIDATE_KEYS = ("name", "construction", "material", "waves", "design", "axis_deg", "order",
-                  "thick_plate", "partner", "match", "retardance", "layers", "tolerances")
-RUN_KEYS = ("samples", "seed", "chunk_size", "quantiles", "confidence", "sensitivity_samples",
-            "keep_samples")
+CANDIDATE_KEYS = (
+    "name",
+    "construction",
+    "material",
+    "waves",
+    "design",
+    "axis_deg",
+    "order",
+    "thick_plate",
+    "partner",
+    "match",
+    "retardance",
+    "layers",
+    "tolerances",
+)
+RUN_KEYS = (
+    "samples",
+    "seed",
+    "chunk_size",
+    "quantiles",
+    "confidence",
+    "sensitivity_samples",
+    "keep_samples",
+)
 ENV_KEYS = ("temperature_c", "temperature_range", "tilt_max_deg")
 REPORT_KEYS = ("formats",)
 
@@ -59,7 +96,9 @@ class _Ctx:
         for k in table:
             if k not in allowed:
                 close = difflib.get_close_matches(k, list(allowed), n=1)
-                fix = f"did you mean {close[0]!r}?" if close else f"known keys: {', '.join(allowed)}"
+                fix = (
+                    f"did you mean {close[0]!r}?" if close else f"known keys: {', '.join(allowed)}"
+                )
                 raise self.err(f"{where}{k}" if where else k, "unknown key", fix)
 
     def table(self, d: dict, key: str, required=False) -> dict:
@@ -72,8 +111,17 @@ class _Ctx:
             raise self.err(key, "must be a table", f"write it as [{key}]")
         return v
 
-    def number(self, d, key, where, default=None, required=False, minimum=None, integer=False,
-               strict_min=False):
+    def number(
+        self,
+        d,
+        key,
+        where,
+        default=None,
+        required=False,
+        minimum=None,
+        integer=False,
+        strict_min=False,
+    ):
         if key not in d:
             if required:
                 raise self.err(f"{where}{key}", "missing", f"add {key} = ...")
@@ -109,8 +157,11 @@ def _distribution(ctx: _Ctx, key: str, value) -> dict:
     if isinstance(value, int | float) and not isinstance(value, bool):
         value = {"sigma": value}
     if not isinstance(value, dict):
-        raise ctx.err(where, "must be a table such as { sigma = 0.3 }",
-                      "use sigma, uniform, low/high or tolerance/coverage")
+        raise ctx.err(
+            where,
+            "must be a table such as { sigma = 0.3 }",
+            "use sigma, uniform, low/high or tolerance/coverage",
+        )
     ctx.check_keys(value, DIST_KEYS, f"{where}.")
     nums = {}
     for k, v in value.items():
@@ -128,17 +179,22 @@ def _distribution(ctx: _Ctx, key: str, value) -> dict:
     kinds = [k for k in ("sigma", "uniform", "tolerance") if k in nums]
     has_range = "low" in nums or "high" in nums
     if len(kinds) + has_range != 1:
-        raise ctx.err(where, "give exactly one of sigma, uniform, low/high, tolerance",
-                      "e.g. { sigma = 0.3 }")
+        raise ctx.err(
+            where, "give exactly one of sigma, uniform, low/high, tolerance", "e.g. { sigma = 0.3 }"
+        )
     if "coverage" in nums and "tolerance" not in nums:
-        raise ctx.err(f"{where}.coverage", "only goes with tolerance", "e.g. { tolerance = 0.9, "
-                      "coverage = 3 }")
+        raise ctx.err(
+            f"{where}.coverage",
+            "only goes with tolerance",
+            "e.g. { tolerance = 0.9, coverage = 3 }",
+        )
     if has_range:
         if "low" not in nums or "high" not in nums:
             raise ctx.err(where, "a range needs both low and high", "e.g. { low = 15, high = 35 }")
         if nums["low"] > nums["high"]:
-            raise ctx.err(f"{where}.low", f"low {nums['low']:g} is above high {nums['high']:g}",
-                          "swap them")
+            raise ctx.err(
+                f"{where}.low", f"low {nums['low']:g} is above high {nums['high']:g}", "swap them"
+            )
         return {"kind": "range", "low": nums["low"], "high": nums["high"]}
     k = kinds[0]
     if nums[k] < 0:
@@ -150,8 +206,12 @@ def _distribution(ctx: _Ctx, key: str, value) -> dict:
     cov = nums.get("coverage", 3.0)
     if cov <= 0:
         raise ctx.err(f"{where}.coverage", "must be positive", "e.g. coverage = 3")
-    return {"kind": "normal", "sigma": nums["tolerance"] / cov, "limit": nums["tolerance"],
-            "coverage": cov}
+    return {
+        "kind": "normal",
+        "sigma": nums["tolerance"] / cov,
+        "limit": nums["tolerance"],
+        "coverage": cov,
+    }
 
 
 def _tolerances(ctx: _Ctx, table: dict, where="[tolerances]") -> dict:
@@ -201,8 +261,9 @@ def _candidate(ctx: _Ctx, c, i: int, default_design) -> dict:
         out["order"] = ctx.number(c, "order", where, required=True, minimum=0, integer=True)
     if cons == "compound":
         if "thick_plate" not in c:
-            raise ctx.err(f"{where}thick_plate", "a compound plate needs it",
-                          'add thick_plate = "1000um"')
+            raise ctx.err(
+                f"{where}thick_plate", "a compound plate needs it", 'add thick_plate = "1000um"'
+            )
         out["thick_plate_um"] = length_um(c["thick_plate"], f"{ctx.path}: {where}thick_plate")
         if not out["thick_plate_um"] > 0:
             raise ctx.err(f"{where}thick_plate", "must be positive", 'e.g. "1000um"')
@@ -213,8 +274,9 @@ def _candidate(ctx: _Ctx, c, i: int, default_design) -> dict:
         if "match" in c:
             m = c["match"]
             if not isinstance(m, list) or len(m) != 2:
-                raise ctx.err(f"{where}match", "must list two wavelengths",
-                              'e.g. match = ["450nm", "650nm"]')
+                raise ctx.err(
+                    f"{where}match", "must list two wavelengths", 'e.g. match = ["450nm", "650nm"]'
+                )
             out["match_nm"] = [wavelength_nm(x, f"{ctx.path}: {where}match") for x in m]
     if cons == "film" and "retardance" in c:
         out["retardance_nm"] = interval_nm(c["retardance"], f"{ctx.path}: {where}retardance")
@@ -223,9 +285,11 @@ def _candidate(ctx: _Ctx, c, i: int, default_design) -> dict:
     if cons == "stack":
         layers = c.get("layers")
         if not isinstance(layers, list) or not layers:
-            raise ctx.err(f"{where}layers", "a stack needs a list of layers",
-                          'add layers = [{ material = "quartz", thickness = "17.5um", '
-                          'axis_deg = 0 }]')
+            raise ctx.err(
+                f"{where}layers",
+                "a stack needs a list of layers",
+                'add layers = [{ material = "quartz", thickness = "17.5um", axis_deg = 0 }]',
+            )
         out["layers"] = []
         for j, la in enumerate(layers):
             if not isinstance(la, dict):
@@ -236,8 +300,13 @@ def _candidate(ctx: _Ctx, c, i: int, default_design) -> dict:
             th = length_um(la["thickness"], f"{ctx.path}: {where}layers[{j}].thickness")
             if not th > 0:
                 raise ctx.err(f"{where}layers[{j}].thickness", "must be positive", 'e.g. "17.5um"')
-            out["layers"].append({"material": la["material"], "thickness_um": th,
-                                  "axis_deg": float(la.get("axis_deg", 0.0))})
+            out["layers"].append(
+                {
+                    "material": la["material"],
+                    "thickness_um": th,
+                    "axis_deg": float(la.get("axis_deg", 0.0)),
+                }
+            )
     if "tolerances" in c:
         t = c["tolerances"]
         if not isinstance(t, dict):
@@ -290,37 +359,59 @@ def validate(raw: dict, path: str = "<spec>") -> dict:
         fix = f"did you mean {close[0]!r}?" if close else f"use one of {', '.join(GOAL_METRICS)}"
         raise ctx.err("[goal].metric", f"unknown metric {metric!r}", fix)
     if metric == "axial_ratio" and state == "linear":
-        raise ctx.err("[goal].metric", "axial_ratio needs a circular goal",
-                      "use extinction_db or fidelity for a linear goal")
+        raise ctx.err(
+            "[goal].metric",
+            "axial_ratio needs a circular goal",
+            "use extinction_db or fidelity for a linear goal",
+        )
     over = g.get("over", "band")
     if over not in GOAL_OVER:
         raise ctx.err("[goal].over", f"unknown {over!r}", "use band or spectrum")
     gmin = ctx.number(g, "min", "[goal].", required=True)
     hand = g.get("handedness")
     if hand is not None and hand not in ("right", "left"):
-        raise ctx.err("[goal].handedness", f"unknown {hand!r}",
-                      "use right (clockwise looking toward the source) or left")
+        raise ctx.err(
+            "[goal].handedness",
+            f"unknown {hand!r}",
+            "use right (clockwise looking toward the source) or left",
+        )
     spec["goal"] = {
-        "state": state, "metric": metric, "min": float(gmin), "over": over,
+        "state": state,
+        "metric": metric,
+        "min": float(gmin),
+        "over": over,
         "azimuth_deg": float(ctx.number(g, "azimuth_deg", "[goal].", default=0.0)),
         "handedness": hand,
-        "acceptance_limit_waves": float(ctx.number(g, "acceptance_limit_waves", "[goal].",
-                                                   default=0.01, minimum=0, strict_min=True)),
+        "acceptance_limit_waves": float(
+            ctx.number(
+                g, "acceptance_limit_waves", "[goal].", default=0.01, minimum=0, strict_min=True
+            )
+        ),
     }
 
     env = ctx.table(raw, "environment")
     ctx.check_keys(env, ENV_KEYS, "[environment].")
     t_nom = float(ctx.number(env, "temperature_c", "[environment].", default=20.0))
     tr = env.get("temperature_range", [t_nom - 30.0, t_nom + 30.0])
-    if (not isinstance(tr, list) or len(tr) != 2
-            or not all(isinstance(x, int | float) and not isinstance(x, bool) for x in tr)
-            or tr[0] >= tr[1]):
-        raise ctx.err("[environment].temperature_range", "must be [low, high] with low < high",
-                      "e.g. [-10, 50]")
+    if (
+        not isinstance(tr, list)
+        or len(tr) != 2
+        or not all(isinstance(x, int | float) and not isinstance(x, bool) for x in tr)
+        or tr[0] >= tr[1]
+    ):
+        raise ctx.err(
+            "[environment].temperature_range",
+            "must be [low, high] with low < high",
+            "e.g. [-10, 50]",
+        )
     spec["environment"] = {
-        "temperature_c": t_nom, "temperature_range": [float(tr[0]), float(tr[1])],
-        "tilt_max_deg": float(ctx.number(env, "tilt_max_deg", "[environment].", default=20.0,
-                                         minimum=0, strict_min=True)),
+        "temperature_c": t_nom,
+        "temperature_range": [float(tr[0]), float(tr[1])],
+        "tilt_max_deg": float(
+            ctx.number(
+                env, "tilt_max_deg", "[environment].", default=20.0, minimum=0, strict_min=True
+            )
+        ),
     }
 
     cands = raw.get("candidate")
@@ -336,8 +427,11 @@ def validate(raw: dict, path: str = "<spec>") -> dict:
     names = [c["name"] for c in spec["candidates"]]
     dup = {x for x in names if names.count(x) > 1}
     if dup:
-        raise ctx.err("[[candidate]].name", f"duplicated name {sorted(dup)[0]!r}",
-                      "give each candidate its own name")
+        raise ctx.err(
+            "[[candidate]].name",
+            f"duplicated name {sorted(dup)[0]!r}",
+            "give each candidate its own name",
+        )
 
     spec["tolerances"] = _tolerances(ctx, ctx.table(raw, "tolerances"))
 
@@ -345,11 +439,16 @@ def validate(raw: dict, path: str = "<spec>") -> dict:
     ctx.check_keys(r, RUN_KEYS, "[run].")
     samples = ctx.number(r, "samples", "[run].", default=20000, integer=True, minimum=1)
     q = r.get("quantiles", DEFAULT_QUANTILES)
-    if (not isinstance(q, list) or not q
-            or not all(isinstance(x, int | float) and not isinstance(x, bool) and 0 <= x <= 1
-                       for x in q)):
-        raise ctx.err("[run].quantiles", "must be a list of numbers in [0, 1]",
-                      "e.g. [0.05, 0.5, 0.95]")
+    if (
+        not isinstance(q, list)
+        or not q
+        or not all(
+            isinstance(x, int | float) and not isinstance(x, bool) and 0 <= x <= 1 for x in q
+        )
+    ):
+        raise ctx.err(
+            "[run].quantiles", "must be a list of numbers in [0, 1]", "e.g. [0.05, 0.5, 0.95]"
+        )
     conf = ctx.number(r, "confidence", "[run].", default=0.95)
     if not 0 < conf < 1:
         raise ctx.err("[run].confidence", "must lie between 0 and 1", "e.g. 0.95")
@@ -359,8 +458,9 @@ def validate(raw: dict, path: str = "<spec>") -> dict:
         "chunk_size": ctx.number(r, "chunk_size", "[run].", default=None, integer=True, minimum=1),
         "quantiles": sorted(float(x) for x in q),
         "confidence": float(conf),
-        "sensitivity_samples": ctx.number(r, "sensitivity_samples", "[run].", default=None,
-                                          integer=True, minimum=1),
+        "sensitivity_samples": ctx.number(
+            r, "sensitivity_samples", "[run].", default=None, integer=True, minimum=1
+        ),
         "keep_samples": bool(r.get("keep_samples", False)),
     }
     rep = ctx.table(raw, "report")

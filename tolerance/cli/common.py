@@ -107,8 +107,11 @@ def table(rows: list[list], header: list[str]) -> str:
     widths = [max(len(r[i]) for r in cells) for i in range(len(header))]
     lines = []
     for k, r in enumerate(cells):
-        lines.append("  ".join(c.rjust(w) if k and _num(c) else c.ljust(w)
-                               for c, w in zip(r, widths, strict=True)).rstrip())
+        lines.append(
+            "  ".join(
+                c.rjust(w) if k and _num(c) else c.ljust(w) for c, w in zip(r, widths, strict=True)
+            ).rstrip()
+        )
         if k == 0:
             lines.append("  ".join("-" * w for w in widths))
     return "\n".join(lines)

@@ -28,14 +28,26 @@ def examples() -> dict[str, tuple[str, str]]:
 @click.command()
 @click.argument("name", required=False, default=DEFAULT)
 @click.option("--list", "list_", is_flag=True, help="List the built-in examples.")
-@click.option("--spec-only", is_flag=True,
-              help="Write the example's spec file (a starting point) instead of running it.")
-@click.option("--out", type=click.Path(path_type=Path),
-              help="Output folder [default: ./reports/demo/] (with --spec-only: the file).")
+@click.option(
+    "--spec-only",
+    is_flag=True,
+    help="Write the example's spec file (a starting point) instead of running it.",
+)
+@click.option(
+    "--out",
+    type=click.Path(path_type=Path),
+    help="Output folder [default: ./reports/demo/] (with --spec-only: the file).",
+)
 @click.option("--force", is_flag=True, help="Replace an existing output.")
 @click.option("--samples", type=int, help="Monte Carlo samples (default: the example's).")
-@click.option("--format", "formats", multiple=True, default=("png",), show_default=True,
-              help="Figure format for the report: png, svg or pdf (repeatable).")
+@click.option(
+    "--format",
+    "formats",
+    multiple=True,
+    default=("png",),
+    show_default=True,
+    help="Figure format for the report: png, svg or pdf (repeatable).",
+)
 @click.option("--json", "as_json", is_flag=True, help="Print JSON for scripts.")
 @user_errors
 def demo(name, list_, spec_only, out, force, samples, formats, as_json):
@@ -54,8 +66,7 @@ def demo(name, list_, spec_only, out, force, samples, formats, as_json):
 
         close = difflib.get_close_matches(name, list(ex), n=1)
         hint = f"did you mean {close[0]!r}? " if close else ""
-        raise RetolError("NAME", f"no built-in example {name!r}",
-                         f"{hint}see retol demo --list")
+        raise RetolError("NAME", f"no built-in example {name!r}", f"{hint}see retol demo --list")
     fname = ex[name][0]
     text = resources.files("tolerance.examples").joinpath(fname).read_text(encoding="utf-8")
     if spec_only:
@@ -70,8 +81,9 @@ def demo(name, list_, spec_only, out, force, samples, formats, as_json):
             tmp.replace(target)
         except OSError as exc:
             tmp.unlink(missing_ok=True)
-            raise RetolError("--out", f"cannot write {str(target)!r} ({exc.strerror})",
-                             "choose a writable place") from None
+            raise RetolError(
+                "--out", f"cannot write {str(target)!r} ({exc.strerror})", "choose a writable place"
+            ) from None
         click.echo(f"wrote {target}; run it with: retol run {target}")
         return
     from ..spec import validate
@@ -84,7 +96,8 @@ def demo(name, list_, spec_only, out, force, samples, formats, as_json):
     spec["base_dir"] = str(Path(str(resources.files("tolerance.examples"))))
     folder = Path(out) if out else Path("reports") / "demo"
     argv = ["retol", "demo", name] + (["--samples", str(samples)] if samples else [])
-    _, folder = execute(spec, Path(f"{name}.toml"), folder, force, samples, None, None, as_json,
-                        formats, argv=argv)
+    _, folder = execute(
+        spec, Path(f"{name}.toml"), folder, force, samples, None, None, as_json, formats, argv=argv
+    )
     if not as_json:
         click.echo(f"open {folder / 'report.html'} in a browser")

@@ -19,23 +19,41 @@ def materials(ctx, as_json):
 
     mats = list_materials()
     if as_json:
-        echo_json([
-            {"name": m.name, "kind": m.kind, "min_nm": m.valid_min_nm, "max_nm": m.valid_max_nm,
-             "source": m.source}
-            for m in mats
-        ])
+        echo_json(
+            [
+                {
+                    "name": m.name,
+                    "kind": m.kind,
+                    "min_nm": m.valid_min_nm,
+                    "max_nm": m.valid_max_nm,
+                    "source": m.source,
+                }
+                for m in mats
+            ]
+        )
         return
-    rows = [[m.name, m.kind, f"{m.valid_min_nm:g}-{m.valid_max_nm:g} nm", m.source[:70]]
-            for m in mats]
+    rows = [
+        [m.name, m.kind, f"{m.valid_min_nm:g}-{m.valid_max_nm:g} nm", m.source[:70]] for m in mats
+    ]
     click.echo(table(rows, ["name", "kind", "valid range", "source"]))
 
 
 @materials.command("show")
 @click.argument("name")
-@click.option("--at", "at", type=WAVELENGTH, multiple=True, required=True,
-              help="Wavelength (repeatable), e.g. 589.3nm.")
-@click.option("--temperature", type=float, default=None,
-              help="Temperature [C]; default the material's reference temperature.")
+@click.option(
+    "--at",
+    "at",
+    type=WAVELENGTH,
+    multiple=True,
+    required=True,
+    help="Wavelength (repeatable), e.g. 589.3nm.",
+)
+@click.option(
+    "--temperature",
+    type=float,
+    default=None,
+    help="Temperature [C]; default the material's reference temperature.",
+)
 @extrapolate_option
 @json_option
 @user_errors
@@ -64,16 +82,33 @@ def show(name, at, temperature, extrapolate, as_json):
     dn = (n_e - n_o) * thermal_factor(m, t)
     n_e = n_o + dn
     rows = [
-        {"material": m.name, "wavelength_nm": float(w), "temperature_c": t, "n_o": float(o),
-         "n_e": float(e), "birefringence": float(d)}
+        {
+            "material": m.name,
+            "wavelength_nm": float(w),
+            "temperature_c": t,
+            "n_o": float(o),
+            "n_e": float(e),
+            "birefringence": float(d),
+        }
         for w, o, e, d in zip(wl, n_o, n_e, dn, strict=True)
     ]
     if as_json:
         echo_json(rows)
         return
-    click.echo(table(
-        [[r["material"], f"{r['wavelength_nm']:g}", f"{t:g}", f"{r['n_o']:.6f}", f"{r['n_e']:.6f}",
-          f"{r['birefringence']:+.6f}"] for r in rows],
-        ["material", "wavelength [nm]", "T [C]", "n_o", "n_e", "n_e - n_o"],
-    ))
+    click.echo(
+        table(
+            [
+                [
+                    r["material"],
+                    f"{r['wavelength_nm']:g}",
+                    f"{t:g}",
+                    f"{r['n_o']:.6f}",
+                    f"{r['n_e']:.6f}",
+                    f"{r['birefringence']:+.6f}",
+                ]
+                for r in rows
+            ],
+            ["material", "wavelength [nm]", "T [C]", "n_o", "n_e", "n_e - n_o"],
+        )
+    )
     click.echo(f"source: {m.source}")

@@ -21,28 +21,62 @@ def plate_options(func):
 
     opts = [
         click.option("--material", help="Material name or material file path, e.g. quartz."),
-        click.option("--construction", type=click.Choice(list(CONSTRUCTIONS)), default="zero-order",
-                     show_default=True, help="Plate construction."),
+        click.option(
+            "--construction",
+            type=click.Choice(list(CONSTRUCTIONS)),
+            default="zero-order",
+            show_default=True,
+            help="Plate construction.",
+        ),
         click.option("--design", type=WAVELENGTH, help="Design wavelength, e.g. 632.8nm."),
-        click.option("--fast-axis", "fast_axis", type=float, default=0.0, show_default=True,
-                     help="Fast-axis angle of the plate [deg]."),
+        click.option(
+            "--fast-axis",
+            "fast_axis",
+            type=float,
+            default=0.0,
+            show_default=True,
+            help="Fast-axis angle of the plate [deg].",
+        ),
         click.option("--order", type=int, help="Order m of a multi-order plate (m + waves)."),
-        click.option("--thick-plate", "thick_plate", type=LENGTH,
-                     help="Thicker plate of a compound plate, e.g. 1000um."),
+        click.option(
+            "--thick-plate",
+            "thick_plate",
+            type=LENGTH,
+            help="Thicker plate of a compound plate, e.g. 1000um.",
+        ),
         click.option("--partner", help="Second crystal of an achromatic plate, e.g. mgf2."),
-        click.option("--match", "match", type=WAVELENGTH, multiple=True,
-                     help="Achromat: the two wavelengths where the target holds exactly "
-                          "(default: value and slope at --design)."),
-        click.option("--retardance", "retardance_nm", type=WAVELENGTH,
-                     help="Film: retardance at the design wavelength, e.g. 137.5nm."),
+        click.option(
+            "--match",
+            "match",
+            type=WAVELENGTH,
+            multiple=True,
+            help="Achromat: the two wavelengths where the target holds exactly "
+            "(default: value and slope at --design).",
+        ),
+        click.option(
+            "--retardance",
+            "retardance_nm",
+            type=WAVELENGTH,
+            help="Film: retardance at the design wavelength, e.g. 137.5nm.",
+        ),
     ]
     for o in reversed(opts):
         func = o(func)
     return func
 
 
-def build_plate(material, construction, waves, design, fast_axis, order, thick_plate, partner,
-                match, retardance_nm):
+def build_plate(
+    material,
+    construction,
+    waves,
+    design,
+    fast_axis,
+    order,
+    thick_plate,
+    partner,
+    match,
+    retardance_nm,
+):
     from ..errors import RetolError
     from ..plates import design_plate
 
@@ -51,16 +85,28 @@ def build_plate(material, construction, waves, design, fast_axis, order, thick_p
     if waves is not None and waves <= 0:
         raise RetolError("--waves", f"must be positive, got {waves:g}", "e.g. --waves 0.25")
     return design_plate(
-        construction, material=material, waves=waves, design_nm=design, axis_deg=fast_axis,
-        order=order, thick_plate_um=thick_plate, partner=partner,
-        match_nm=list(match) if match else None, retardance_nm=retardance_nm,
+        construction,
+        material=material,
+        waves=waves,
+        design_nm=design,
+        axis_deg=fast_axis,
+        order=order,
+        thick_plate_um=thick_plate,
+        partner=partner,
+        match_nm=list(match) if match else None,
+        retardance_nm=retardance_nm,
     )
 
 
 @click.command()
 @plate_options
-@click.option("--waves", type=float, default=0.25, show_default=True,
-              help="Target retardance [waves] (beyond the order for multi-order).")
+@click.option(
+    "--waves",
+    type=float,
+    default=0.25,
+    show_default=True,
+    help="Target retardance [waves] (beyond the order for multi-order).",
+)
 @click.option("--from", "start", type=WAVELENGTH, help="Band start for the table.")
 @click.option("--to", "stop", type=WAVELENGTH, help="Band end for the table.")
 @click.option("--step", type=WAVELENGTH, default=10.0, show_default=True, help="Band step.")
@@ -68,8 +114,24 @@ def build_plate(material, construction, waves, design, fast_axis, order, thick_p
 @extrapolate_option
 @json_option
 @user_errors
-def plate(material, construction, waves, design, fast_axis, order, thick_plate, partner, match,
-          retardance_nm, start, stop, step, temperature, extrapolate, as_json):
+def plate(
+    material,
+    construction,
+    waves,
+    design,
+    fast_axis,
+    order,
+    thick_plate,
+    partner,
+    match,
+    retardance_nm,
+    start,
+    stop,
+    step,
+    temperature,
+    extrapolate,
+    as_json,
+):
     """Design a plate and tabulate its retardance (waves and degrees) over a band.
 
     Example: retol plate --material quartz --construction zero-order --waves 0.25 --design 632.8nm
@@ -79,13 +141,25 @@ def plate(material, construction, waves, design, fast_axis, order, thick_plate, 
     from ..errors import RetolError
     from ..plates import plate_retardance
 
-    p = build_plate(material, construction, waves, design, fast_axis, order, thick_plate, partner,
-                    match, retardance_nm)
+    p = build_plate(
+        material,
+        construction,
+        waves,
+        design,
+        fast_axis,
+        order,
+        thick_plate,
+        partner,
+        match,
+        retardance_nm,
+    )
     if start is None and stop is None:
         wl = np.array([p.design_nm])
     else:
         if start is None or stop is None:
-            raise RetolError("--from/--to", "give both ends of the band", "e.g. --from 400nm --to 700nm")
+            raise RetolError(
+                "--from/--to", "give both ends of the band", "e.g. --from 400nm --to 700nm"
+            )
         if stop < start:
             raise RetolError("--to", "must not be below --from", "swap them")
         if step <= 0:
@@ -95,26 +169,65 @@ def plate(material, construction, waves, design, fast_axis, order, thick_plate, 
     delta = plate_retardance(p, wl, temperature_c=temperature, extrapolate=extrapolate)
     w = delta / (2 * np.pi)
     layers = [
-        {"material": la.material.name, "thickness_um": float(la.thickness_um),
-         "axis_deg": float(la.axis_deg), "kind": la.material.kind,
-         "fast_axis_is": "optic axis" if la.material.negative else "perpendicular to optic axis"}
+        {
+            "material": la.material.name,
+            "thickness_um": float(la.thickness_um),
+            "axis_deg": float(la.axis_deg),
+            "kind": la.material.kind,
+            "fast_axis_is": "optic axis" if la.material.negative else "perpendicular to optic axis",
+        }
         for la in p.layers
     ]
-    rows = [{"wavelength_nm": float(x), "retardance_waves": float(y),
-             "retardance_deg": float(y * 360.0)} for x, y in zip(wl, w, strict=True)]
+    rows = [
+        {
+            "wavelength_nm": float(x),
+            "retardance_waves": float(y),
+            "retardance_deg": float(y * 360.0),
+        }
+        for x, y in zip(wl, w, strict=True)
+    ]
     if as_json:
-        echo_json({"construction": p.construction, "design_nm": p.design_nm, "waves": p.waves,
-                   "fast_axis_deg": p.axis_deg, "details": p.details, "layers": layers,
-                   "table": rows})
+        echo_json(
+            {
+                "construction": p.construction,
+                "design_nm": p.design_nm,
+                "waves": p.waves,
+                "fast_axis_deg": p.axis_deg,
+                "details": p.details,
+                "layers": layers,
+                "table": rows,
+            }
+        )
         return
-    click.echo(f"{p.construction} plate, target {p.waves:g} waves at {p.design_nm:g} nm, "
-               f"fast axis {p.axis_deg:g} deg")
-    click.echo(table(
-        [[la["material"], f"{la['thickness_um']:.3f}", f"{la['axis_deg']:g}", la["fast_axis_is"]]
-         for la in layers],
-        ["layer material", "thickness [um]", "fast axis [deg]", "fast axis lies"],
-    ))
+    click.echo(
+        f"{p.construction} plate, target {p.waves:g} waves at {p.design_nm:g} nm, "
+        f"fast axis {p.axis_deg:g} deg"
+    )
+    click.echo(
+        table(
+            [
+                [
+                    la["material"],
+                    f"{la['thickness_um']:.3f}",
+                    f"{la['axis_deg']:g}",
+                    la["fast_axis_is"],
+                ]
+                for la in layers
+            ],
+            ["layer material", "thickness [um]", "fast axis [deg]", "fast axis lies"],
+        )
+    )
     click.echo("")
-    click.echo(table([[f"{r['wavelength_nm']:g}", f"{r['retardance_waves']:.5f}",
-                       f"{r['retardance_deg']:.3f}"] for r in rows],
-                     ["wavelength [nm]", "retardance [waves]", "retardance [deg]"]))
+    click.echo(
+        table(
+            [
+                [
+                    f"{r['wavelength_nm']:g}",
+                    f"{r['retardance_waves']:.5f}",
+                    f"{r['retardance_deg']:.3f}",
+                ]
+                for r in rows
+            ],
+            ["wavelength [nm]", "retardance [waves]", "retardance [deg]"],
+        )
+    )

@@ -24,18 +24,28 @@ def load_grid(path):
         with xr.open_dataset(p, engine="h5netcdf") as ds:
             return ds.load()
     except (OSError, ValueError) as exc:
-        raise RetolError("GRID", f"cannot read {p} as a results grid ({exc})",
-                         "give the grid.nc that retol run wrote") from None
+        raise RetolError(
+            "GRID",
+            f"cannot read {p} as a results grid ({exc})",
+            "give the grid.nc that retol run wrote",
+        ) from None
 
 
 @click.command()
 @click.argument("grid_path", metavar="GRID.nc", type=click.Path(dir_okay=False))
-@click.option("--out", "out_dir", type=click.Path(file_okay=False),
-              help="Folder for report.html, summary.csv and figures/ [default: the grid's "
-                   "folder].")
-@click.option("--format", "formats", multiple=True, metavar="png|svg|pdf",
-              help="Figure file format for figures/ (repeatable) [default: png]. The HTML "
-                   "always embeds PNG.")
+@click.option(
+    "--out",
+    "out_dir",
+    type=click.Path(file_okay=False),
+    help="Folder for report.html, summary.csv and figures/ [default: the grid's folder].",
+)
+@click.option(
+    "--format",
+    "formats",
+    multiple=True,
+    metavar="png|svg|pdf",
+    help="Figure file format for figures/ (repeatable) [default: png]. The HTML always embeds PNG.",
+)
 @click.option("--force", is_flag=True, help="Replace a report already in the folder.")
 @json_option
 @user_errors
@@ -52,8 +62,11 @@ def report(grid_path, out_dir, formats, force, as_json):
     out = Path(out_dir) if out_dir else Path(grid_path).absolute().parent
     check_writable(out, force)
     grid = load_grid(grid_path)
-    command = "retol " + " ".join(shlex.quote(a) for a in sys.argv[1:]) if \
-        Path(sys.argv[0]).name.startswith("retol") else None
+    command = (
+        "retol " + " ".join(shlex.quote(a) for a in sys.argv[1:])
+        if Path(sys.argv[0]).name.startswith("retol")
+        else None
+    )
     path = write_report(grid, out, formats=formats, force=force, command=command)
     files = {
         "report": str(path),

@@ -21,8 +21,11 @@ def output_folder(out, spec_path: Path, force: bool) -> Path:
     if folder.exists() and not folder.is_dir():
         raise RetolError("--out", f"{str(folder)!r} is a file", "give a folder")
     if folder.exists() and any(folder.iterdir()) and not force:
-        raise RetolError("--out", f"{str(folder)!r} already holds results",
-                         "pass --force to replace them, or choose another --out")
+        raise RetolError(
+            "--out",
+            f"{str(folder)!r} already holds results",
+            "pass --force to replace them, or choose another --out",
+        )
     parent = folder.resolve().parent
     probe = parent
     while not probe.exists():
@@ -58,56 +61,102 @@ def summary_rows(ds):
         th = ds["layer_thickness"].sel(candidate=c).values
         mats = ds["layer_material"].sel(candidate=c).values
         worst = ds["worst_metric"].sel(candidate=c).values
-        rows.append({
-            "name": str(c),
-            "construction": str(ds["construction"].sel(candidate=c).values),
-            "layers": [{"material": str(m), "thickness_um": float(t)}
-                       for m, t in zip(mats, th, strict=True) if str(m)],
-            "yield": float(ds["yield"].sel(candidate=c)),
-            "yield_low": float(ds["yield_low"].sel(candidate=c)),
-            "yield_high": float(ds["yield_high"].sel(candidate=c)),
-            "nominal_worst": float(ds["nominal_worst"].sel(candidate=c)),
-            "median_worst": float(np.quantile(worst, 0.5)),
-            "p05_worst": float(np.quantile(worst, 0.05)),
-            "dominant": str(ds["dominant"].sel(candidate=c).values),
-            "nominal_dop": float(ds["nominal_dop"].sel(candidate=c)),
-            "nominal_spectral_metric": float(ds["nominal_spectral_metric"].sel(candidate=c)),
-            "temperature_coefficient_deg_per_k": float(
-                ds["temperature_coefficient"].sel(candidate=c)),
-            "acceptance_half_angle_deg": float(ds["acceptance_half_angle"].sel(candidate=c)),
-            "rank": int(ds["rank"].sel(candidate=c)),
-            "reason": str(ds["reason"].sel(candidate=c).values),
-        })
+        rows.append(
+            {
+                "name": str(c),
+                "construction": str(ds["construction"].sel(candidate=c).values),
+                "layers": [
+                    {"material": str(m), "thickness_um": float(t)}
+                    for m, t in zip(mats, th, strict=True)
+                    if str(m)
+                ],
+                "yield": float(ds["yield"].sel(candidate=c)),
+                "yield_low": float(ds["yield_low"].sel(candidate=c)),
+                "yield_high": float(ds["yield_high"].sel(candidate=c)),
+                "nominal_worst": float(ds["nominal_worst"].sel(candidate=c)),
+                "median_worst": float(np.quantile(worst, 0.5)),
+                "p05_worst": float(np.quantile(worst, 0.05)),
+                "dominant": str(ds["dominant"].sel(candidate=c).values),
+                "nominal_dop": float(ds["nominal_dop"].sel(candidate=c)),
+                "nominal_spectral_metric": float(ds["nominal_spectral_metric"].sel(candidate=c)),
+                "temperature_coefficient_deg_per_k": float(
+                    ds["temperature_coefficient"].sel(candidate=c)
+                ),
+                "acceptance_half_angle_deg": float(ds["acceptance_half_angle"].sel(candidate=c)),
+                "rank": int(ds["rank"].sel(candidate=c)),
+                "reason": str(ds["reason"].sel(candidate=c).values),
+            }
+        )
     return rows
 
 
 def print_summary(ds, rows):
     unit = ds.attrs.get("metric_units", "")
     metric = ds.attrs.get("goal_metric", "")
-    click.echo(f"{ds.attrs.get('title', '')}: goal {ds.attrs['goal_state']} with {metric} >= "
-               f"{ds.attrs['goal_min']:g} {unit if unit != '1' else ''}over the "
-               f"{ds.attrs['goal_over']}; source {ds.attrs.get('source_description', '')}; "
-               f"{ds.attrs['samples']} samples, seed {ds.attrs['seed']}")
+    click.echo(
+        f"{ds.attrs.get('title', '')}: goal {ds.attrs['goal_state']} with {metric} >= "
+        f"{ds.attrs['goal_min']:g} {unit if unit != '1' else ''}over the "
+        f"{ds.attrs['goal_over']}; source {ds.attrs.get('source_description', '')}; "
+        f"{ds.attrs['samples']} samples, seed {ds.attrs['seed']}"
+    )
     body = []
     for r in sorted(rows, key=lambda r: r["rank"]):
         th = " + ".join(f"{la['thickness_um']:.2f}" for la in r["layers"])
-        body.append([
-            r["rank"], r["name"], r["construction"], th, f"{r['nominal_worst']:.4f}",
-            f"{r['median_worst']:.4f}", f"{r['p05_worst']:.4f}",
-            f"{100 * r['yield']:.1f}% [{100 * r['yield_low']:.1f}, {100 * r['yield_high']:.1f}]",
-            r["dominant"], f"{r['nominal_dop']:.4f}", f"{r['temperature_coefficient_deg_per_k']:+.4f}",
-            f"{r['acceptance_half_angle_deg']:.2f}",
-        ])
-    click.echo(table(body, ["#", "candidate", "construction", "thicknesses [um]", "nominal worst",
-                            "median worst", "p05 worst", "yield [95% CI]", "dominant",
-                            "nominal DOP", "deg/K", "accept. [deg]"]))
+        body.append(
+            [
+                r["rank"],
+                r["name"],
+                r["construction"],
+                th,
+                f"{r['nominal_worst']:.4f}",
+                f"{r['median_worst']:.4f}",
+                f"{r['p05_worst']:.4f}",
+                f"{100 * r['yield']:.1f}% "
+                f"[{100 * r['yield_low']:.1f}, {100 * r['yield_high']:.1f}]",
+                r["dominant"],
+                f"{r['nominal_dop']:.4f}",
+                f"{r['temperature_coefficient_deg_per_k']:+.4f}",
+                f"{r['acceptance_half_angle_deg']:.2f}",
+            ]
+        )
+    click.echo(
+        table(
+            body,
+            [
+                "#",
+                "candidate",
+                "construction",
+                "thicknesses [um]",
+                "nominal worst",
+                "median worst",
+                "p05 worst",
+                "yield [95% CI]",
+                "dominant",
+                "nominal DOP",
+                "deg/K",
+                "accept. [deg]",
+            ],
+        )
+    )
     click.echo("")
     for r in sorted(rows, key=lambda r: r["rank"]):
         click.echo(f"{r['rank']}. {r['name']}: {r['reason']}")
 
 
-def execute(spec, spec_path: Path, out, force, samples, seed, chunk_size, as_json, formats,
-            write_report=True, argv=None, quiet=False):
+def execute(
+    spec,
+    spec_path: Path,
+    out,
+    force,
+    samples,
+    seed,
+    chunk_size,
+    as_json,
+    formats,
+    write_report=True,
+    argv=None,
+    quiet=False,
+):
     """Run a spec end to end: Monte Carlo, grid, report, all written atomically into --out."""
     from ..grid import save_grid
     from ..montecarlo import run as mc_run
@@ -121,8 +170,9 @@ def execute(spec, spec_path: Path, out, force, samples, seed, chunk_size, as_jso
         if quiet:
             return
         if bar is None:
-            bar = click.progressbar(length=total, label="Monte Carlo", file=sys.stderr,
-                                    show_eta=True)
+            bar = click.progressbar(
+                length=total, label="Monte Carlo", file=sys.stderr, show_eta=True
+            )
             bar.__enter__()
         bar.update(done - state["last"])
         state["last"] = done
@@ -150,8 +200,10 @@ def execute(spec, spec_path: Path, out, force, samples, seed, chunk_size, as_jso
         echo_json({"candidates": rows, "output": str(folder)})
     else:
         print_summary(ds, rows)
-        click.echo(f"\nwrote {folder / 'grid.nc'}" + (f" and {folder / 'report.html'}"
-                                                      if write_report else ""))
+        click.echo(
+            f"\nwrote {folder / 'grid.nc'}"
+            + (f" and {folder / 'report.html'}" if write_report else "")
+        )
     return ds, folder
 
 
@@ -159,20 +211,37 @@ def execute(spec, spec_path: Path, out, force, samples, seed, chunk_size, as_jso
 @click.argument("spec_file", type=click.Path(dir_okay=False, path_type=Path))
 @click.option("--samples", type=int, help="Monte Carlo samples (overrides [run] samples).")
 @click.option("--seed", type=int, help="Random seed (overrides [run] seed).")
-@click.option("--chunk-size", "chunk_size", type=int,
-              help="Samples per chunk (memory bound); results do not depend on it.")
-@click.option("--out", type=click.Path(file_okay=False, path_type=Path),
-              help="Output folder [default: reports/<spec file stem>/].")
+@click.option(
+    "--chunk-size",
+    "chunk_size",
+    type=int,
+    help="Samples per chunk (memory bound); results do not depend on it.",
+)
+@click.option(
+    "--out",
+    type=click.Path(file_okay=False, path_type=Path),
+    help="Output folder [default: reports/<spec file stem>/].",
+)
 @click.option("--force", is_flag=True, help="Replace an existing output folder.")
-@click.option("--format", "formats", multiple=True, default=("png",), show_default=True,
-              help="Figure format for the report: png, svg or pdf (repeatable).")
+@click.option(
+    "--format",
+    "formats",
+    multiple=True,
+    default=("png",),
+    show_default=True,
+    help="Figure format for the report: png, svg or pdf (repeatable).",
+)
 @click.option("--no-report", is_flag=True, help="Write only grid.nc, no figures or HTML.")
-@click.option("--keep-samples", is_flag=True,
-              help="Also keep every sample's values at every wavelength in the grid.")
+@click.option(
+    "--keep-samples",
+    is_flag=True,
+    help="Also keep every sample's values at every wavelength in the grid.",
+)
 @click.option("--json", "as_json", is_flag=True, help="Print JSON for scripts.")
 @user_errors
-def run(spec_file, samples, seed, chunk_size, out, force, formats, no_report, keep_samples,
-        as_json):
+def run(
+    spec_file, samples, seed, chunk_size, out, force, formats, no_report, keep_samples, as_json
+):
     """Monte Carlo tolerance analysis of SPEC_FILE: yield, spread and dominant tolerance."""
     from ..spec import load_spec
 
@@ -180,9 +249,15 @@ def run(spec_file, samples, seed, chunk_size, out, force, formats, no_report, ke
     spec = load_spec(spec_file)
     if keep_samples:
         spec["run"]["keep_samples"] = True
-    argv = ["retol", "run", str(spec_file),
-            "--samples", str(samples if samples is not None else spec["run"]["samples"]),
-            "--seed", str(seed if seed is not None else spec["run"]["seed"])]
+    argv = [
+        "retol",
+        "run",
+        str(spec_file),
+        "--samples",
+        str(samples if samples is not None else spec["run"]["samples"]),
+        "--seed",
+        str(seed if seed is not None else spec["run"]["seed"]),
+    ]
     if out is not None:
         argv += ["--out", str(out)]
     for f in formats:
@@ -192,8 +267,19 @@ def run(spec_file, samples, seed, chunk_size, out, force, formats, no_report, ke
         argv.append("--keep-samples")
     if no_report:
         argv.append("--no-report")
-    execute(spec, spec_file, out, force, samples, seed, chunk_size, as_json, formats,
-            write_report=not no_report, argv=argv)
+    execute(
+        spec,
+        spec_file,
+        out,
+        force,
+        samples,
+        seed,
+        chunk_size,
+        as_json,
+        formats,
+        write_report=not no_report,
+        argv=argv,
+    )
 
 
 def _check_formats(formats):

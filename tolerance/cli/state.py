@@ -9,27 +9,69 @@ from .plate import build_plate, plate_options
 
 
 @click.command()
-@click.option("--waves", type=float, default=None,
-              help="Retardance of an ideal plate [waves]; or describe a real plate with --material.")
-@click.option("--input", "input_deg", type=float, default=0.0, show_default=True,
-              help="Azimuth of the linear input [deg].")
+@click.option(
+    "--waves",
+    type=float,
+    default=None,
+    help="Retardance of an ideal plate [waves]; or describe a real plate with --material.",
+)
+@click.option(
+    "--input",
+    "input_deg",
+    type=float,
+    default=0.0,
+    show_default=True,
+    help="Azimuth of the linear input [deg].",
+)
 @plate_options
 @click.option("--at", "at", type=WAVELENGTH, help="Wavelength for a real plate (default: design).")
-@click.option("--tilt", type=float, default=0.0, show_default=True, help="Angle of incidence [deg].")
-@click.option("--tilt-azimuth", "tilt_azimuth", type=float, default=0.0, show_default=True,
-              help="Azimuth of the plane of incidence from x [deg].")
+@click.option(
+    "--tilt", type=float, default=0.0, show_default=True, help="Angle of incidence [deg]."
+)
+@click.option(
+    "--tilt-azimuth",
+    "tilt_azimuth",
+    type=float,
+    default=0.0,
+    show_default=True,
+    help="Azimuth of the plane of incidence from x [deg].",
+)
 @click.option("--temperature", type=float, default=None, help="Plate temperature [C].")
-@click.option("--target", default=None,
-              help="Also give the fidelity to a target state: right, left, or a linear azimuth "
-                   "in degrees.")
-@click.option("--analyzer", type=float, default=None,
-              help="Also give the extinction ratio through a linear analyzer at this angle [deg].")
+@click.option(
+    "--target",
+    default=None,
+    help="Also give the fidelity to a target state: right, left, or a linear azimuth in degrees.",
+)
+@click.option(
+    "--analyzer",
+    type=float,
+    default=None,
+    help="Also give the extinction ratio through a linear analyzer at this angle [deg].",
+)
 @extrapolate_option
 @json_option
 @user_errors
-def state(waves, input_deg, material, construction, design, fast_axis, order, thick_plate,
-          partner, match, retardance_nm, at, tilt, tilt_azimuth, temperature, target, analyzer,
-          extrapolate, as_json):
+def state(
+    waves,
+    input_deg,
+    material,
+    construction,
+    design,
+    fast_axis,
+    order,
+    thick_plate,
+    partner,
+    match,
+    retardance_nm,
+    at,
+    tilt,
+    tilt_azimuth,
+    temperature,
+    target,
+    analyzer,
+    extrapolate,
+    as_json,
+):
     """The output polarization ellipse of linear input through a plate.
 
     Ideal plate: retol state --waves 0.25 --fast-axis 30 --input 10.
@@ -52,8 +94,9 @@ def state(waves, input_deg, material, construction, design, fast_axis, order, th
     E_in = linear_jones(input_deg)
     if material is None:
         if waves is None:
-            raise RetolError("--waves", "give --waves for an ideal plate, or --material",
-                             "e.g. --waves 0.25")
+            raise RetolError(
+                "--waves", "give --waves for an ideal plate, or --material", "e.g. --waves 0.25"
+            )
         if waves <= 0:
             raise RetolError("--waves", f"must be positive, got {waves:g}", "e.g. --waves 0.25")
         if tilt or temperature is not None:
@@ -61,11 +104,27 @@ def state(waves, input_deg, material, construction, design, fast_axis, order, th
         J = retarder_jones(2 * np.pi * waves, fast_axis)
         label = f"ideal {waves:g}-wave plate"
     else:
-        p = build_plate(material, construction, 0.25 if waves is None else waves, design,
-                        fast_axis, order, thick_plate, partner, match, retardance_nm)
+        p = build_plate(
+            material,
+            construction,
+            0.25 if waves is None else waves,
+            design,
+            fast_axis,
+            order,
+            thick_plate,
+            partner,
+            match,
+            retardance_nm,
+        )
         wl = p.design_nm if at is None else at
-        J = plate_jones(p, wl, temperature_c=temperature, aoi_deg=tilt,
-                        incidence_azimuth_deg=tilt_azimuth, extrapolate=extrapolate)
+        J = plate_jones(
+            p,
+            wl,
+            temperature_c=temperature,
+            aoi_deg=tilt,
+            incidence_azimuth_deg=tilt_azimuth,
+            extrapolate=extrapolate,
+        )
         label = f"{p.construction} {material} plate at {wl:g} nm"
     S = jones_to_stokes(J @ E_in)
     S = S / S[0]
@@ -90,8 +149,9 @@ def state(waves, input_deg, material, construction, design, fast_axis, order, th
             try:
                 g = goal_vector("linear", float(t))
             except ValueError:
-                raise RetolError("--target", f"cannot read {target!r}",
-                                 "use right, left or an angle in degrees") from None
+                raise RetolError(
+                    "--target", f"cannot read {target!r}", "use right, left or an angle in degrees"
+                ) from None
         out["fidelity"] = float(fidelity(S, g))
     if as_json:
         echo_json(out)
@@ -100,11 +160,15 @@ def state(waves, input_deg, material, construction, design, fast_axis, order, th
     click.echo(f"  major-axis azimuth   {out['azimuth_deg']:9.4f} deg")
     click.echo(f"  ellipticity angle    {out['ellipticity_angle_deg']:9.4f} deg")
     click.echo(f"  axial ratio b/a      {out['axial_ratio']:9.5f}")
-    click.echo(f"  rotation             {out['rotation']} looking toward the source "
-               f"({out['handedness']}-handed)")
+    click.echo(
+        f"  rotation             {out['rotation']} looking toward the source "
+        f"({out['handedness']}-handed)"
+    )
     click.echo("  Stokes [S0 S1 S2 S3] " + " ".join(f"{x:+.5f}" for x in out["stokes"]))
     if target is not None:
         click.echo(f"  fidelity to {target:<10s}   {out['fidelity']:9.6f}")
     if analyzer is not None:
-        click.echo(f"  extinction through a linear analyzer at {analyzer:g} deg: "
-                   f"{out['extinction_db']:.2f} dB")
+        click.echo(
+            f"  extinction through a linear analyzer at {analyzer:g} deg: "
+            f"{out['extinction_db']:.2f} dB"
+        )
