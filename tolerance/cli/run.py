@@ -32,6 +32,8 @@ def output_folder(out, spec_path: Path, force: bool) -> Path:
         probe = probe.parent
     import os
 
+    if not probe.is_dir():
+        raise RetolError("--out", f"{str(probe)!r} is a file, not a folder", "choose another --out")
     if not os.access(probe, os.W_OK):
         raise RetolError("--out", f"cannot write into {str(probe)!r}", "choose a writable folder")
     return folder
