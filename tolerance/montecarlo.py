@@ -16,7 +16,7 @@ from pathlib import Path
 import numpy as np
 
 from . import sampler
-from .dispersion import check_range, get_material, indices
+from .dispersion import check_range, indices
 from .errors import RetolError
 from .plates import Plate, design_plate
 from .polarization import goal_vector
@@ -380,40 +380,33 @@ def _chunks(n: int, chunk: int):
         start = stop
 
 
+def _wilson_parts(k: int, n: int, confidence: float):
+    from scipy.stats import norm
+
+    z = float(norm.ppf(0.5 + confidence / 2.0))
+    p = k / n
+    den = 1.0 + z * z / n
+    centre = (p + z * z / (2 * n)) / den
+    half = z * math.sqrt(p * (1 - p) / n + z * z / (4 * n * n)) / den
+    return centre, half
+
+
 def wilson(k: int, n: int, confidence: float):
     """Wilson score interval of a binomial proportion k/n at ``confidence``.
+
+    Exactly 0 (or 1) at the end where k = 0 (or k = n).
 
     References
     ----------
     .. [1] E. B. Wilson, "Probable inference, the law of succession, and statistical inference,"
        J. Am. Stat. Assoc. 22, 209-212 (1927).
     """
-    from scipy.stats import norm
-
     if n == 0:
         return float("nan"), float("nan")
-    if k == 0:
-        return 0.0, wilson_high(k, n, confidence)
-    if k == n:
-        return 1.0 - wilson_high(0, n, confidence), 1.0
-    z = float(norm.ppf(0.5 + confidence / 2.0))
-    p = k / n
-    den = 1.0 + z * z / n
-    centre = (p + z * z / (2 * n)) / den
-    half = z * math.sqrt(p * (1 - p) / n + z * z / (4 * n * n)) / den
-    return max(0.0, centre - half), min(1.0, centre + half)
-
-
-def wilson_high(k, n, confidence):
-    """Upper Wilson score limit of k/n."""
-    from scipy.stats import norm
-
-    z = float(norm.ppf(0.5 + confidence / 2.0))
-    p = k / n
-    den = 1.0 + z * z / n
-    centre = (p + z * z / (2 * n)) / den
-    half = z * math.sqrt(p * (1 - p) / n + z * z / (4 * n * n)) / den
-    return min(1.0, centre + half)
+    centre, half = _wilson_parts(k, n, confidence)
+    lo = 0.0 if k == 0 else max(0.0, centre - half)
+    hi = 1.0 if k == n else min(1.0, centre + half)
+    return lo, hi
 
 
 def hist_quantiles(hist, lo, inv_width, vmin, vmax, qs):
