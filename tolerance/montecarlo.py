@@ -381,9 +381,9 @@ def _chunks(n: int, chunk: int):
 
 
 def _wilson_parts(k: int, n: int, confidence: float):
-    from scipy.stats import norm
+    from statistics import NormalDist
 
-    z = float(norm.ppf(0.5 + confidence / 2.0))
+    z = NormalDist().inv_cdf(0.5 + confidence / 2.0)
     p = k / n
     den = 1.0 + z * z / n
     centre = (p + z * z / (2 * n)) / den
@@ -484,7 +484,10 @@ def run(spec: dict, samples=None, seed=None, chunk_size=None, progress=None,
         raise RetolError("keep_samples", "would keep more than 1.6 GB of per-sample values",
                          "use fewer samples or wavelengths, or drop keep_samples")
     T = numba.get_num_threads()
-    bins = int(min(BINS, max(64, 2 ** int(math.log2(max(1, 150_000_000 // (T * N_VAR * W * 8)))))))
+    # bins per (variable, wavelength): about 75 MB of int32 counts per thread at most; never
+    # dependent on the thread count, so that results are not either
+    per_row = max(1, 150_000_000 // (2 * N_VAR * W * 4))
+    bins = int(min(BINS, max(64, 2 ** int(math.log2(per_row)))))
     active_all = [sorted(k for k, v in c.tolerances.items() if not _is_zero(v)) for c in cases]
     tol_names = sorted({k for a in active_all for k in a}, key=list(GRID_NAMES).index)
     total = len(cases) * (n + 2 * len(tol_names) * n_sens)
