@@ -22,7 +22,7 @@ def _run(args, cwd=None):
 def test_list_shows_every_builtin_example():
     r = _run(["demo", "--list"])
     assert r.exit_code == 0
-    for name in ("sld-circular", "rgb-rotator", "pulse-circular"):
+    for name in ("sld-circular", "rgb-rotator", "pulse-circular", "white-led"):
         assert name in r.output
 
 
@@ -34,7 +34,7 @@ def test_list_json():
     assert "sld-circular" in names
 
 
-@pytest.mark.parametrize("name", ["sld-circular", "rgb-rotator", "pulse-circular"])
+@pytest.mark.parametrize("name", ["sld-circular", "rgb-rotator", "pulse-circular", "white-led"])
 def test_spec_only_writes_a_valid_starting_spec(tmp_path, monkeypatch, name):
     monkeypatch.chdir(tmp_path)
     r = _run(["demo", name, "--spec-only"])

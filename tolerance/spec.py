@@ -465,7 +465,15 @@ def validate(raw: dict, path: str = "<spec>") -> dict:
     }
     rep = ctx.table(raw, "report")
     ctx.check_keys(rep, REPORT_KEYS, "[report].")
-    spec["report"] = {"formats": list(rep.get("formats", ["png"]))}
+    formats = rep.get("formats", ["png"])
+    if (
+        not isinstance(formats, list)
+        or not formats
+        or any(f not in ("png", "svg", "pdf") for f in formats)
+    ):
+        raise ctx.err("[report].formats", f"must list png, svg or pdf, got {formats!r}",
+                      'e.g. formats = ["png", "svg"]')
+    spec["report"] = {"formats": list(formats)}
     spec["spec_path"] = str(path)
     json.dumps(spec)  # must be serialisable
     return spec

@@ -229,9 +229,8 @@ def execute(
     "--format",
     "formats",
     multiple=True,
-    default=("png",),
-    show_default=True,
-    help="Figure format for the report: png, svg or pdf (repeatable).",
+    help="Figure format for the report: png, svg or pdf (repeatable) "
+    "[default: the spec's [report] formats, else png].",
 )
 @click.option("--no-report", is_flag=True, help="Write only grid.nc, no figures or HTML.")
 @click.option(
@@ -249,6 +248,7 @@ def run(
 
     _check_formats(formats)
     spec = load_spec(spec_file)
+    formats = tuple(formats) or tuple(spec["report"]["formats"]) or ("png",)
     if keep_samples:
         spec["run"]["keep_samples"] = True
     argv = [
