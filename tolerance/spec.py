@@ -471,8 +471,11 @@ def validate(raw: dict, path: str = "<spec>") -> dict:
         or not formats
         or any(f not in ("png", "svg", "pdf") for f in formats)
     ):
-        raise ctx.err("[report].formats", f"must list png, svg or pdf, got {formats!r}",
-                      'e.g. formats = ["png", "svg"]')
+        raise ctx.err(
+            "[report].formats",
+            f"must list png, svg or pdf, got {formats!r}",
+            'e.g. formats = ["png", "svg"]',
+        )
     spec["report"] = {"formats": list(formats)}
     spec["spec_path"] = str(path)
     json.dumps(spec)  # must be serialisable
