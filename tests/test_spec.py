@@ -270,15 +270,20 @@ def test_build_time_errors_name_the_file(case):
 
 
 _widths = st.floats(min_value=0.0, max_value=1e6, allow_nan=False, allow_infinity=False)
+# angle tolerances are physically bounded (tilt below grazing incidence, axis errors small):
+# the validator refuses widths that reach 89 deg of tilt (6 sigma) or 45 deg of axis error
+_angle_widths = st.floats(min_value=0.0, max_value=7.0, allow_nan=False, allow_infinity=False)
 
 
-@given(sigma=_widths, half=_widths, key=st.sampled_from(["thickness_um", "clocking_deg",
-                                                         "crossing_deg", "tilt_deg",
-                                                         "temperature_c", "input_azimuth_deg"]))
-def test_any_valid_width_round_trips(sigma, half, key):
+@given(sigma=_widths, half=_widths, angle_sigma=_angle_widths, angle_half=_angle_widths,
+       key=st.sampled_from(["thickness_um", "clocking_deg", "crossing_deg", "tilt_deg",
+                            "temperature_c", "input_azimuth_deg"]))
+def test_any_valid_width_round_trips(sigma, half, angle_sigma, angle_half, key):
     """A sigma >= 0 (or uniform half-width) written into a TOML file comes back unchanged
     (TOML v1.0.0: repr of a Python float is a valid TOML float that parses to the same
     double)."""
+    if key.endswith("_deg"):
+        sigma, half = angle_sigma, angle_half
     base = copy.deepcopy(_BASE)
     base["tolerances"] = {}
     text = _to_toml_tolerances(key, sigma, "sigma")
@@ -305,3 +310,39 @@ def _to_toml_tolerances(key, value, kind):
 
 
 _BASE = raw_spec()
+
+
+@pytest.mark.parametrize("key, dist, words", [
+    ("tilt_deg", {"uniform": 90}, "89 deg"),
+    ("tilt_deg", {"sigma": 20}, "89 deg"),
+    ("clocking_deg", {"uniform": 60}, "45 deg"),
+    ("temperature_c", {"low": -300, "high": 20}, "absolute zero"),
+])
+def test_physically_impossible_tolerances_are_refused(key, dist, words):
+    # common practice: tilts stay far below grazing incidence, temperatures above 0 K
+    base = copy.deepcopy(_BASE)
+    base["tolerances"] = {key: dist}
+    with pytest.raises(RetolError, match=words):
+        validate(base, NAME)
+
+
+def test_bare_number_tolerance_is_refused_with_both_readings():
+    base = copy.deepcopy(_BASE)
+    base["tolerances"] = {"clocking_deg": 0.5}
+    with pytest.raises(RetolError, match="uniform = 0.5"):
+        validate(base, NAME)
+
+
+@pytest.mark.parametrize("metric, gmin", [("axial_ratio", 1.5), ("fidelity", -0.1)])
+def test_unreachable_goal_is_refused(metric, gmin):
+    base = copy.deepcopy(_BASE)
+    base["goal"] = {"state": "circular", "metric": metric, "min": gmin}
+    with pytest.raises(RetolError, match=r"\[goal\]\.min"):
+        validate(base, NAME)
+
+
+def test_key_of_another_construction_is_refused():
+    base = copy.deepcopy(_BASE)
+    base["candidate"] = [dict(base["candidate"][0], construction="zero-order", order=3)]
+    with pytest.raises(RetolError, match="does not apply"):
+        validate(base, NAME)

@@ -128,6 +128,21 @@ def indices(material: Material, wavelength_nm, extrapolate: bool = False):
     """
     check_range(material, wavelength_nm, extrapolate)
     wl = np.asarray(wavelength_nm, dtype=float)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        n_o, n_e = _evaluate(material, wl)
+    bad = ~(np.isfinite(n_o) & np.isfinite(n_e) & (n_o > 0) & (n_e > 0))
+    if np.any(bad):
+        at = float(np.broadcast_to(wl, bad.shape)[bad].flat[0])
+        raise OutOfRangeError(
+            "wavelength",
+            f"the {material.name} formula gives no real index at {at:g} nm (a resonance)",
+            f"choose wavelengths nearer its valid range {material.valid_min_nm:g}-"
+            f"{material.valid_max_nm:g} nm",
+        )
+    return n_o, n_e
+
+
+def _evaluate(material: Material, wl):
     lam = wl / 1e3
     c = material.coefficients
     if material.formula == "ghosh":

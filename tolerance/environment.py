@@ -14,12 +14,26 @@ TWO_PI = 2.0 * np.pi
 
 
 def target_waves(plate: Plate) -> float:
-    """The retardance a plate is built for at its design wavelength, order included. [waves]"""
+    """The retardance a plate is built for at its design wavelength, order included. [waves]
+
+    ``order + waves`` for a multi-order plate, ``waves`` for the other constructions; an explicit
+    stack, which has no target of its own, is measured against its nominal retardance.
+    """
+    if plate.construction == "stack" or not np.isfinite(plate.waves):
+        return nominal_waves(plate)
+    return float(plate.details.get("order", 0) + plate.waves)
+
+
+def nominal_waves(plate: Plate) -> float:
+    """Retardance of the error-free plate at its design wavelength, normal incidence. [waves]"""
     return float(plate_retardance(plate, plate.design_nm) / TWO_PI)
 
 
 def temperature_error(plate: Plate, temperatures_c) -> np.ndarray:
-    """Retardance minus its reference-temperature value at the design wavelength. [waves]"""
+    """Retardance error (retardance minus target) versus temperature at the design wavelength.
+
+    [waves]  Zero at the materials' reference temperature for a plate built exactly to target.
+    """
     t = np.asarray(temperatures_c, dtype=float)
     d = plate_retardance(plate, plate.design_nm, temperature_c=t) / TWO_PI
     return d - target_waves(plate)
@@ -52,7 +66,7 @@ def tilt_error(plate: Plate, tilts_deg, azimuths_deg) -> np.ndarray:
     Returns
     -------
     ndarray (n, m)
-        δ(θᵢ, φ) − δ(0) at the design wavelength. [waves]
+        Retardance error δ(θᵢ, φ) − target at the design wavelength. [waves]
 
     References
     ----------
@@ -64,12 +78,20 @@ def tilt_error(plate: Plate, tilts_deg, azimuths_deg) -> np.ndarray:
     return d - target_waves(plate)
 
 
-def acceptance_half_angle(plate: Plate, limit_waves: float = 0.01, max_deg: float = 60.0,
-                          step_deg: float = 0.01, n_azimuths: int = 72) -> float:
-    """Largest angle of incidence within which |δ(θᵢ, φ) − δ(0)| ≤ limit for every azimuth. [deg]
+def acceptance_half_angle(
+    plate: Plate,
+    limit_waves: float = 0.01,
+    max_deg: float = 60.0,
+    step_deg: float = 0.01,
+    n_azimuths: int = 72,
+) -> float:
+    """Largest angle of incidence within which |δ(θᵢ, φ) − target| ≤ limit for every azimuth.
 
-    Scanned on a grid of ``step_deg`` up to ``max_deg`` and refined linearly between the last
-    good and first bad angle; returns ``max_deg`` when the limit is never reached.
+    [deg]  The error counts both the plate's own deviation from target at the design wavelength
+    (an achromat matched at two other wavelengths is not exactly on target there) and the change
+    with tilt.  Scanned on a grid of ``step_deg`` up to ``max_deg`` and refined linearly between
+    the last good and first bad angle; 0 when the error at normal incidence already exceeds the
+    limit; ``max_deg`` when the limit is never reached.
     """
     tilts = np.arange(0.0, max_deg + step_deg / 2, step_deg)
     az = np.linspace(0.0, 180.0, n_azimuths, endpoint=False)

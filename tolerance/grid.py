@@ -83,12 +83,35 @@ def build_grid(spec, wl, spectrum, cases, results, qs, tol_names, seed, n, chunk
         )
     ranks, reasons = rank(
         names,
-        [r["yield"] for r in results],
-        [r["yield_low"] for r in results],
-        [r["yield_high"] for r in results],
+        [r["rank_yield"] for r in results],
+        [r["rank_yield_low"] for r in results],
+        [r["rank_yield_high"] for r in results],
         fid_nom,
         accept,
         tcoef,
+    )
+    # the source-averaged output of every sample, and of the error-free plate
+    sst = stack("spec_stokes")
+    sst_nom = np.stack([r["nominal_spec_stokes"] for r in results])
+    from .polarization import ellipse
+
+    def spectral_state(st):
+        full = np.concatenate([np.ones(st.shape[:-1] + (1,)), st], axis=-1)
+        return ellipse(full)
+
+    e_s = spectral_state(sst)
+    e_n = spectral_state(sst_nom)
+    ext_s = np.stack(
+        [
+            spectral_metric(r["spec_stokes"], c.goal, "extinction_db")
+            for r, c in zip(results, cases, strict=True)
+        ]
+    )
+    ext_n = np.array(
+        [
+            float(spectral_metric(r["nominal_spec_stokes"][None, :], c.goal, "extinction_db")[0])
+            for r, c in zip(results, cases, strict=True)
+        ]
     )
     qarr = np.asarray(qs, dtype=float)
 
@@ -171,6 +194,57 @@ def build_grid(spec, wl, spectrum, cases, results, qs, tol_names, seed, n, chunk
             ("candidate", "sample"),
             mu,
             f"each sample's source-weighted {mlong}",
+        ),
+        "spectral_stokes": _da(
+            sst,
+            ("candidate", "sample", "stokes"),
+            "1",
+            "source-averaged normalised Stokes vector of each sample (|s| = degree of "
+            "polarization)",
+        ),
+        "spectral_axial_ratio": _da(
+            e_s["axial_ratio"],
+            ("candidate", "sample"),
+            "1",
+            "axial ratio b/a of the polarized part of the source-averaged output",
+        ),
+        "spectral_azimuth": _da(
+            e_s["azimuth_deg"],
+            ("candidate", "sample"),
+            "deg",
+            "major-axis azimuth of the polarized part of the source-averaged output",
+        ),
+        "spectral_extinction": _da(
+            ext_s,
+            ("candidate", "sample"),
+            "dB",
+            "extinction ratio of the source-averaged output through an analyzer that passes the "
+            "goal state (unpolarized part counted)",
+        ),
+        "nominal_spectral_axial_ratio": _da(
+            e_n["axial_ratio"],
+            ("candidate",),
+            "1",
+            "error-free axial ratio of the polarized part of the source-averaged output",
+        ),
+        "nominal_spectral_azimuth": _da(
+            e_n["azimuth_deg"],
+            ("candidate",),
+            "deg",
+            "error-free major-axis azimuth of the polarized part of the source-averaged output",
+        ),
+        "nominal_spectral_extinction": _da(
+            ext_n,
+            ("candidate",),
+            "dB",
+            "error-free extinction ratio of the source-averaged output through the goal analyzer",
+        ),
+        "rank_yield": _da(
+            np.array([r["rank_yield"] for r in results]),
+            ("candidate",),
+            "1",
+            "yield the ranking uses: the goal's, except that an axial-ratio goal over the "
+            "spectrum is judged by spectral fidelity so that unpolarized light counts",
         ),
         "spectral_dop": _da(
             stack("dop"),

@@ -66,7 +66,9 @@ def drift_distribution(spec: dict) -> dict | None:
     if isinstance(raw, dict):
         raw = {k: (_nm(v, f"[source].drift.{k}") if isinstance(v, str) else v)
                for k, v in raw.items()}
-    d = _distribution(_Ctx(spec.get("spec_path", "<spec>")), "drift", raw)
+    d = _distribution(
+        _Ctx(Path(spec.get("spec_path", "<spec>")).name), "drift", raw, where="[source].drift"
+    )
     if d["kind"] == "range":
         # an absolute wavelength range: the draws are offsets from the line's centre
         from .units import wavelength_nm
@@ -595,6 +597,16 @@ def _finish(case, spec, acc: Accumulator, nom, qs, conf, tol_names, alone, witho
     k = int(np.sum(pass_metric >= spec["goal"]["min"]))
     y = k / n
     ylo, yhi = wilson(k, n, conf)
+    # the yield the decision ranks on counts unpolarized light: for an axial-ratio goal over the
+    # spectrum (which looks at the polarized part only) it is the share of samples whose
+    # spectral fidelity reaches that of a pure state with b/a = min
+    rank_k = k
+    if spec["goal"]["over"] == "spectrum" and spec["goal"]["metric"] == "axial_ratio":
+        m = spec["goal"]["min"]
+        f_min = 0.5 * (1.0 + 2.0 * m / (1.0 + m * m))
+        fid = spectral_metric(acc.spec_stokes, case.goal, "fidelity")
+        rank_k = int(np.sum(fid >= f_min))
+    rank_lo, rank_hi = wilson(rank_k, n, conf)
     dop = np.sqrt(np.sum(acc.spec_stokes**2, axis=1))
     nom_spec = nom["spec_stokes"]
     nom_dop = float(np.sqrt(np.sum(nom_spec**2)))
@@ -616,6 +628,10 @@ def _finish(case, spec, acc: Accumulator, nom, qs, conf, tol_names, alone, witho
         "quantiles": quant, "mean": mean_d + nom["values"][0], "std": np.sqrt(var),
         "worst": acc.worst, "spectral_metric": spec_metric, "pass_metric": pass_metric,
         "dop": np.clip(dop, 0, 1), "design_stokes": acc.design_stokes, "kept": acc.kept,
+        "rank_yield": rank_k / n,
+        "rank_yield_low": rank_lo,
+        "rank_yield_high": rank_hi,
+        "spec_stokes": acc.spec_stokes,
         "yield": y, "yield_low": ylo, "yield_high": yhi, "passes": k,
         "nominal": nom["values"], "nominal_stokes": nom["stokes"], "nominal_worst": nom["worst"],
         "nominal_spectral_metric": float(spectral_metric(nom_spec[None, :], case.goal,

@@ -59,6 +59,7 @@ CANDIDATE_KEYS = (
     "layers",
     "tolerances",
 )
+CONSTRUCTION_KEYS = ("order", "thick_plate", "partner", "match", "retardance", "layers")
 RUN_KEYS = (
     "samples",
     "seed",
@@ -132,10 +133,14 @@ class _Ctx:
             kind = "a whole number" if integer else "a number"
             raise self.err(f"{where}{key}", f"must be {kind}, got {v!r}", f"e.g. {key} = 1")
         if not math.isfinite(v):
-            raise self.err(f"{where}{key}", "must be finite")
+            raise self.err(f"{where}{key}", "must be finite", "give a finite number")
         if minimum is not None and (v < minimum or (strict_min and v <= minimum)):
             rel = "above" if strict_min else "at least"
-            raise self.err(f"{where}{key}", f"must be {rel} {minimum:g}, got {v!r}")
+            raise self.err(
+                f"{where}{key}",
+                f"must be {rel} {minimum:g}, got {v!r}",
+                f"give a value {'>' if strict_min else '>='} {minimum:g}",
+            )
         return v
 
     def wl(self, d, key, where, required=True, default=None):
@@ -151,11 +156,15 @@ class _Ctx:
             raise self.err(f"{where}{key}", f"cannot read {d[key]!r}", 'e.g. "780nm"') from None
 
 
-def _distribution(ctx: _Ctx, key: str, value) -> dict:
+def _distribution(ctx: _Ctx, key: str, value, where: str | None = None) -> dict:
     """Normalise a tolerance distribution to {'kind', ...} with numbers in the key's unit."""
-    where = f"[tolerances].{key}"
+    where = where or f"[tolerances].{key}"
     if isinstance(value, int | float) and not isinstance(value, bool):
-        value = {"sigma": value}
+        raise ctx.err(
+            where,
+            f"a bare number ({value!r}) does not say which distribution",
+            f"write {{ sigma = {value} }} (normal) or {{ uniform = {value} }} (± half width)",
+        )
     if not isinstance(value, dict):
         raise ctx.err(
             where,
@@ -174,7 +183,7 @@ def _distribution(ctx: _Ctx, key: str, value) -> dict:
             else:
                 raise ctx.err(f"{where}.{k}", f"must be a number, got {v!r}", f"e.g. {k} = 0.3")
         if not math.isfinite(v):
-            raise ctx.err(f"{where}.{k}", "must be finite")
+            raise ctx.err(f"{where}.{k}", "must be finite", "give a finite number")
         nums[k] = float(v)
     kinds = [k for k in ("sigma", "uniform", "tolerance") if k in nums]
     has_range = "low" in nums or "high" in nums
@@ -195,23 +204,54 @@ def _distribution(ctx: _Ctx, key: str, value) -> dict:
             raise ctx.err(
                 f"{where}.low", f"low {nums['low']:g} is above high {nums['high']:g}", "swap them"
             )
-        return {"kind": "range", "low": nums["low"], "high": nums["high"]}
+        return _bounded(
+            ctx, key, where, {"kind": "range", "low": nums["low"], "high": nums["high"]}
+        )
     k = kinds[0]
     if nums[k] < 0:
         raise ctx.err(f"{where}.{k}", f"must not be negative, got {nums[k]:g}", "give a width >= 0")
     if k == "sigma":
-        return {"kind": "normal", "sigma": nums["sigma"]}
+        return _bounded(ctx, key, where, {"kind": "normal", "sigma": nums["sigma"]})
     if k == "uniform":
-        return {"kind": "uniform", "half_width": nums["uniform"]}
+        return _bounded(ctx, key, where, {"kind": "uniform", "half_width": nums["uniform"]})
     cov = nums.get("coverage", 3.0)
     if cov <= 0:
         raise ctx.err(f"{where}.coverage", "must be positive", "e.g. coverage = 3")
-    return {
-        "kind": "normal",
-        "sigma": nums["tolerance"] / cov,
-        "limit": nums["tolerance"],
-        "coverage": cov,
-    }
+    return _bounded(
+        ctx,
+        key,
+        where,
+        {
+            "kind": "normal",
+            "sigma": nums["tolerance"] / cov,
+            "limit": nums["tolerance"],
+            "coverage": cov,
+        },
+    )
+
+
+def _reach(dist: dict) -> float:
+    """The largest |deviation| a distribution can practically give (6 sigma for a normal)."""
+    if dist["kind"] == "normal":
+        return 6.0 * dist["sigma"]
+    if dist["kind"] == "uniform":
+        return dist["half_width"]
+    return max(abs(dist["low"]), abs(dist["high"]))
+
+
+def _bounded(ctx: _Ctx, key: str, where: str, dist: dict) -> dict:
+    """Refuse distributions that reach physically impossible values."""
+    if key == "tilt_deg" and _reach(dist) >= 89.0:
+        raise ctx.err(
+            where,
+            "reaches an angle of incidence of 89 deg or more",
+            "tilts are a few degrees; give a smaller width",
+        )
+    if key in ("clocking_deg", "crossing_deg", "input_azimuth_deg") and _reach(dist) > 45.0:
+        raise ctx.err(where, "reaches more than 45 deg", "angle errors are small; check the unit")
+    if key == "temperature_c" and dist["kind"] == "range" and dist["low"] < -273.15:
+        raise ctx.err(f"{where}.low", "is below absolute zero", "give a temperature in deg C")
+    return dist
 
 
 def _tolerances(ctx: _Ctx, table: dict, where="[tolerances]") -> dict:
@@ -240,6 +280,21 @@ def _candidate(ctx: _Ctx, c, i: int, default_design) -> dict:
         close = difflib.get_close_matches(str(cons), list(CONSTRUCTIONS), n=1)
         fix = f"did you mean {close[0]!r}?" if close else f"use one of {', '.join(CONSTRUCTIONS)}"
         raise ctx.err(f"{where}construction", f"unknown construction {cons!r}", fix)
+    extra = {
+        "zero-order": (),
+        "multi-order": ("order",),
+        "compound": ("thick_plate",),
+        "achromatic": ("partner", "match"),
+        "film": ("retardance",),
+        "stack": ("layers",),
+    }
+    for k in c:
+        if k in CONSTRUCTION_KEYS and k not in extra[cons]:
+            raise ctx.err(
+                f"{where}{k}",
+                f"does not apply to a {cons} plate",
+                "remove it, or change construction",
+            )
     out = {"name": name, "construction": cons}
     if cons != "stack":
         if "material" not in c or not isinstance(c["material"], str):
@@ -368,6 +423,12 @@ def validate(raw: dict, path: str = "<spec>") -> dict:
     if over not in GOAL_OVER:
         raise ctx.err("[goal].over", f"unknown {over!r}", "use band or spectrum")
     gmin = ctx.number(g, "min", "[goal].", required=True)
+    if metric in ("axial_ratio", "fidelity") and not 0.0 <= gmin <= 1.0:
+        raise ctx.err(
+            "[goal].min",
+            f"{metric} lies between 0 and 1, so min = {gmin:g} cannot be the goal",
+            "e.g. min = 0.95",
+        )
     hand = g.get("handedness")
     if hand is not None and hand not in ("right", "left"):
         raise ctx.err(

@@ -12,6 +12,14 @@ import click
 from ..errors import RetolError
 
 
+def _label(param) -> str:
+    """The option's flag as the user typed it (e.g. --retardance), for error messages."""
+    if param is None:
+        return "value"
+    opts = getattr(param, "opts", None)
+    return opts[0] if opts else param.name
+
+
 class WavelengthType(click.ParamType):
     """A wavelength with a unit (632.8nm, 0.6328um); a bare number is nm.  Gives nm."""
 
@@ -23,7 +31,7 @@ class WavelengthType(click.ParamType):
         if isinstance(value, float):
             return value
         try:
-            return wavelength_nm(value, f"--{param.name.replace('_', '-')}" if param else "value")
+            return wavelength_nm(value, _label(param))
         except RetolError as exc:
             self.fail(str(exc), param, ctx)
 
@@ -43,11 +51,29 @@ class LengthType(click.ParamType):
         if isinstance(value, float):
             return value
         try:
-            return length_um(value, f"--{param.name.replace('_', '-')}" if param else "value")
+            return length_um(value, _label(param))
         except RetolError as exc:
             self.fail(str(exc), param, ctx)
 
 
+class FiniteFloat(click.ParamType):
+    """A finite real number (no nan or inf)."""
+
+    name = "number"
+
+    def convert(self, value, param, ctx):
+        import math
+
+        try:
+            v = float(value)
+        except (TypeError, ValueError):
+            self.fail(f"{_label(param)}: {value!r} is not a number", param, ctx)
+        if not math.isfinite(v):
+            self.fail(f"{_label(param)}: must be a finite number, got {value!r}", param, ctx)
+        return v
+
+
+FLOAT = FiniteFloat()
 WAVELENGTH = WavelengthType()
 LENGTH = LengthType()
 
@@ -102,14 +128,16 @@ def echo_json(obj):
 
 
 def table(rows: list[list], header: list[str]) -> str:
-    """A plain aligned text table."""
+    """A plain aligned text table; a column of numbers is right-aligned."""
     cells = [[str(h) for h in header]] + [[str(c) for c in r] for r in rows]
     widths = [max(len(r[i]) for r in cells) for i in range(len(header))]
+    numeric = [bool(rows) and all(_num(r[i]) for r in cells[1:]) for i in range(len(header))]
     lines = []
     for k, r in enumerate(cells):
         lines.append(
             "  ".join(
-                c.rjust(w) if k and _num(c) else c.ljust(w) for c, w in zip(r, widths, strict=True)
+                c.rjust(w) if k and numeric[i] else c.ljust(w)
+                for i, (c, w) in enumerate(zip(r, widths, strict=True))
             ).rstrip()
         )
         if k == 0:

@@ -77,6 +77,7 @@ def demo(name, list_, spec_only, out, force, samples, formats, as_json):
             raise RetolError("--out", f"{str(target)!r} exists", "pass --force or choose another")
         tmp = target.with_name(f".{target.name}.part")
         try:
+            target.parent.mkdir(parents=True, exist_ok=True)
             tmp.write_text(text, encoding="utf-8")
             tmp.replace(target)
         except OSError as exc:

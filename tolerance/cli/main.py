@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import importlib
+import sys
 
 import click
 
@@ -28,6 +29,25 @@ class LazyGroup(click.Group):
             return None
         mod, attr, _ = SUBCOMMANDS[name]
         return getattr(importlib.import_module(mod), attr)
+
+    def main(self, args=None, prog_name=None, complete_var=None, standalone_mode=True, **extra):
+        """Like click's, but a usage mistake is one line on stderr (no usage screen), exit 2."""
+        if not standalone_mode:
+            return super().main(args, prog_name, complete_var, standalone_mode=False, **extra)
+        try:
+            rv = super().main(args, prog_name, complete_var, standalone_mode=False, **extra)
+        except click.UsageError as exc:
+            where = exc.ctx.command_path if exc.ctx is not None else "retol"
+            msg = " ".join(exc.format_message().split())
+            click.echo(f"retol: error: {msg} (see '{where} --help')", err=True)
+            sys.exit(2)
+        except click.Abort:
+            click.echo("retol: error: interrupted; nothing was written", err=True)
+            sys.exit(130)
+        except click.ClickException as exc:
+            click.echo(f"retol: error: {' '.join(exc.format_message().split())}", err=True)
+            sys.exit(exc.exit_code)
+        sys.exit(rv if isinstance(rv, int) else 0)
 
     def format_commands(self, ctx, formatter):
         rows = [(name, help_) for name, (_, _, help_) in SUBCOMMANDS.items()]

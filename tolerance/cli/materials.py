@@ -4,7 +4,15 @@ from __future__ import annotations
 
 import click
 
-from .common import WAVELENGTH, echo_json, extrapolate_option, json_option, table, user_errors
+from .common import (
+    FLOAT,
+    WAVELENGTH,
+    echo_json,
+    extrapolate_option,
+    json_option,
+    table,
+    user_errors,
+)
 
 
 @click.group(invoke_without_command=True)
@@ -50,7 +58,7 @@ def materials(ctx, as_json):
 )
 @click.option(
     "--temperature",
-    type=float,
+    type=FLOAT,
     default=None,
     help="Temperature [C]; default the material's reference temperature.",
 )

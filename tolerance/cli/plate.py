@@ -5,6 +5,7 @@ from __future__ import annotations
 import click
 
 from .common import (
+    FLOAT,
     LENGTH,
     WAVELENGTH,
     echo_json,
@@ -32,7 +33,7 @@ def plate_options(func):
         click.option(
             "--fast-axis",
             "fast_axis",
-            type=float,
+            type=FLOAT,
             default=0.0,
             show_default=True,
             help="Fast-axis angle of the plate [deg].",
@@ -102,7 +103,7 @@ def build_plate(
 @plate_options
 @click.option(
     "--waves",
-    type=float,
+    type=FLOAT,
     default=0.25,
     show_default=True,
     help="Target retardance [waves] (beyond the order for multi-order).",
@@ -110,7 +111,7 @@ def build_plate(
 @click.option("--from", "start", type=WAVELENGTH, help="Band start for the table.")
 @click.option("--to", "stop", type=WAVELENGTH, help="Band end for the table.")
 @click.option("--step", type=WAVELENGTH, default=10.0, show_default=True, help="Band step.")
-@click.option("--temperature", type=float, default=None, help="Plate temperature [C].")
+@click.option("--temperature", type=FLOAT, default=None, help="Plate temperature [C].")
 @extrapolate_option
 @json_option
 @user_errors

@@ -12,46 +12,91 @@ import click
 
 from .common import echo_json, table, user_errors
 
+#: What a run writes into its output folder; nothing else there is ever touched.
+OUTPUTS = ("grid.nc", "summary.csv", "figures", "report.html")
+
 
 def output_folder(out, spec_path: Path, force: bool) -> Path:
-    """The run's output folder; refuse an existing result without --force."""
+    """The run's output folder; refuse one that holds a result unless --force.
+
+    Other files in the folder are left alone, with or without --force.
+    """
+    import os
+
     from ..errors import RetolError
 
     folder = Path(out) if out else Path("reports") / spec_path.stem
     if folder.exists() and not folder.is_dir():
         raise RetolError("--out", f"{str(folder)!r} is a file", "give a folder")
-    if folder.exists() and any(folder.iterdir()) and not force:
-        raise RetolError(
-            "--out",
-            f"{str(folder)!r} already holds results",
-            "pass --force to replace them, or choose another --out",
-        )
-    parent = folder.resolve().parent
-    probe = parent
+    if folder.is_dir() and not force:
+        held = [name for name in OUTPUTS if (folder / name).exists()]
+        if held:
+            raise RetolError(
+                "--out",
+                f"{str(folder)!r} already holds results ({', '.join(held)})",
+                "pass --force to replace them, or choose another --out",
+            )
+    probe = folder.resolve()
     while not probe.exists():
         probe = probe.parent
-    import os
-
     if not probe.is_dir():
         raise RetolError("--out", f"{str(probe)!r} is a file, not a folder", "choose another --out")
-    if not os.access(probe, os.W_OK):
+    if not os.access(probe, os.W_OK | os.X_OK):
         raise RetolError("--out", f"cannot write into {str(probe)!r}", "choose a writable folder")
     return folder
 
 
+def _umask() -> int:
+    import os
+
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
 def publish(tmp: Path, folder: Path):
-    """Move a finished temporary folder into place, replacing an old one only at the end."""
+    """Move a finished temporary folder's outputs into place.
+
+    A new folder arrives in one rename.  Into an existing folder each output is moved with an
+    atomic replace (``report.html`` last), our outputs from an earlier run that this run did not
+    make are removed, and every other file is left as it was.
+    """
+    import os
+
+    mask = _umask()
+    os.chmod(tmp, 0o777 & ~mask)
+    for p in tmp.rglob("*"):
+        os.chmod(p, (0o777 if p.is_dir() else 0o666) & ~mask)
     folder.parent.mkdir(parents=True, exist_ok=True)
-    old = None
-    if folder.exists():
-        old = folder.with_name(f".{folder.name}.old-{next(tempfile._get_candidate_names())}")
-        folder.rename(old)
-    try:
-        tmp.rename(folder)
-    except OSError:
-        shutil.move(str(tmp), str(folder))
-    if old is not None:
-        shutil.rmtree(old, ignore_errors=True)
+    if not folder.exists():
+        try:
+            tmp.rename(folder)
+            return
+        except OSError:
+            pass
+    folder.mkdir(parents=True, exist_ok=True)
+    made = {p.name for p in tmp.iterdir()}
+    order = [n for n in OUTPUTS if n in made] + sorted(made - set(OUTPUTS))
+    for name in order:
+        src, dst = tmp / name, folder / name
+        if src.is_dir():
+            old = None
+            if dst.exists():
+                old = folder / f".{name}.old-{next(tempfile._get_candidate_names())}"
+                dst.rename(old)
+            src.rename(dst)
+            if old is not None:
+                shutil.rmtree(old, ignore_errors=True)
+        else:
+            os.replace(src, dst)
+    for name in OUTPUTS:
+        stale = folder / name
+        if name not in made and stale.exists():
+            if stale.is_dir():
+                shutil.rmtree(stale, ignore_errors=True)
+            else:
+                stale.unlink()
+    shutil.rmtree(tmp, ignore_errors=True)
 
 
 def summary_rows(ds):
@@ -78,6 +123,16 @@ def summary_rows(ds):
                 "nominal_worst": float(ds["nominal_worst"].sel(candidate=c)),
                 "median_worst": float(np.quantile(worst, 0.5)),
                 "p05_worst": float(np.quantile(worst, 0.05)),
+                "nominal_pass": float(
+                    ds[
+                        "nominal_worst"
+                        if ds.attrs["goal_over"] == "band"
+                        else "nominal_spectral_metric"
+                    ].sel(candidate=c)
+                ),
+                "median_pass": float(np.quantile(ds["pass_metric"].sel(candidate=c), 0.5)),
+                "p05_pass": float(np.quantile(ds["pass_metric"].sel(candidate=c), 0.05)),
+                "rank_yield": float(ds["rank_yield"].sel(candidate=c)),
                 "dominant": str(ds["dominant"].sel(candidate=c).values),
                 "nominal_dop": float(ds["nominal_dop"].sel(candidate=c)),
                 "nominal_spectral_metric": float(ds["nominal_spectral_metric"].sel(candidate=c)),
@@ -101,6 +156,12 @@ def print_summary(ds, rows):
         f"{ds.attrs['goal_over']}; source {ds.attrs.get('source_description', '')}; "
         f"{ds.attrs['samples']} samples, seed {ds.attrs['seed']}"
     )
+    spectrum = ds.attrs["goal_over"] == "spectrum"
+    if spectrum:
+        click.echo(
+            "(worst columns: over the band; spectrum columns: the source-weighted metric "
+            "the pass test uses)"
+        )
     body = []
     for r in sorted(rows, key=lambda r: r["rank"]):
         th = " + ".join(f"{la['thickness_um']:.2f}" for la in r["layers"])
@@ -113,6 +174,7 @@ def print_summary(ds, rows):
                 f"{r['nominal_worst']:.4f}",
                 f"{r['median_worst']:.4f}",
                 f"{r['p05_worst']:.4f}",
+                *([f"{r['nominal_pass']:.4f}", f"{r['p05_pass']:.4f}"] if spectrum else []),
                 f"{100 * r['yield']:.1f}% "
                 f"[{100 * r['yield_low']:.1f}, {100 * r['yield_high']:.1f}]",
                 r["dominant"],
@@ -132,6 +194,7 @@ def print_summary(ds, rows):
                 "nominal worst",
                 "median worst",
                 "p05 worst",
+                *(["nominal (spectrum)", "p05 (spectrum)"] if spectrum else []),
                 "yield [95% CI]",
                 "dominant",
                 "nominal DOP",
@@ -160,10 +223,21 @@ def execute(
     quiet=False,
 ):
     """Run a spec end to end: Monte Carlo, grid, report, all written atomically into --out."""
+    from ..errors import RetolError
     from ..grid import save_grid
     from ..montecarlo import run as mc_run
 
-    folder = output_folder(out, spec_path, force)
+    folder = output_folder(out, spec_path, force).resolve()
+    # make the temporary folder first, so that an unwritable place fails before the long run
+    try:
+        folder.parent.mkdir(parents=True, exist_ok=True)
+        tmp = Path(tempfile.mkdtemp(prefix=f".{folder.name}.part-", dir=folder.parent))
+    except OSError as exc:
+        raise RetolError(
+            "--out",
+            f"cannot write into {str(folder.parent)!r} ({exc.strerror or exc})",
+            "choose a folder you can write to",
+        ) from None
     bar = None
     state = {"last": 0}
 
@@ -180,20 +254,25 @@ def execute(
         state["last"] = done
 
     try:
-        ds = mc_run(spec, samples=samples, seed=seed, chunk_size=chunk_size, progress=progress)
-    finally:
-        if bar is not None:
-            bar.__exit__(None, None, None)
-    ds.attrs["command"] = " ".join(shlex.quote(a) for a in (argv or ["retol"] + sys.argv[1:]))
-    folder.parent.mkdir(parents=True, exist_ok=True)
-    tmp = Path(tempfile.mkdtemp(prefix=f".{folder.name}.part-", dir=folder.parent))
-    try:
+        try:
+            ds = mc_run(spec, samples=samples, seed=seed, chunk_size=chunk_size, progress=progress)
+        finally:
+            if bar is not None:
+                bar.__exit__(None, None, None)
+        ds.attrs["command"] = " ".join(shlex.quote(a) for a in (argv or ["retol"] + sys.argv[1:]))
         save_grid(ds, tmp / "grid.nc")
         if write_report:
             from ..report import write_report as _write
 
             _write(ds, tmp, formats=formats, force=True, command=ds.attrs["command"])
         publish(tmp, folder)
+    except OSError as exc:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise RetolError(
+            "--out",
+            f"cannot write the results into {str(folder)!r} ({exc.strerror or exc})",
+            "choose a folder you can write to",
+        ) from None
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise
@@ -221,7 +300,7 @@ def execute(
 )
 @click.option(
     "--out",
-    type=click.Path(file_okay=False, path_type=Path),
+    type=click.Path(path_type=Path),
     help="Output folder [default: reports/<spec file stem>/].",
 )
 @click.option("--force", is_flag=True, help="Replace an existing output folder.")

@@ -4,21 +4,21 @@ from __future__ import annotations
 
 import click
 
-from .common import WAVELENGTH, echo_json, extrapolate_option, json_option, user_errors
+from .common import FLOAT, WAVELENGTH, echo_json, extrapolate_option, json_option, user_errors
 from .plate import build_plate, plate_options
 
 
 @click.command()
 @click.option(
     "--waves",
-    type=float,
+    type=FLOAT,
     default=None,
     help="Retardance of an ideal plate [waves]; or describe a real plate with --material.",
 )
 @click.option(
     "--input",
     "input_deg",
-    type=float,
+    type=FLOAT,
     default=0.0,
     show_default=True,
     help="Azimuth of the linear input [deg].",
@@ -26,17 +26,17 @@ from .plate import build_plate, plate_options
 @plate_options
 @click.option("--at", "at", type=WAVELENGTH, help="Wavelength for a real plate (default: design).")
 @click.option(
-    "--tilt", type=float, default=0.0, show_default=True, help="Angle of incidence [deg]."
+    "--tilt", type=FLOAT, default=0.0, show_default=True, help="Angle of incidence [deg]."
 )
 @click.option(
     "--tilt-azimuth",
     "tilt_azimuth",
-    type=float,
+    type=FLOAT,
     default=0.0,
     show_default=True,
     help="Azimuth of the plane of incidence from x [deg].",
 )
-@click.option("--temperature", type=float, default=None, help="Plate temperature [C].")
+@click.option("--temperature", type=FLOAT, default=None, help="Plate temperature [C].")
 @click.option(
     "--target",
     default=None,
@@ -44,7 +44,7 @@ from .plate import build_plate, plate_options
 )
 @click.option(
     "--analyzer",
-    type=float,
+    type=FLOAT,
     default=None,
     help="Also give the extinction ratio through a linear analyzer at this angle [deg].",
 )
