@@ -428,11 +428,12 @@ def build_grid(spec, wl, spectrum, cases, results, qs, tol_names, seed, n, chunk
                 "thermal_source": m.thermal_source,
                 "valid_nm": [m.valid_min_nm, m.valid_max_nm],
             }
-    clean_spec = {k: v for k, v in spec.items() if k not in ("base_dir",)}
+    clean_spec = {k: v for k, v in spec.items() if k not in ("base_dir", "source_text")}
     attrs = {
         "title": spec["title"],
         "spec": json.dumps(clean_spec, sort_keys=True),
         "spec_path": str(spec.get("spec_path", "")),
+        "spec_toml": str(spec.get("source_text", "")),
         "seed": int(seed),
         "samples": int(n),
         "chunk_size": int(chunk),

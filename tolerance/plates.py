@@ -186,6 +186,12 @@ def film(material, waves, design_nm, axis_deg=0.0, retardance_nm=None, **_):
     ``retardance_nm`` at ``design_nm`` (the reference), or ``waves``·``design_nm`` when absent.
     """
     m = get_material(material)
+    if m.kind != "film":
+        raise RetolError(
+            "material",
+            f"{m.name} is a crystal, not a retarder film",
+            "use a film material (polycarbonate, pva) or a crystal construction such as zero-order",
+        )
     if retardance_nm is not None:
         r = _positive(retardance_nm, "retardance")
     else:
@@ -275,6 +281,8 @@ def design_plate(
     if design_nm is None:
         design_nm = float(np.mean([la.material.valid_min_nm for la in layers]))
     w = float(waves) if waves is not None else float("nan")
+    if construction == "film":
+        w = details["retardance_nm"] / float(design_nm)  # a film is specified by its retardance
     return Plate(
         name=name or f"{construction} {material or 'stack'}",
         construction=construction,

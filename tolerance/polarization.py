@@ -18,6 +18,8 @@ import numpy as np
 ROTATIONS = ("clockwise", "counterclockwise", "linear")
 #: Below this |S3|/P the state is called linear.
 LINEAR_TOLERANCE = 1e-9
+#: Below this (S1² + S2²)^½/P the state is called circular and its azimuth set to 0.
+CIRCULAR_TOLERANCE = 1e-9
 
 
 def retarder_jones(retardance_rad, fast_axis_deg):
@@ -114,6 +116,8 @@ def ellipse(stokes):
     chi = 0.5 * np.arcsin(q)
     psi = 0.5 * np.degrees(np.arctan2(s2, s1))
     psi = np.where(psi <= -90.0, psi + 180.0, psi)
+    # exactly circular light has no major axis: report 0 rather than the angle of round-off
+    psi = np.where(np.hypot(s1, s2) <= CIRCULAR_TOLERANCE * np.maximum(P, 1e-300), 0.0, psi)
     rotation = np.where(q > LINEAR_TOLERANCE, 1, np.where(q < -LINEAR_TOLERANCE, -1, 0))
     return {
         "azimuth_deg": psi,

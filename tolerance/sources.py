@@ -455,7 +455,9 @@ def parse_drift(value, field: str, center_nm: float) -> dict:
     def width(key):
         nm = interval_nm(value[key], f"{field}.{key}")
         if nm < 0:
-            raise RetolError(f"{field}.{key}", f"must not be negative, got {value[key]!r}")
+            raise RetolError(
+                f"{field}.{key}", f"must not be negative, got {value[key]!r}", "give a width >= 0"
+            )
         return nm
 
     if kind == "sigma":

@@ -555,12 +555,13 @@ def load_spec(path) -> dict:
     if not p.is_file():
         raise RetolError(str(p), "no such spec file", "check the path")
     try:
-        with p.open("rb") as f:
-            raw = tomllib.load(f)
+        text = p.read_bytes().decode("utf-8")
+        raw = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise RetolError(p.name, f"is not valid TOML ({exc})", "fix the syntax") from None
     except UnicodeDecodeError:
         raise RetolError(p.name, "is not UTF-8 text", "save it as UTF-8") from None
     spec = validate(raw, str(p))
     spec["base_dir"] = str(p.parent.resolve())
+    spec["source_text"] = text
     return spec

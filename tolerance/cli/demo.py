@@ -95,6 +95,7 @@ def demo(name, list_, spec_only, out, force, samples, formats, as_json):
 
     spec = validate(tomllib.loads(text), f"{name}.toml")
     spec["base_dir"] = str(Path(str(resources.files("tolerance.examples"))))
+    spec["source_text"] = text
     folder = Path(out) if out else Path("reports") / "demo"
     argv = ["retol", "demo", name] + (["--samples", str(samples)] if samples else [])
     _, folder = execute(

@@ -81,6 +81,26 @@ def build_plate(
     from ..errors import RetolError
     from ..plates import design_plate
 
+    given = {
+        "--order": order,
+        "--thick-plate": thick_plate,
+        "--partner": partner,
+        "--match": match or None,
+        "--retardance": retardance_nm,
+    }
+    applies = {
+        "multi-order": ("--order",),
+        "compound": ("--thick-plate",),
+        "achromatic": ("--partner", "--match"),
+        "film": ("--retardance",),
+    }
+    for opt, value in given.items():
+        if value is not None and opt not in applies.get(construction, ()):
+            raise RetolError(
+                opt,
+                f"does not apply to a {construction} plate",
+                "remove it, or choose the construction it belongs to",
+            )
     if match and len(match) != 2:
         raise RetolError("--match", "needs exactly two wavelengths", "give --match twice")
     if waves is not None and waves <= 0:
@@ -175,7 +195,13 @@ def plate(
             "thickness_um": float(la.thickness_um),
             "axis_deg": float(la.axis_deg),
             "kind": la.material.kind,
-            "fast_axis_is": "optic axis" if la.material.negative else "perpendicular to optic axis",
+            "fast_axis_is": (
+                "optic axis"
+                if la.material.negative
+                else "across the stretch direction"
+                if la.material.kind == "film"
+                else "perpendicular to optic axis"
+            ),
         }
         for la in p.layers
     ]

@@ -104,6 +104,8 @@ def state(
         J = retarder_jones(2 * np.pi * waves, fast_axis)
         label = f"ideal {waves:g}-wave plate"
     else:
+        if design is None and at is not None:
+            design = at
         p = build_plate(
             material,
             construction,
@@ -130,12 +132,12 @@ def state(
     S = S / S[0]
     e = ellipse(S)
     out = {
-        "azimuth_deg": float(e["azimuth_deg"]),
-        "ellipticity_angle_deg": float(e["ellipticity_angle_deg"]),
-        "axial_ratio": float(e["axial_ratio"]),
+        "azimuth_deg": float(e["azimuth_deg"]) + 0.0,  # + 0.0 turns -0.0 into 0.0
+        "ellipticity_angle_deg": float(e["ellipticity_angle_deg"]) + 0.0,
+        "axial_ratio": float(e["axial_ratio"]) + 0.0,
         "rotation": rotation_name(e["rotation"]),
         "handedness": handedness_name(e["rotation"]),
-        "stokes": [float(x) for x in S],
+        "stokes": [float(x) + 0.0 for x in S],
     }
     if analyzer is not None:
         out["extinction_db"] = float(analyzer_extinction_db(S, analyzer))
@@ -157,14 +159,23 @@ def state(
         echo_json(out)
         return
     click.echo(f"{label}, fast axis {fast_axis:g} deg, linear input at {input_deg:g} deg")
-    click.echo(f"  major-axis azimuth   {out['azimuth_deg']:9.4f} deg")
-    click.echo(f"  ellipticity angle    {out['ellipticity_angle_deg']:9.4f} deg")
-    click.echo(f"  axial ratio b/a      {out['axial_ratio']:9.5f}")
-    click.echo(
-        f"  rotation             {out['rotation']} looking toward the source "
-        f"({out['handedness']}-handed)"
-    )
-    click.echo("  Stokes [S0 S1 S2 S3] " + " ".join(f"{x:+.5f}" for x in out["stokes"]))
+
+    def z(x):
+        return 0.0 if abs(x) < 5e-13 else x  # no "-0.0000" for round-off
+
+    circular = out["axial_ratio"] > 1 - 1e-9
+    az = "undefined (circular)" if circular else f"{z(out['azimuth_deg']):9.4f} deg"
+    click.echo(f"  major-axis azimuth   {az}")
+    click.echo(f"  ellipticity angle    {z(out['ellipticity_angle_deg']):9.4f} deg")
+    click.echo(f"  axial ratio b/a      {z(out['axial_ratio']):9.5f}")
+    if out["rotation"] == "linear":
+        click.echo("  rotation             none (linear polarization)")
+    else:
+        click.echo(
+            f"  rotation             {out['rotation']} looking toward the source "
+            f"({out['handedness']}-handed)"
+        )
+    click.echo("  Stokes [S0 S1 S2 S3] " + " ".join(f"{z(x):+.5f}" for x in out["stokes"]))
     if target is not None:
         click.echo(f"  fidelity to {target:<10s}   {out['fidelity']:9.6f}")
     if analyzer is not None:
