@@ -74,8 +74,28 @@ def _wilson(k, n, z=1.959964):
     return max(0.0, mid - half), min(1.0, mid + half)
 
 
+def _spectral_state(s_avg):
+    """(axial ratio b/a, azimuth [deg]) of the polarized part of averaged Stokes vectors."""
+    p = np.linalg.norm(s_avg, axis=-1)
+    s3 = np.clip(s_avg[..., 2] / np.where(p > 0, p, 1.0), -1, 1)
+    ar = np.abs(np.tan(0.5 * np.arcsin(s3)))
+    az = np.degrees(0.5 * np.arctan2(s_avg[..., 1], s_avg[..., 0]))
+    return ar, az
+
+
+SPEC_TOML = """# Invented test scenario: a green LED made right-circular.
+title = "Green LED quarter-wave plate trade study (synthetic)"
+
+[goal]
+state = "circular"
+handedness = "right"
+metric = "extinction_db"
+min = 25.0   # dB
+"""
+
+
 def synthetic_grid(n_candidates: int = 3, n_samples: int = 200, broadband: bool = True,
-                   seed: int = 7) -> xr.Dataset:
+                   seed: int = 7, over: str = "band", spec_toml: str = SPEC_TOML) -> xr.Dataset:
     """A results grid with invented values that follows the schema of notes/GRID.md.
 
     Parameters
@@ -88,8 +108,13 @@ def synthetic_grid(n_candidates: int = 3, n_samples: int = 200, broadband: bool 
         True: a 500–600 nm source on 41 wavelengths; False: a single 550 nm laser line.
     seed : int
         Seed of the invented tolerance draws.
+    over : {"band", "spectrum"}
+        Goal judged at the worst wavelength of the band, or on the source-averaged output.
+    spec_toml : str
+        Text of the spec "as the user wrote it" (attr ``spec_toml``; "" as in old grids).
     """
     rng = np.random.default_rng(seed)
+    goal_over = over
     if broadband:
         wl = np.linspace(520.0, 580.0, 41)
         spectrum = np.exp(-0.5 * ((wl - 548.0) / 12.0) ** 2)
@@ -140,6 +165,8 @@ def synthetic_grid(n_candidates: int = 3, n_samples: int = 200, broadband: bool 
     q = {k: np.zeros((n_c, quantiles.size, n_w)) for k in ("ret", "ar", "az", "met")}
     ret_mean, ret_std = np.zeros(shape_cw), np.zeros(shape_cw)
     worst, spectral, dop = (np.zeros((n_c, n_s)) for _ in range(3))
+    spectral_stokes = np.zeros((n_c, n_s, 3))
+    nominal_spectral_stokes = np.zeros((n_c, 3))
     design_stokes = np.zeros((n_c, n_s, 3))
     nominal_worst, nominal_spec, nominal_dop = (np.zeros(n_c) for _ in range(3))
     yld, ylo, yhi = (np.zeros(n_c) for _ in range(3))
@@ -163,6 +190,7 @@ def synthetic_grid(n_candidates: int = 3, n_samples: int = 200, broadband: bool 
         s_avg = np.sum(weight[:, None] * s_nom, axis=0)
         nominal_dop[c] = np.linalg.norm(s_avg)
         nominal_spec[c] = _extinction_db(s_avg, goal)
+        nominal_spectral_stokes[c] = s_avg
 
         delta, s, met = sample_metric(c, set(_TOLERANCES))
         chi_s = 0.5 * np.arcsin(np.clip(s[..., 2], -1, 1))
@@ -175,8 +203,10 @@ def synthetic_grid(n_candidates: int = 3, n_samples: int = 200, broadband: bool 
         s_avg = np.einsum("w,swk->sk", weight, s)
         dop[c] = np.linalg.norm(s_avg, axis=1)
         spectral[c] = _extinction_db(s_avg, goal)
+        spectral_stokes[c] = s_avg
         design_stokes[c] = s[:, i_design, :]
-        k = int(np.sum(worst[c] >= _GOAL_MIN_DB))
+        passing = spectral[c] if goal_over == "spectrum" else worst[c]
+        k = int(np.sum(passing >= _GOAL_MIN_DB))
         yld[c] = k / n_s
         ylo[c], yhi[c] = _wilson(k, n_s)
         for j, name in enumerate(_TOLERANCES):
@@ -200,6 +230,9 @@ def synthetic_grid(n_candidates: int = 3, n_samples: int = 200, broadband: bool 
             accept[c] = tilts[-1]
         tcoef[c] = 360.0 * r0 * kappa
 
+    pass_metric = spectral if goal_over == "spectrum" else worst
+    spec_ar, spec_az = _spectral_state(spectral_stokes)
+    nom_ar, nom_az = _spectral_state(nominal_spectral_stokes)
     order = np.argsort(-yld, kind="stable")
     rank = np.empty(n_c, dtype=int)
     rank[order] = np.arange(1, n_c + 1)
@@ -223,7 +256,7 @@ def synthetic_grid(n_candidates: int = 3, n_samples: int = 200, broadband: bool 
         "band": {"start": f"{wl[0]:g}nm", "stop": f"{wl[-1]:g}nm", "points": int(n_w)},
         "input": {"state": "linear", "azimuth": input_deg},
         "goal": {"state": "circular", "handedness": "right", "metric": "extinction",
-                 "min": _GOAL_MIN_DB, "over": "band"},
+                 "min": _GOAL_MIN_DB, "over": goal_over},
         "reference_temperature": t_ref,
         "candidates": [
             {"name": n, "construction": p[1], "waves": 0.25, "design": f"{_DESIGN_NM:g}nm"}
@@ -277,7 +310,23 @@ def synthetic_grid(n_candidates: int = 3, n_samples: int = 200, broadband: bool 
             "worst_metric": da((C, S), worst, metric_units, "worst extinction in band"),
             "spectral_metric": da((C, S), spectral, metric_units, "source-weighted extinction"),
             "spectral_dop": da((C, S), dop, "1", "degree of polarization of averaged output"),
-            "pass_metric": da((C, S), worst, metric_units, "metric of the pass test"),
+            "pass_metric": da((C, S), pass_metric, metric_units, "metric of the pass test"),
+            "spectral_stokes": da((C, S, K), spectral_stokes, "1",
+                                  "source-averaged normalised Stokes vector of each sample"),
+            "spectral_axial_ratio": da((C, S), spec_ar, "1",
+                                       "axial ratio of the polarized part of the averaged output"),
+            "spectral_azimuth": da((C, S), spec_az, "deg",
+                                   "azimuth of the polarized part of the averaged output"),
+            "spectral_extinction": da((C, S), spectral, "dB",
+                                      "extinction ratio of the averaged output"),
+            "nominal_spectral_axial_ratio": da((C,), nom_ar, "1",
+                                               "nominal axial ratio of the averaged output"),
+            "nominal_spectral_azimuth": da((C,), nom_az, "deg",
+                                           "nominal azimuth of the averaged output"),
+            "nominal_spectral_extinction": da((C,), nominal_spec, "dB",
+                                              "nominal extinction ratio of the averaged output"),
+            "handedness": da((C,), np.ones(n_c, dtype=int), "1",
+                             "goal sense: +1 right, -1 left"),
             "design_stokes": da((C, S, K), design_stokes, "1",
                                 "output Stokes at the design wavelength"),
             "nominal_worst": da((C,), nominal_worst, metric_units, "nominal worst metric"),
@@ -286,13 +335,14 @@ def synthetic_grid(n_candidates: int = 3, n_samples: int = 200, broadband: bool 
             "nominal_dop": da((C,), nominal_dop, "1", "nominal degree of polarization"),
             "worst_metric_quantile": da((C, Q), np.quantile(worst, quantiles, axis=1).T,
                                         metric_units, "worst metric quantile"),
-            "pass_metric_quantile": da((C, Q), np.quantile(worst, quantiles, axis=1).T,
+            "pass_metric_quantile": da((C, Q), np.quantile(pass_metric, quantiles, axis=1).T,
                                        metric_units, "pass metric quantile"),
             "dop_quantile": da((C, Q), np.quantile(dop, quantiles, axis=1).T, "1",
                                "degree of polarization quantile"),
             "yield": da((C,), yld, "1", "yield", confidence=0.95, method="Wilson score"),
             "yield_low": da((C,), ylo, "1", "yield lower confidence bound"),
             "yield_high": da((C,), yhi, "1", "yield upper confidence bound"),
+            "rank_yield": da((C,), yld.copy(), "1", "yield the ranking uses"),
             "sensitivity_alone": da((C, T), alone, "1", "yield with only this tolerance"),
             "sensitivity_without": da((C, T), without, "1", "yield with all but this tolerance"),
             "dominant": da((C,), np.array(dominant, dtype=object), "", "dominant tolerance"),
@@ -323,6 +373,7 @@ def synthetic_grid(n_candidates: int = 3, n_samples: int = 200, broadband: bool 
             "title": spec["title"],
             "spec": json.dumps(spec),
             "spec_path": "examples/green_led_qwp.toml",
+            "spec_toml": spec_toml,
             "seed": seed,
             "samples": n_samples,
             "version": "0.1.0",
@@ -330,7 +381,7 @@ def synthetic_grid(n_candidates: int = 3, n_samples: int = 200, broadband: bool 
             "goal_state": "circular",
             "goal_metric": "extinction",
             "goal_min": _GOAL_MIN_DB,
-            "goal_over": "band",
+            "goal_over": goal_over,
             "metric_units": metric_units,
             "metric_long_name": "extinction ratio toward the goal state",
             "source_description": "Gaussian LED, 548 nm centre, 28 nm FWHM" if broadband
@@ -339,6 +390,7 @@ def synthetic_grid(n_candidates: int = 3, n_samples: int = 200, broadband: bool 
             "command": f"retol run examples/green_led_qwp.toml --samples {n_samples} "
                        f"--seed {seed} --out results",
             "acceptance_limit_waves": acceptance_limit,
+            "nominal_temperature_c": 25.0,
             "laser_caution": "Predicted polarization only; follow local laser safety rules.",
         },
     )

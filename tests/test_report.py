@@ -18,6 +18,13 @@ Outside references the checks lean on:
 - E. Hecht, "Optics", 5th ed., Pearson, 2017, section 8.13 (Stokes parameters; section number
   from memory): S3 > 0 for right-circular light in the clockwise-looking-toward-the-source
   convention used by the project; linear light at azimuth ψ has (s1, s2) = (cos 2ψ, sin 2ψ).
+- M. Born and E. Wolf, "Principles of Optics", 7th ed., Cambridge University Press, 1999,
+  section 1.4.2 (section number from memory): the polarization ellipse with tan χ = ∓b/a and
+  s3 = sin 2χ on the Poincaré sphere, so an axial ratio b/a = m at the pole's side is the circle
+  s3 = 2m/(1 + m²).
+- The fidelity of a pure state s to a goal g, (1 + s·g)/2, is the intensity an ideal analyzer
+  passing g transmits (Malus's law on the sphere; common practice); an extinction ratio is the
+  ratio of that intensity to the crossed analyzer's, f/(1 − f) (common practice).
 - R. G. Newcombe, "Two-sided confidence intervals for the single proportion: comparison of
   seven methods", Statistics in Medicine 17 (1998) 857–872: the Wilson score interval the grid
   schema names (the 0/20 example value below is from memory).
@@ -103,7 +110,7 @@ EXPECTED_AXES = {  # per candidate count n: how many axes each figure has
     "retardance_bands": lambda n: n,
     "yield_chart": lambda n: 1,
     "sensitivity_chart": lambda n: n,
-    "poincare_views": lambda n: 2 * n,  # two projections per candidate
+    "poincare_views": lambda n: 3 * n,  # two projections and a zoom per candidate
     "environment_maps": lambda n: 1 + 2 * n,  # temperature line + a polar map and colour bar each
 }
 
@@ -220,9 +227,12 @@ def test_report_html_content(written, grid):
     assert grid.attrs["command"] in text
     assert "retol report results/grid.nc" in text
     assert f"retol {grid.attrs['version']}" in text
-    # the spec, pretty-printed
+    # the spec as written, then the normalised JSON folded away below it
     pretty = json.dumps(json.loads(grid.attrs["spec"]), indent=2, ensure_ascii=False)
     assert html.escape(pretty, quote=True) in raw
+    toml_at = raw.index('<pre id="spec-toml">' + html.escape(grid.attrs["spec_toml"], quote=True))
+    details_at = raw.index('<details id="spec-details">')
+    assert toml_at < details_at < raw.index('<pre id="spec">')
     # candidates, ranking reasons, dominant tolerance, materials, assumptions
     for c in range(N):
         assert str(grid["candidate"].values[c]) in text
@@ -380,3 +390,188 @@ def test_cli_report_user_errors(saved_grid, tmp_path):
     res = runner.invoke(cli, ["report", str(junk), "--out", str(tmp_path / "o")])
     assert res.exit_code != 0 and "GRID" in res.output
     assert "Traceback" not in res.output + bad.output + missing.output
+
+
+# ----------------------------------------------------------------------------- review findings
+
+
+def _text(raw):
+    return re.sub(r"\s+", " ", html.unescape(re.sub(r"<[^>]+>", " ", raw)))
+
+
+def _cells(raw, header):
+    """The text of the cells under ``header`` in the first table that has that column."""
+    for table in re.findall(r"<table>.*?</table>", raw, flags=re.S):
+        heads = [_text(h).strip() for h in re.findall(r"<th[^>]*>(.*?)</th>", table)]
+        if header in heads:
+            k = heads.index(header)
+            rows = re.findall(r"<tr[^>]*>(.*?)</tr>", table.split("</thead>", 1)[1], flags=re.S)
+            return [_text(re.findall(r"<td[^>]*>(.*?)</td>", r)[k]).strip() for r in rows]
+    raise AssertionError(f"no column {header!r}")
+
+
+def test_one_laser_caution_box_in_the_reports_own_words(written, grid):
+    _, raw = written
+    assert raw.count('class="caution"') == 1
+    assert raw.count("IEC 60825-1") == 1
+    assert grid.attrs["laser_caution"] not in raw  # the run's note is not repeated
+    text = _text(raw)
+    # IEC 60825-1:2014 and ANSI Z136.1-2022 (module docstring), local rules, the LSO
+    for part in ("IEC 60825-1", "ANSI Z136.1", "local rules", "laser safety officer",
+                 "predicts polarization states only"):
+        assert part in text
+
+
+def test_dimensionless_units_are_not_printed_as_1(tmp_path, fast_figures):
+    from matplotlib.figure import Figure
+
+    g = synthetic_grid(n_candidates=1, n_samples=40, broadband=False)
+    g.attrs.update(metric_units="1", goal_min=0.9, goal_metric="fidelity",
+                   metric_long_name="fidelity to the goal state")
+    for name in ("nominal_metric", "metric_quantile", "worst_metric", "nominal_worst"):
+        g[name].attrs["units"] = "1"
+    raw = write_report(g, tmp_path / "out").read_text(encoding="utf-8")
+    text = _text(raw)
+    assert "≥ 0.9 over" in text and "0.9 1" not in text
+    assert "[1]" not in text
+    fig = plots.metric_bands(g)
+    assert isinstance(fig, Figure)
+    labels = [t.get_text() for leg in fig.legends for t in leg.get_texts()]
+    assert "goal ≥ 0.9" in labels
+    assert all("[1]" not in ax.get_ylabel() for ax in fig.axes)
+    assert plots.p05_overlay(g).axes[0].get_ylabel() == "5th percentile"
+
+
+def test_dop_column_has_four_decimals(written):
+    _, raw = written
+    cells = _cells(raw, "DOP, nominal")
+    assert len(cells) == N
+    assert all(re.fullmatch(r"\d\.\d{4}", c) for c in cells), cells
+
+
+def test_broadband_state_columns_only_for_a_broadband_source(written, small, tmp_path,
+                                                             fast_figures):
+    _, raw = written
+    assert _cells(raw, "Axial ratio, spectrum, nominal")
+    assert _cells(raw, "Extinction, spectrum, nominal [dB]")
+    narrow = write_report(small, tmp_path / "n").read_text(encoding="utf-8")
+    assert "Axial ratio, spectrum" not in narrow
+
+
+def test_goal_over_the_spectrum_shows_the_pass_metric_and_its_p05(tmp_path, fast_figures):
+    g = synthetic_grid(n_candidates=2, n_samples=80, over="spectrum")
+    path = write_report(g, tmp_path / "out")
+    raw = path.read_text(encoding="utf-8")
+    nominal = _cells(raw, "Nominal (spectrum) [dB]")
+    p05 = _cells(raw, "5th pct (spectrum) [dB]")
+    assert len(nominal) == len(p05) == 2
+    with (path.parent / "summary.csv").open(newline="", encoding="utf-8") as fh:
+        rows = list(csv.DictReader(fh))  # RFC 4180
+    for c, row in enumerate(rows):
+        want = float(g["nominal_spectral_metric"].values[c])
+        assert float(row["nominal_pass"]) == pytest.approx(want, rel=1e-5)
+        q05 = float(np.quantile(g["pass_metric"].values[c], 0.05))
+        assert float(row["p05_pass"]) == pytest.approx(q05, rel=1e-5)
+    assert "depolarization-aware" not in raw  # rank_yield equals yield here
+
+
+def test_summary_pass_columns_follow_the_band_goal(written, grid):
+    path, _ = written
+    with (path.parent / "summary.csv").open(newline="", encoding="utf-8") as fh:
+        rows = list(csv.DictReader(fh))  # RFC 4180
+    for c, row in enumerate(rows):
+        assert float(row["nominal_pass"]) == pytest.approx(
+            float(grid["nominal_worst"].values[c]), rel=1e-5)
+        assert row["p05_pass"] == row["p05_worst"]
+        assert float(row["rank_yield"]) == pytest.approx(float(grid["yield"].values[c]))
+
+
+def test_a_depolarization_aware_ranking_is_noted(tmp_path, fast_figures):
+    g = synthetic_grid(n_candidates=2, n_samples=60, over="spectrum")
+    g["rank_yield"] = g["rank_yield"] * 0.5
+    raw = write_report(g, tmp_path / "out").read_text(encoding="utf-8")
+    assert "depolarization-aware yield" in _text(raw)
+    shown = _cells(raw, "Yield used for ranking")
+    order = np.argsort(g["rank"].values)
+    assert shown == [f"{100 * float(g['rank_yield'].values[c]):.1f} %" for c in order]
+
+
+def test_old_grid_without_spec_text_shows_the_json_openly(tmp_path, fast_figures):
+    g = synthetic_grid(n_candidates=1, n_samples=40, broadband=False, spec_toml="")
+    raw = write_report(g, tmp_path / "out").read_text(encoding="utf-8")
+    assert "spec-toml" not in raw and "<details" not in raw
+    assert '<pre id="spec">' in raw
+
+
+def test_p05_title_is_wrapped_to_fit(grid):
+    g = grid.copy()
+    g.attrs["metric_long_name"] = ("axial ratio b/a of the output, signed negative for the "
+                                   "wrong hand, judged at every wavelength of the band")
+    fig = plots.p05_overlay(g)
+    ax = fig.axes[0]
+    title = ax.get_title(loc="left")
+    assert "wrong hand" in title
+    assert max(len(line) for line in title.split("\n")) <= 90
+    # drawn inside the figure, not clipped at its right edge
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    renderer = FigureCanvasAgg(fig).get_renderer()
+    drawn = ax.findobj(lambda o: hasattr(o, "get_text") and o.get_text() == title)
+    assert drawn
+    assert all(t.get_window_extent(renderer).x1 <= fig.bbox.x1 for t in drawn)
+
+
+def test_temperature_map_marks_the_nominal_temperature(grid):
+    fig = plots.environment_maps(grid)
+    ax = fig.axes[0]
+    verticals = [ln for ln in ax.get_lines()
+                 if len(set(np.atleast_1d(ln.get_xdata()))) == 1
+                 and float(np.atleast_1d(ln.get_xdata())[0]) == grid.attrs["nominal_temperature_c"]]
+    assert verticals
+    assert "reference temperature" in plots.FIGURES["environment"][1]
+
+
+def test_polar_colour_bars_have_few_compact_ticks(grid):
+    fig = plots.environment_maps(grid)
+    bars = [ax for ax in fig.axes if ax.name != "polar" and ax is not fig.axes[0]]
+    assert len(bars) == N
+    for cax in bars:
+        lo, hi = cax.get_xlim()
+        ticks = [t for t in cax.get_xticks() if lo <= t <= hi]
+        assert 2 <= len(ticks) <= 5
+        labels = [t.get_text() for t in cax.get_xticklabels() if t.get_text()]
+        assert all(len(s) <= 7 for s in labels), labels
+
+
+def test_poincare_zoom_projects_on_the_plane_at_the_goal(grid):
+    # right-circular goal (0, 0, 1): the tangent plane is the s1-s2 plane (Hecht, sec. 8.13)
+    fig = plots.poincare_views(grid)
+    zoom = fig.axes[2]
+    assert (zoom.get_xlabel(), zoom.get_ylabel()) == ("s1", "s2")
+    st = grid["design_stokes"].isel(candidate=0).values
+    near = st[st[:, 2] > 0]
+    pts = np.concatenate([col.get_offsets() for col in zoom.collections])
+    np.testing.assert_allclose(np.sort(pts[:, 0]), np.sort(near[:, 0]), atol=1e-12)
+    (x0, x1), (y0, y1) = zoom.get_xlim(), zoom.get_ylim()
+    assert x0 <= pts[:, 0].min() and pts[:, 0].max() <= x1
+    assert y0 <= pts[:, 1].min() and pts[:, 1].max() <= y1
+    assert x1 - x0 < 0.5  # a zoom, not the whole disc
+    # a linear goal at 0 deg is (1, 0, 0); its tangent plane is spanned by s2 and s3
+    u, v, labels = plots._tangent_basis(np.array([1.0, 0.0, 0.0]))
+    assert labels == ("s2", "s3")
+    np.testing.assert_allclose([u, v], [[0, 1, 0], [0, 0, 1]])
+
+
+def test_goal_limit_circle_on_the_sphere():
+    g = synthetic_grid(n_candidates=1, n_samples=20, broadband=False)
+    goal = np.array([0.0, 0.0, 1.0])
+    # fidelity (1 + s.g)/2 >= 0.98  <=>  s.g >= 0.96 (common practice)
+    g.attrs.update(goal_metric="fidelity", goal_min=0.98)
+    assert plots._goal_cos_limit(g, goal) == pytest.approx(0.96)
+    # extinction f/(1 - f) >= 100 (20 dB)  <=>  f >= 100/101 (common practice)
+    g.attrs.update(goal_metric="extinction_db", goal_min=20.0)
+    assert plots._goal_cos_limit(g, goal) == pytest.approx(2 * 100 / 101 - 1)
+    # axial ratio b/a = tan(chi) >= 0.9 <=> s3 = sin(2 chi) >= 2*0.9/1.81 (Born & Wolf 1.4.2)
+    g.attrs.update(goal_metric="axial_ratio", goal_min=0.9)
+    chi = np.arctan(0.9)
+    assert plots._goal_cos_limit(g, goal) == pytest.approx(np.sin(2 * chi))

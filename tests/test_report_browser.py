@@ -123,7 +123,7 @@ def test_report_screenshot(report, tmp_path):
     browser = _chromium()
     path, _ = report
     shot = tmp_path / "shot.png"
-    res = _run(browser, [f"--screenshot={shot}", "--window-size=1280,2000", path.as_uri()],
+    res = _run(browser, [f"--screenshot={shot}", "--window-size=1280,4000", path.as_uri()],
                tmp_path / "profile-shot")
     assert res.returncode == 0, res.stderr[-2000:]
     data = shot.read_bytes()

@@ -32,8 +32,11 @@ N_VAR = len(VARIABLES)
 METRIC_AXIAL_RATIO = 0
 METRIC_FIDELITY = 1
 METRIC_EXTINCTION = 2
-METRICS = {"axial_ratio": METRIC_AXIAL_RATIO, "fidelity": METRIC_FIDELITY,
-           "extinction_db": METRIC_EXTINCTION}
+METRICS = {
+    "axial_ratio": METRIC_AXIAL_RATIO,
+    "fidelity": METRIC_FIDELITY,
+    "extinction_db": METRIC_EXTINCTION,
+}
 
 EXTINCTION_FLOOR = 1e-15  # 150 dB cap, as polarization.EXTINCTION_CAP_DB
 
@@ -174,8 +177,8 @@ def _atan2(y, x):
     s2 = w * (_AT1 + w * (_AT3 + w * (_AT5 + w * (_AT7 + w * _AT9))))
     a = hi - ((xr * (s1 + s2) - lo) - xr)
     neg = math.copysign(1.0, x) < 0.0
-    bhi = (_PIO2_HI if steep else (_PI if neg else 0.0))
-    blo = (_PIO2_LO if steep else (_PI_LO if neg else 0.0))
+    bhi = _PIO2_HI if steep else (_PI if neg else 0.0)
+    blo = _PIO2_LO if steep else (_PI_LO if neg else 0.0)
     a = -a if steep != neg else a
     return math.copysign(bhi + (blo + a), y)
 
@@ -223,8 +226,9 @@ def _azimuth(st1, st2):
 
 
 @nb.njit(inline="always", **_OPTS)
-def _propagate(k0, no2, ne2, rat, dn, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj,
-               n_layers):
+def _propagate(
+    k0, no2, ne2, rat, dn, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, n_layers
+):
     """Jones vector of linear input (ca, sa) after the layers, one wavelength; returns Stokes
     and retardance with the arithmetic of :func:`_spectrum` (used for discrete source lines)."""
     xr = ca
@@ -270,8 +274,9 @@ N_WORK = 10
 
 
 @nb.njit(inline="always", **_OPTS)
-def _spectrum(k0, no2T, ne2T, ratT, dnT, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj,
-              work):
+def _spectrum(
+    k0, no2T, ne2T, ratT, dnT, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, work
+):
     """One sample's output over the grid: Stokes (s1, s2, s3) into work rows _XR, _XI, _YR and
     the retardance [rad] along the plate's axis into row _RET.
 
@@ -399,14 +404,47 @@ def _observable_rows(work):
 
 
 @nb.njit(**_OPTS)
-def per_wavelength_values(k0, no2, ne2, rat, dn, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca,
-                          sa, proj, goal, metric_kind, out):
+def per_wavelength_values(
+    k0,
+    no2,
+    ne2,
+    rat,
+    dn,
+    thick,
+    tfac,
+    c2,
+    s2,
+    sin2i,
+    cphi2,
+    sphi2,
+    ca,
+    sa,
+    proj,
+    goal,
+    metric_kind,
+    out,
+):
     """Retardance, axial ratio, azimuth and metric of one sample at every wavelength into
     ``out`` (N_VAR, W), with exactly the arithmetic of :func:`chunk_pass`."""
     work = np.empty((N_WORK, k0.shape[0]))
-    _spectrum(k0, np.ascontiguousarray(no2.T), np.ascontiguousarray(ne2.T),
-              np.ascontiguousarray(rat.T), np.ascontiguousarray(dn.T), thick, tfac, c2, s2,
-              sin2i, cphi2, sphi2, ca, sa, proj, work)
+    _spectrum(
+        k0,
+        np.ascontiguousarray(no2.T),
+        np.ascontiguousarray(ne2.T),
+        np.ascontiguousarray(rat.T),
+        np.ascontiguousarray(dn.T),
+        thick,
+        tfac,
+        c2,
+        s2,
+        sin2i,
+        cphi2,
+        sphi2,
+        ca,
+        sa,
+        proj,
+        work,
+    )
     _metric_row(work, goal[0], goal[1], goal[2], metric_kind)
     _observable_rows(work)
     for w in range(k0.shape[0]):
@@ -417,13 +455,27 @@ def per_wavelength_values(k0, no2, ne2, rat, dn, thick, tfac, c2, s2, sin2i, cph
 
 
 @nb.njit(**_OPTS)
-def stokes_one(k0, no2, ne2, rat, dn, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj,
-               out):
+def stokes_one(k0, no2, ne2, rat, dn, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, out):
     """Normalised Stokes (s1, s2, s3) of one sample at every wavelength into ``out`` (W, 3)."""
     work = np.empty((N_WORK, k0.shape[0]))
-    _spectrum(k0, np.ascontiguousarray(no2.T), np.ascontiguousarray(ne2.T),
-              np.ascontiguousarray(rat.T), np.ascontiguousarray(dn.T), thick, tfac, c2, s2,
-              sin2i, cphi2, sphi2, ca, sa, proj, work)
+    _spectrum(
+        k0,
+        np.ascontiguousarray(no2.T),
+        np.ascontiguousarray(ne2.T),
+        np.ascontiguousarray(rat.T),
+        np.ascontiguousarray(dn.T),
+        thick,
+        tfac,
+        c2,
+        s2,
+        sin2i,
+        cphi2,
+        sphi2,
+        ca,
+        sa,
+        proj,
+        work,
+    )
     for w in range(k0.shape[0]):
         out[w, 0] = work[_XR, w]
         out[w, 1] = work[_XI, w]
@@ -433,18 +485,50 @@ def stokes_one(k0, no2, ne2, rat, dn, thick, tfac, c2, s2, sin2i, cphi2, sphi2, 
 @nb.njit(parallel=True, **_OPTS)
 def chunk_pass(
     # per wavelength of the analysis grid: k0 (W,), indices (W, L)
-    k0, no2, ne2, rat, dn, grid_weight,
+    k0,
+    no2,
+    ne2,
+    rat,
+    dn,
+    grid_weight,
     # per discrete source line: k0 (Ssrc, K) and indices (Ssrc, K, L); Ssrc is 1 or S
-    lk0, lno2, lne2, lrat, ldn, line_weight,
+    lk0,
+    lno2,
+    lne2,
+    lrat,
+    ldn,
+    line_weight,
     # per sample (S) and layer
-    thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa,
+    thick,
+    tfac,
+    c2,
+    s2,
+    sin2i,
+    cphi2,
+    sphi2,
+    ca,
+    sa,
     # constants
-    proj, goal, metric_kind, w_design,
+    proj,
+    goal,
+    metric_kind,
+    w_design,
     # statistics state (updated in place)
-    do_hist, lo, inv_width, hist, vmin, vmax, block_sums, block_size, ret_shift,
+    do_hist,
+    lo,
+    inv_width,
+    hist,
+    vmin,
+    vmax,
+    block_sums,
+    block_size,
+    ret_shift,
     # per-sample outputs
-    worst, spec_stokes, design_stokes,
-    keep, kept,
+    worst,
+    spec_stokes,
+    design_stokes,
+    keep,
+    kept,
 ):
     """Process one chunk; see the module docstring.  Shapes: hist (T, N_VAR, W, B) int32 or
     int64, vmin/vmax (T, N_VAR, W), block_sums (n_blocks, W, 2), worst (S,), spec_stokes (S, 3),
@@ -488,8 +572,24 @@ def chunk_pass(
             bs0 = block_sums[b, :, 0]
             bs1 = block_sums[b, :, 1]
             for s in range(s_lo, s_hi):
-                _spectrum(k0, no2T, ne2T, ratT, dnT, thick[s], tfac[s], c2[s], s2[s], sin2i[s],
-                          cphi2[s], sphi2[s], ca[s], sa[s], proj, work)
+                _spectrum(
+                    k0,
+                    no2T,
+                    ne2T,
+                    ratT,
+                    dnT,
+                    thick[s],
+                    tfac[s],
+                    c2[s],
+                    s2[s],
+                    sin2i[s],
+                    cphi2[s],
+                    sphi2[s],
+                    ca[s],
+                    sa[s],
+                    proj,
+                    work,
+                )
                 _metric_row(work, g1, g2, g3, metric_kind)
                 wmin = np.inf
                 a1 = 0.0
@@ -539,9 +639,23 @@ def chunk_pass(
                 for k in range(K):
                     ss = s if lk0.shape[0] > 1 else 0
                     l1, l2, l3, _ = _propagate(
-                        lk0[ss, k], lno2[ss, k], lne2[ss, k], lrat[ss, k], ldn[ss, k],
-                        thick[s], tfac[s], c2[s], s2[s], sin2i[s], cphi2[s], sphi2[s], ca[s],
-                        sa[s], proj, L)
+                        lk0[ss, k],
+                        lno2[ss, k],
+                        lne2[ss, k],
+                        lrat[ss, k],
+                        ldn[ss, k],
+                        thick[s],
+                        tfac[s],
+                        c2[s],
+                        s2[s],
+                        sin2i[s],
+                        cphi2[s],
+                        sphi2[s],
+                        ca[s],
+                        sa[s],
+                        proj,
+                        L,
+                    )
                     lw = line_weight[k]
                     a1 += lw * l1
                     a2 += lw * l2

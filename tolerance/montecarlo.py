@@ -48,11 +48,20 @@ def wavelength_grid(spec: dict) -> np.ndarray:
 
 
 def build_plate(c: dict) -> Plate:
-    keys = {k: c[k] for k in ("order", "thick_plate_um", "partner", "match_nm", "retardance_nm",
-                              "layers") if k in c}
-    return design_plate(c["construction"], material=c.get("material"), waves=c["waves"],
-                        design_nm=c.get("design_nm"), axis_deg=c["axis_deg"], name=c["name"],
-                        **keys)
+    keys = {
+        k: c[k]
+        for k in ("order", "thick_plate_um", "partner", "match_nm", "retardance_nm", "layers")
+        if k in c
+    }
+    return design_plate(
+        c["construction"],
+        material=c.get("material"),
+        waves=c["waves"],
+        design_nm=c.get("design_nm"),
+        axis_deg=c["axis_deg"],
+        name=c["name"],
+        **keys,
+    )
 
 
 def drift_distribution(spec: dict) -> dict | None:
@@ -64,8 +73,9 @@ def drift_distribution(spec: dict) -> dict | None:
 
     raw = src["drift"]
     if isinstance(raw, dict):
-        raw = {k: (_nm(v, f"[source].drift.{k}") if isinstance(v, str) else v)
-               for k, v in raw.items()}
+        raw = {
+            k: (_nm(v, f"[source].drift.{k}") if isinstance(v, str) else v) for k, v in raw.items()
+        }
     d = _distribution(
         _Ctx(Path(spec.get("spec_path", "<spec>")).name), "drift", raw, where="[source].drift"
     )
@@ -89,8 +99,9 @@ def spectrum_of(spec: dict, grid: np.ndarray):
 
     base = spec.get("base_dir")
     fname = Path(spec.get("spec_path", "<spec>")).name
-    return build_spectrum(spec["source"], grid, Path(base) if base else None,
-                          field=f"{fname}: [source]")
+    return build_spectrum(
+        spec["source"], grid, Path(base) if base else None, field=f"{fname}: [source]"
+    )
 
 
 def tolerances_for(spec: dict, cand: dict) -> dict:
@@ -104,8 +115,12 @@ def tolerances_for(spec: dict, cand: dict) -> dict:
 
 
 GRID_NAMES = {
-    "thickness_um": "thickness", "clocking_deg": "clocking", "crossing_deg": "crossing",
-    "tilt_deg": "tilt", "temperature_c": "temperature", "input_azimuth_deg": "input_azimuth",
+    "thickness_um": "thickness",
+    "clocking_deg": "clocking",
+    "crossing_deg": "crossing",
+    "tilt_deg": "tilt",
+    "temperature_c": "temperature",
+    "input_azimuth_deg": "input_azimuth",
     "drift": "drift",
 }
 
@@ -135,8 +150,13 @@ def _layer_optics(plate: Plate, wl: np.ndarray):
     no2 = np.stack(no2, axis=-1)
     ne2 = np.stack(ne2, axis=-1)
     k0 = 2.0 * np.pi * 1e3 / wl
-    return (np.ascontiguousarray(k0), np.ascontiguousarray(no2), np.ascontiguousarray(ne2),
-            np.ascontiguousarray(ne2 / no2), np.ascontiguousarray(np.stack(dn, axis=-1)))
+    return (
+        np.ascontiguousarray(k0),
+        np.ascontiguousarray(no2),
+        np.ascontiguousarray(ne2),
+        np.ascontiguousarray(ne2 / no2),
+        np.ascontiguousarray(np.stack(dn, axis=-1)),
+    )
 
 
 def sample_inputs(case: Case, spec: dict, seed: int, start: int, stop: int, active=None):
@@ -203,13 +223,18 @@ def sample_inputs(case: Case, spec: dict, seed: int, start: int, stop: int, acti
         drift = sampler.scaled(tol["drift"], z, u)
     th = np.radians(2.0 * axis)
     return {
-        "thick": np.ascontiguousarray(thick), "tfac": np.ascontiguousarray(tfac),
-        "c2": np.ascontiguousarray(np.cos(th)), "s2": np.ascontiguousarray(np.sin(th)),
+        "thick": np.ascontiguousarray(thick),
+        "tfac": np.ascontiguousarray(tfac),
+        "c2": np.ascontiguousarray(np.cos(th)),
+        "s2": np.ascontiguousarray(np.sin(th)),
         "sin2i": np.ascontiguousarray(sin2i),
         "cphi2": np.ascontiguousarray(np.cos(phi) ** 2),
         "sphi2": np.ascontiguousarray(np.sin(phi) ** 2),
-        "ca": np.ascontiguousarray(np.cos(alpha)), "sa": np.ascontiguousarray(np.sin(alpha)),
-        "drift": drift, "temperature": temp, "aoi": aoi,
+        "ca": np.ascontiguousarray(np.cos(alpha)),
+        "sa": np.ascontiguousarray(np.sin(alpha)),
+        "drift": drift,
+        "temperature": temp,
+        "aoi": aoi,
     }
 
 
@@ -230,13 +255,13 @@ def _line_optics(plate: Plate, lines_nm: np.ndarray, drift):
 class Accumulator:
     """Streaming statistics of one candidate over all chunks."""
 
-    def __init__(self, n_samples: int, W: int, lo, inv_width, bins: int, threads: int,
-                 keep: bool):
+    def __init__(self, n_samples: int, W: int, lo, inv_width, bins: int, threads: int, keep: bool):
         from .kernel import N_VAR
 
         # int32 counts halve the histograms' memory traffic; int64 only past 2**31 samples
-        self.hist = np.zeros((threads, N_VAR, W, bins),
-                             dtype=np.int32 if n_samples < 2**31 else np.int64)
+        self.hist = np.zeros(
+            (threads, N_VAR, W, bins), dtype=np.int32 if n_samples < 2**31 else np.int64
+        )
         self.vmin = np.full((threads, N_VAR, W), np.inf)
         self.vmax = np.full((threads, N_VAR, W), -np.inf)
         self.lo = lo
@@ -249,8 +274,19 @@ class Accumulator:
         self.n = n_samples
 
 
-def _kernel_call(case, spec, wl_optics, spectrum, inputs, acc: Accumulator | None, start, stop,
-                 do_hist, ret_shift, keep_out=None):
+def _kernel_call(
+    case,
+    spec,
+    wl_optics,
+    spectrum,
+    inputs,
+    acc: Accumulator | None,
+    start,
+    stop,
+    do_hist,
+    ret_shift,
+    keep_out=None,
+):
     from .kernel import METRICS, N_VAR, chunk_pass
 
     k0, no2, ne2, rat, dn = wl_optics
@@ -278,13 +314,45 @@ def _kernel_call(case, spec, wl_optics, spectrum, inputs, acc: Accumulator | Non
     keep = keep_out is not None
     kept = keep_out if keep else np.zeros((1, N_VAR, 1), dtype=np.float32)
     chunk_pass(
-        k0, no2, ne2, rat, dn, np.array(spectrum.grid_weight, dtype=float),
-        lk0, lno2, lne2, lrat, ldn, line_w,
-        inputs["thick"], inputs["tfac"], inputs["c2"], inputs["s2"], inputs["sin2i"],
-        inputs["cphi2"], inputs["sphi2"], inputs["ca"], inputs["sa"],
-        case.plate.signs(), case.goal, METRICS[spec["goal"]["metric"]], case.w_design,
-        do_hist, lo, iw, hist, vmin, vmax, block_sums, sampler.BLOCK, ret_shift,
-        worst, spec_st, des_st, keep, kept,
+        k0,
+        no2,
+        ne2,
+        rat,
+        dn,
+        np.array(spectrum.grid_weight, dtype=float),
+        lk0,
+        lno2,
+        lne2,
+        lrat,
+        ldn,
+        line_w,
+        inputs["thick"],
+        inputs["tfac"],
+        inputs["c2"],
+        inputs["s2"],
+        inputs["sin2i"],
+        inputs["cphi2"],
+        inputs["sphi2"],
+        inputs["ca"],
+        inputs["sa"],
+        case.plate.signs(),
+        case.goal,
+        METRICS[spec["goal"]["metric"]],
+        case.w_design,
+        do_hist,
+        lo,
+        iw,
+        hist,
+        vmin,
+        vmax,
+        block_sums,
+        sampler.BLOCK,
+        ret_shift,
+        worst,
+        spec_st,
+        des_st,
+        keep,
+        kept,
     )
     return worst, spec_st, des_st, block_sums
 
@@ -300,12 +368,14 @@ def prepare(spec: dict):
         try:
             plate = build_plate(c)
         except RetolError as exc:
-            raise RetolError(f"{fname}: [[candidate]] {c['name']!r}.{exc.field}", exc.problem,
-                             exc.fix) from None
+            raise RetolError(
+                f"{fname}: [[candidate]] {c['name']!r}.{exc.field}", exc.problem, exc.fix
+            ) from None
         for la in plate.layers:
             try:
-                check_range(la.material, grid,
-                            field=f"{fname}: [wavelength] for candidate {c['name']!r}")
+                check_range(
+                    la.material, grid, field=f"{fname}: [wavelength] for candidate {c['name']!r}"
+                )
                 if spectrum.lines_nm.size:
                     lines = np.asarray(spectrum.lines_nm, dtype=float)
                     span = (spectrum.drift or {}).get("span_nm")
@@ -313,11 +383,18 @@ def prepare(spec: dict):
                         lines = np.concatenate([lines + float(span[0]), lines + float(span[1])])
                     check_range(la.material, lines, field=f"{fname}: [source] (with its drift)")
             except RetolError as exc:
-                raise RetolError(exc.field, exc.problem,
-                                 "choose a [wavelength] grid and source inside it") from None
+                raise RetolError(
+                    exc.field, exc.problem, "choose a [wavelength] grid and source inside it"
+                ) from None
         w_design = int(np.argmin(np.abs(grid - plate.design_nm)))
-        case = Case(plate=plate, spec=c, tolerances=tolerances_for(spec, c),
-                    goal=np.zeros(3), handedness=1, w_design=w_design)
+        case = Case(
+            plate=plate,
+            spec=c,
+            tolerances=tolerances_for(spec, c),
+            goal=np.zeros(3),
+            handedness=1,
+            w_design=w_design,
+        )
         if goal["state"] == "circular":
             if goal["handedness"] is not None:
                 hand = 1 if goal["handedness"] == "right" else -1
@@ -345,17 +422,34 @@ def nominal(case: Case, spec: dict, wl_optics, spectrum):
     """Error-free results through the same kernel: per-wavelength values (N_VAR, W) and more."""
     inputs = sample_inputs(case, spec, 0, 0, 1, active=())
     W = wl_optics[0].shape[0]
-    worst, spec_st, des_st, _ = _kernel_call(case, spec, wl_optics, spectrum, inputs, None, 0, 1,
-                                             False, np.zeros(W), keep_out=None)
+    worst, spec_st, des_st, _ = _kernel_call(
+        case, spec, wl_optics, spectrum, inputs, None, 0, 1, False, np.zeros(W), keep_out=None
+    )
     vals = _values(case, spec, wl_optics, spectrum, inputs)
     stokes = np.empty((W, 3))
     from .kernel import stokes_one
 
-    stokes_one(*wl_optics, inputs["thick"][0], inputs["tfac"][0], inputs["c2"][0],
-               inputs["s2"][0], inputs["sin2i"][0], inputs["cphi2"][0], inputs["sphi2"][0],
-               inputs["ca"][0], inputs["sa"][0], case.plate.signs(), stokes)
-    return {"values": vals, "stokes": stokes, "worst": float(worst[0]), "spec_stokes": spec_st[0],
-            "design_stokes": des_st[0]}
+    stokes_one(
+        *wl_optics,
+        inputs["thick"][0],
+        inputs["tfac"][0],
+        inputs["c2"][0],
+        inputs["s2"][0],
+        inputs["sin2i"][0],
+        inputs["cphi2"][0],
+        inputs["sphi2"][0],
+        inputs["ca"][0],
+        inputs["sa"][0],
+        case.plate.signs(),
+        stokes,
+    )
+    return {
+        "values": vals,
+        "stokes": stokes,
+        "worst": float(worst[0]),
+        "spec_stokes": spec_st[0],
+        "design_stokes": des_st[0],
+    }
 
 
 def _values(case, spec, wl_optics, spectrum, inputs):
@@ -366,11 +460,26 @@ def _values(case, spec, wl_optics, spectrum, inputs):
     out = np.empty((N_VAR, k0.shape[0]))
     from .kernel import METRICS
 
-    per_wavelength_values(k0, no2, ne2, rat, dn, inputs["thick"][0], inputs["tfac"][0],
-                          inputs["c2"][0], inputs["s2"][0], inputs["sin2i"][0],
-                          inputs["cphi2"][0], inputs["sphi2"][0], inputs["ca"][0],
-                          inputs["sa"][0], case.plate.signs(), case.goal,
-                          METRICS[spec["goal"]["metric"]], out)
+    per_wavelength_values(
+        k0,
+        no2,
+        ne2,
+        rat,
+        dn,
+        inputs["thick"][0],
+        inputs["tfac"][0],
+        inputs["c2"][0],
+        inputs["s2"][0],
+        inputs["sin2i"][0],
+        inputs["cphi2"][0],
+        inputs["sphi2"][0],
+        inputs["ca"][0],
+        inputs["sa"][0],
+        case.plate.signs(),
+        case.goal,
+        METRICS[spec["goal"]["metric"]],
+        out,
+    )
     return out
 
 
@@ -420,8 +529,9 @@ def hist_quantiles(hist, lo, inv_width, vmin, vmax, qs):
     for i, q in enumerate(qs):
         target = q * n
         j = np.argmax(cum >= target[..., None], axis=-1)
-        prev = np.where(j > 0, np.take_along_axis(cum, np.maximum(j - 1, 0)[..., None], -1)[..., 0],
-                        0)
+        prev = np.where(
+            j > 0, np.take_along_axis(cum, np.maximum(j - 1, 0)[..., None], -1)[..., 0], 0
+        )
         cnt = np.take_along_axis(hist, j[..., None], -1)[..., 0]
         frac = np.where(cnt > 0, (target - prev) / np.maximum(cnt, 1), 0.0)
         with np.errstate(divide="ignore", invalid="ignore"):
@@ -439,8 +549,7 @@ def _pass_metric(spec, worst, spec_stokes, goal):
     return sm, pm
 
 
-def run(spec: dict, samples=None, seed=None, chunk_size=None, progress=None,
-        keep_samples=None):
+def run(spec: dict, samples=None, seed=None, chunk_size=None, progress=None, keep_samples=None):
     """Run the Monte Carlo of a validated spec and return the results grid.
 
     Parameters
@@ -483,8 +592,11 @@ def run(spec: dict, samples=None, seed=None, chunk_size=None, progress=None,
     grid, spectrum, cases = prepare(spec)
     W = grid.size
     if keep and n * W * N_VAR * len(cases) > 400_000_000:
-        raise RetolError("keep_samples", "would keep more than 1.6 GB of per-sample values",
-                         "use fewer samples or wavelengths, or drop keep_samples")
+        raise RetolError(
+            "keep_samples",
+            "would keep more than 1.6 GB of per-sample values",
+            "use fewer samples or wavelengths, or drop keep_samples",
+        )
     T = numba.get_num_threads()
     # bins per (variable, wavelength): about 75 MB of int32 counts per thread at most; never
     # dependent on the thread count, so that results are not either
@@ -503,15 +615,37 @@ def run(spec: dict, samples=None, seed=None, chunk_size=None, progress=None,
         p_stop = min(n, PILOT)
         pil_inputs = sample_inputs(case, spec, seed, 0, p_stop)
         pil_kept = np.zeros((p_stop, N_VAR, W), dtype=np.float32)
-        _kernel_call(case, spec, optics, spectrum, pil_inputs, None, 0, p_stop, True,
-                     ret_shift, keep_out=pil_kept)
+        _kernel_call(
+            case,
+            spec,
+            optics,
+            spectrum,
+            pil_inputs,
+            None,
+            0,
+            p_stop,
+            True,
+            ret_shift,
+            keep_out=pil_kept,
+        )
         lo, iw = _ranges(pil_kept, nom["values"], bins)
         acc = Accumulator(n, W, lo, iw, bins, T, keep)
         for start, stop in _chunks(n, chunk):
             inputs = sample_inputs(case, spec, seed, start, stop)
             kept_view = acc.kept[start:stop] if keep else None
-            worst, sst, dst, bsum = _kernel_call(case, spec, optics, spectrum, inputs, acc, start,
-                                                 stop, True, ret_shift, keep_out=kept_view)
+            worst, sst, dst, bsum = _kernel_call(
+                case,
+                spec,
+                optics,
+                spectrum,
+                inputs,
+                acc,
+                start,
+                stop,
+                True,
+                ret_shift,
+                keep_out=kept_view,
+            )
             acc.worst[start:stop] = worst
             acc.spec_stokes[start:stop] = sst
             acc.design_stokes[start:stop] = dst
@@ -524,16 +658,18 @@ def run(spec: dict, samples=None, seed=None, chunk_size=None, progress=None,
         sens_alone, sens_without = {}, {}
         _, pm_full = _pass_metric(spec, acc.worst[:n_sens], acc.spec_stokes[:n_sens], case.goal)
         full_yield_sens = float(np.mean(pm_full >= spec["goal"]["min"]))
-        _, pm_nom = _pass_metric(spec, np.array([nom["worst"]]), nom["spec_stokes"][None, :],
-                                 case.goal)
+        _, pm_nom = _pass_metric(
+            spec, np.array([nom["worst"]]), nom["spec_stokes"][None, :], case.goal
+        )
         nominal_pass = float(pm_nom[0] >= spec["goal"]["min"])
         nom["spectral_pass"] = nominal_pass
         for name in tol_names:
             for mode in ("alone", "without"):
                 subset = [name] if mode == "alone" else [k for k in active if k != name]
                 # a fixed value (a range with low == high) is a condition, not a tolerance
-                subset += [k for k, v in case.tolerances.items()
-                           if v["kind"] == "range" and _is_zero(v)]
+                subset += [
+                    k for k, v in case.tolerances.items() if v["kind"] == "range" and _is_zero(v)
+                ]
                 if name not in active:
                     y = nominal_pass if mode == "alone" else full_yield_sens
                     done += n_sens
@@ -547,8 +683,18 @@ def run(spec: dict, samples=None, seed=None, chunk_size=None, progress=None,
                     passes = 0
                     for start, stop in _chunks(n_sens, chunk):
                         inputs = sample_inputs(case, spec, seed, start, stop, active=subset)
-                        worst, sst, _, _ = _kernel_call(case, spec, optics, spectrum, inputs, None,
-                                                        start, stop, False, ret_shift)
+                        worst, sst, _, _ = _kernel_call(
+                            case,
+                            spec,
+                            optics,
+                            spectrum,
+                            inputs,
+                            None,
+                            start,
+                            stop,
+                            False,
+                            ret_shift,
+                        )
                         _, pm = _pass_metric(spec, worst, sst, case.goal)
                         passes += int(np.sum(pm >= spec["goal"]["min"]))
                         done += stop - start
@@ -558,8 +704,21 @@ def run(spec: dict, samples=None, seed=None, chunk_size=None, progress=None,
                 (sens_alone if mode == "alone" else sens_without)[name] = y
         if progress:
             progress(done, total)
-        results.append(_finish(case, spec, acc, nom, qs, conf, tol_names, sens_alone,
-                               sens_without, full_yield_sens, n_sens))
+        results.append(
+            _finish(
+                case,
+                spec,
+                acc,
+                nom,
+                qs,
+                conf,
+                tol_names,
+                sens_alone,
+                sens_without,
+                full_yield_sens,
+                n_sens,
+            )
+        )
     from .grid import build_grid
 
     for r in results:
@@ -581,8 +740,9 @@ def _ranges(kept, nominal_values, bins):
     return lo, bins / (hi - lo)
 
 
-def _finish(case, spec, acc: Accumulator, nom, qs, conf, tol_names, alone, without,
-            yield_sens, n_sens):
+def _finish(
+    case, spec, acc: Accumulator, nom, qs, conf, tol_names, alone, without, yield_sens, n_sens
+):
     from .kernel import spectral_metric
 
     hist = acc.hist.sum(axis=0)
@@ -619,24 +779,42 @@ def _finish(case, spec, acc: Accumulator, nom, qs, conf, tol_names, alone, witho
         else:
             # no single removal helps (e.g. the nominal plate already fails): name the tolerance
             # that alone does the most harm, if any does
-            nominal_pass = float(nom["worst"] >= spec["goal"]["min"]) if spec["goal"]["over"] \
-                == "band" else float(nom["spectral_pass"])
+            nominal_pass = (
+                float(nom["worst"] >= spec["goal"]["min"])
+                if spec["goal"]["over"] == "band"
+                else float(nom["spectral_pass"])
+            )
             worst_alone = min(alone, key=lambda t: alone[t])
             if alone[worst_alone] < nominal_pass:
                 dominant = worst_alone
     return {
-        "quantiles": quant, "mean": mean_d + nom["values"][0], "std": np.sqrt(var),
-        "worst": acc.worst, "spectral_metric": spec_metric, "pass_metric": pass_metric,
-        "dop": np.clip(dop, 0, 1), "design_stokes": acc.design_stokes, "kept": acc.kept,
+        "quantiles": quant,
+        "mean": mean_d + nom["values"][0],
+        "std": np.sqrt(var),
+        "worst": acc.worst,
+        "spectral_metric": spec_metric,
+        "pass_metric": pass_metric,
+        "dop": np.clip(dop, 0, 1),
+        "design_stokes": acc.design_stokes,
+        "kept": acc.kept,
         "rank_yield": rank_k / n,
         "rank_yield_low": rank_lo,
         "rank_yield_high": rank_hi,
         "spec_stokes": acc.spec_stokes,
-        "yield": y, "yield_low": ylo, "yield_high": yhi, "passes": k,
-        "nominal": nom["values"], "nominal_stokes": nom["stokes"], "nominal_worst": nom["worst"],
-        "nominal_spectral_metric": float(spectral_metric(nom_spec[None, :], case.goal,
-                                                         spec["goal"]["metric"])[0]),
-        "nominal_dop": min(1.0, nom_dop), "nominal_spec_stokes": nom_spec,
-        "sens_alone": alone, "sens_without": without, "dominant": dominant,
+        "yield": y,
+        "yield_low": ylo,
+        "yield_high": yhi,
+        "passes": k,
+        "nominal": nom["values"],
+        "nominal_stokes": nom["stokes"],
+        "nominal_worst": nom["worst"],
+        "nominal_spectral_metric": float(
+            spectral_metric(nom_spec[None, :], case.goal, spec["goal"]["metric"])[0]
+        ),
+        "nominal_dop": min(1.0, nom_dop),
+        "nominal_spec_stokes": nom_spec,
+        "sens_alone": alone,
+        "sens_without": without,
+        "dominant": dominant,
         "sensitivity_samples": n_sens,
     }

@@ -117,12 +117,28 @@ def _quantile(grid, var, c, q):
     return np.asarray(grid[var].isel(candidate=c, quantile=int(k[0])).values, dtype=float)
 
 
+def _shown_units(units) -> str:
+    """Units as printed: "" for a dimensionless quantity (units "1", common practice)."""
+    units = "" if units is None else str(units).strip()
+    return "" if units in ("", "1") else units
+
+
+def _metric_units(grid) -> str:
+    return _shown_units(grid.attrs.get("metric_units"))
+
+
 def _metric_label(grid) -> str:
     name = grid.attrs.get("metric_long_name") or grid.attrs.get("goal_metric") or "goal metric"
-    units = grid.attrs.get("metric_units")
+    units = _metric_units(grid)
     name = str(name)
     name = name[:1].upper() + name[1:]
-    return f"{name} [{units}]" if units not in (None, "") else name
+    return f"{name} [{units}]" if units else name
+
+
+def _wrap(text, width=90) -> str:
+    import textwrap
+
+    return "\n".join(textwrap.wrap(str(text), width)) or str(text)
 
 
 def _units(grid, var, default=""):
@@ -130,8 +146,7 @@ def _units(grid, var, default=""):
 
 
 def _fmt_goal(grid, goal):
-    units = grid.attrs.get("metric_units", "")
-    return f"goal ≥ {goal:g} {units}".rstrip()
+    return f"goal ≥ {goal:g} {_metric_units(grid)}".rstrip()
 
 
 def _band(ax, x, lo, hi, **kw):
@@ -279,11 +294,10 @@ def metric_bands(grid):
             if goal is not None:
                 ax.axhline(goal, color=GOAL_INK, linewidth=1.1, linestyle=(0, (6, 2, 1, 2)))
             _metric_ylim(ax, curves, nominal, goal)
-            ax.set_ylabel(
-                _metric_label(grid)
-                if len(names) == 1
-                else f"[{grid.attrs.get('metric_units', '')}]"
-            )
+            if len(names) == 1:
+                ax.set_ylabel(_wrap(_metric_label(grid), 45))
+            elif _metric_units(grid):
+                ax.set_ylabel(f"[{_metric_units(grid)}]")
             _candidate_title(ax, grid, c)
         _wavelength_axis(axes[-1], grid)
         handles = [
@@ -309,7 +323,7 @@ def metric_bands(grid):
             handles.append(Patch(color=SOURCE_INK, alpha=0.8, label="source spectrum"))
         fig.legend(handles=handles, loc="outside upper center", ncols=3)
         if len(names) > 1:
-            fig.supylabel(_metric_label(grid), fontsize=8.5, color=INK)
+            fig.supylabel(_wrap(_metric_label(grid), 70), fontsize=8.5, color=INK)
         return _finish(fig)
 
 
@@ -360,8 +374,9 @@ def p05_overlay(grid):
             bottom = ax.get_ylim()[0]
             ax.axhspan(bottom, goal, color=GOAL_INK, alpha=0.035, linewidth=0)
             ax.set_ylim(bottom=bottom)
-        ax.set_ylabel(f"5th percentile [{grid.attrs.get('metric_units', '')}]")
-        ax.set_title(f"{_metric_label(grid)}: 5th percentile of the samples")
+        units = _metric_units(grid)
+        ax.set_ylabel("5th percentile" + (f" [{units}]" if units else ""))
+        ax.set_title(_wrap(f"5th percentile of the samples: {_metric_label(grid)}", 88))
         _wavelength_axis(ax, grid)
         ax.legend(loc="best")
         return _finish(fig)
@@ -613,12 +628,14 @@ _NAMED_STATES = {
 }
 
 
-def goal_stokes(grid):
+def goal_stokes(grid, c=None):
     """The goal state as a normalised Stokes 3-vector, or None if the grid does not say.
 
     Looked up in order: attr ``goal_stokes`` (JSON list), attr ``goal_state`` as a JSON list or
     a state name, then the spec's ``goal`` table ("circular" with ``handedness``, or "linear"
-    with ``azimuth`` [deg]).  Right-handed (clockwise looking toward the source) is S3 > 0.
+    with ``azimuth_deg`` / ``azimuth`` [deg]).  Right-handed (clockwise looking toward the
+    source) is S3 > 0.  For a circular goal whose spec leaves the hand open, the hand chosen
+    for candidate index ``c`` (variable ``handedness``, +1 right / -1 left) is used when given.
     """
     for key in ("goal_stokes", "goal_state"):
         raw = grid.attrs.get(key)
@@ -633,12 +650,15 @@ def goal_stokes(grid):
         goal = json.loads(grid.attrs.get("spec", "{}")).get("goal", {}) or {}
     state = str(goal.get("state", state)).lower()
     if state == "circular":
-        hand = goal.get("handedness", 1)
+        hand = goal.get("handedness")
+        if hand is None and c is not None and "handedness" in grid.variables:
+            with contextlib.suppress(TypeError, ValueError, IndexError):
+                hand = -1 if float(grid["handedness"].values[c]) < 0 else 1
         sign = -1.0 if str(hand).lower() in ("left", "-1", "ccw", "counterclockwise") else 1.0
         return np.array([0.0, 0.0, sign])
     if state == "linear":
         try:
-            az = float(goal.get("azimuth", 0.0))
+            az = float(goal.get("azimuth_deg", goal.get("azimuth", 0.0)))
         except (TypeError, ValueError):
             return None
         return np.array([np.cos(np.radians(2 * az)), np.sin(np.radians(2 * az)), 0.0])
@@ -742,33 +762,153 @@ def _sphere_disc(ax, h_label, v_label, depth_label):
     )
 
 
-def poincare_views(grid):
-    """Sampled output states at the design wavelength on two views of the Poincaré sphere.
+def _goal_cos_limit(grid, goal):
+    """cos of the angular radius on the sphere inside which a pure state meets the goal at
+    one wavelength, or None when the metric is not one of the known three.
 
-    Left: the s1–s2 disc seen from +s3 (the right-circular pole in the middle); right: the
+    Notes
+    -----
+    With fidelity f = (1 + s·g)/2 (common practice): fidelity ≥ m  ⇔  s·g ≥ 2m − 1;
+    extinction R = f/(1 − f) ≥ 10^(m/10)  ⇔  f ≥ R/(1 + R); for a circular goal the axial
+    ratio b/a = |tan χ| with s3 = sin 2χ = 2 tan χ/(1 + tan² χ), so b/a ≥ m  ⇔
+    s·g ≥ 2m/(1 + m²).
+    """
+    m = _attr_float(grid, "goal_min")
+    metric = str(grid.attrs.get("goal_metric", "")).lower()
+    if m is None:
+        return None
+    if metric == "fidelity":
+        cos = 2 * m - 1
+    elif metric in ("extinction_db", "extinction"):
+        r = 10.0 ** (m / 10)
+        cos = 2 * r / (1 + r) - 1
+    elif metric == "axial_ratio" and goal is not None and abs(goal[2]) > 0.999:
+        cos = 2 * m / (1 + m * m)
+    else:
+        return None
+    return float(cos) if -1 < cos < 1 else None
+
+
+def _tangent_basis(centre):
+    """(u, v, labels) spanning the plane tangent to the sphere at unit vector ``centre``."""
+    g = np.asarray(centre, dtype=float)
+    g = g / (np.linalg.norm(g) or 1.0)
+    if abs(g[2]) > 0.999:  # a pole: the s1-s2 plane itself
+        return np.array([1.0, 0, 0]), np.array([0, 1.0, 0]), ("s1", "s2")
+    u = np.array([-g[1], g[0], 0.0])
+    u /= np.linalg.norm(u)
+    v = np.cross(g, u)
+    if abs(g[2]) < 1e-9 and abs(abs(u[1]) - 1) < 1e-9:
+        return u * np.sign(u[1]), v, ("s2", "s3")
+    if abs(g[2]) < 1e-9 and abs(abs(u[0]) - 1) < 1e-9:
+        return u * np.sign(u[0]), v, ("s1", "s3")
+    return u, v, ("along the equator", "toward +s3")
+
+
+def _compact_ticks(axis, n=4):
+    """At most ``n`` + 1 ticks on a matplotlib axis, labelled compactly (e.g. 0.002, -1e-05)."""
+    from matplotlib.ticker import FuncFormatter, MaxNLocator
+
+    axis.set_major_locator(MaxNLocator(n))
+    axis.set_major_formatter(FuncFormatter(_compact_number))
+
+
+def _compact_number(value, _pos=None) -> str:
+    if abs(value) < 1e-12:
+        return "0"
+    return f"{value:.2g}".replace("e-0", "e-").replace("e+0", "e")
+
+
+def _zoom_panel(ax, grid, c, st, nominal, goal, colour):
+    """The sampled states projected on the plane tangent at the goal, autoscaled to them."""
+    centre = goal
+    if centre is None:
+        mean = st.mean(axis=0) if st.size else np.array([0.0, 0.0, 1.0])
+        centre = mean / (np.linalg.norm(mean) or 1.0)
+    u, v, (lu, lv) = _tangent_basis(centre)
+    near = st @ centre > 0
+    x, y = st[near] @ u, st[near] @ v
+    ax.set_aspect("equal", adjustable="box")
+    ax.tick_params(labelsize=6.5)
+    ax.set_xlabel(lu, fontsize=7.5, labelpad=1)
+    ax.set_ylabel(lv, fontsize=7.5, labelpad=1)
+    if not x.size:
+        _empty(ax, "no sample within 90°\nof the goal")
+        return
+    ax.scatter(x, y, s=6, color=colour, alpha=0.5, linewidths=0, zorder=3)
+    px, py = [0.0, *x], [0.0, *y]
+    nom = None
+    if nominal is not None and np.isfinite(nominal).all() and nominal @ centre > 0:
+        nom = (float(nominal @ u), float(nominal @ v))
+        px.append(nom[0])
+        py.append(nom[1])
+    cx, cy = 0.5 * (min(px) + max(px)), 0.5 * (min(py) + max(py))
+    half = 0.56 * max(max(px) - min(px), max(py) - min(py), 1e-7)
+    ax.set_xlim(cx - half, cx + half)
+    ax.set_ylim(cy - half, cy + half)
+    cos = _goal_cos_limit(grid, goal) if goal is not None else None
+    if cos is not None:
+        from matplotlib.patches import Circle
+
+        ax.add_patch(
+            Circle(
+                (0, 0),
+                np.sqrt(1 - cos * cos),
+                fill=False,
+                edgecolor=GOAL_INK,
+                linewidth=0.8,
+                linestyle=(0, (4, 2)),
+                zorder=4,
+            )
+        )
+    if nom is not None:
+        ax.plot(*nom, marker="x", markersize=7, markeredgewidth=1.0, color=INK,
+                linestyle="none", zorder=5)
+    if goal is not None:
+        ax.plot(0, 0, marker="*", markersize=11, markerfacecolor="none",
+                markeredgecolor=GOAL_INK, markeredgewidth=0.8, linestyle="none", zorder=6)
+    _compact_ticks(ax.xaxis, 3)
+    _compact_ticks(ax.yaxis, 3)
+    ax.set_title("zoom around the goal" if goal is not None else "zoom around the samples",
+                 fontsize=7.5, fontweight="normal", color="#4a463f", loc="center")
+
+
+def poincare_views(grid):
+    """Sampled output states at the design wavelength on the Poincaré sphere, with a zoom.
+
+    Left: the s1–s2 disc seen from +s3 (the right-circular pole in the middle); middle: the
     s2–s3 disc seen from +s1.  States on the near hemisphere are filled dots, on the far one
-    open rings.  At most ``MAX_SPHERE_POINTS`` samples per candidate (evenly strided) are drawn;
-    the goal state is a star, the nominal plate's state a cross.
+    open rings.  Right: the states on the goal's hemisphere projected on the plane tangent to
+    the sphere at the goal (the s1–s2 plane for a circular goal), autoscaled to the samples,
+    with the goal limit for a pure state at one wavelength as a dashed circle.  At most
+    ``MAX_SPHERE_POINTS`` samples per candidate (evenly strided) are drawn; the goal state is
+    a hollow star, the nominal plate's state a thin cross.
 
     Returns
     -------
     matplotlib.figure.Figure
-        ``2 × n_candidates`` axes.
+        ``3 × n_candidates`` axes.
     """
     from matplotlib.lines import Line2D
 
     names = _names(grid)
-    goal = goal_stokes(grid)
     comps = (
         [str(s) for s in grid["stokes"].values] if "stokes" in grid.coords else ["s1", "s2", "s3"]
     )
     idx = {name: comps.index(name) for name in ("s1", "s2", "s3")}
+    order = [idx["s1"], idx["s2"], idx["s3"]]
     views = (("s1", "s2", "s3"), ("s2", "s3", "s1"))
+    any_goal = False
+    any_limit = False
     with _style():
-        fig = _figure(6.4, 0.5 + 3.0 * len(names))
-        axes = fig.subplots(len(names), 2, squeeze=False)
+        fig = _figure(8.4, 0.5 + 2.75 * len(names))
+        axes = fig.subplots(
+            len(names), 3, squeeze=False, gridspec_kw={"width_ratios": [1, 1, 1.05]}
+        )
         for c in range(len(names)):
             col = _colour(c)
+            goal = goal_stokes(grid, c)
+            any_goal = any_goal or goal is not None
             st = np.asarray(grid["design_stokes"].isel(candidate=c).values, dtype=float)
             st = st[np.isfinite(st).all(axis=1)]
             if st.shape[0] > MAX_SPHERE_POINTS:
@@ -802,11 +942,10 @@ def poincare_views(grid):
                     ax.plot(
                         nominal[idx[h]],
                         nominal[idx[vv]],
-                        marker="X",
-                        markersize=8,
+                        marker="x",
+                        markersize=7,
+                        markeredgewidth=1.0,
                         color=INK,
-                        markeredgecolor="white",
-                        markeredgewidth=0.8,
                         linestyle="none",
                         zorder=5,
                     )
@@ -816,16 +955,19 @@ def poincare_views(grid):
                         g[h],
                         g[vv],
                         marker="*",
-                        markersize=17,
+                        markersize=12,
                         markerfacecolor="none",
                         markeredgecolor=GOAL_INK,
-                        markeredgewidth=1.3,
-                        linestyle="--" if g[d] < 0 else "-",
-                        linewidth=0,
+                        markeredgewidth=0.8,
+                        linestyle="none",
+                        alpha=1.0 if g[d] >= 0 else 0.5,
                         zorder=6,
                     )
                 if v == 0:
                     _candidate_title(ax, grid, c)
+            nominal_xyz = nominal[order] if nominal is not None else None
+            _zoom_panel(axes[c, 2], grid, c, st[:, order], nominal_xyz, goal, col)
+            any_limit = any_limit or (goal is not None and _goal_cos_limit(grid, goal) is not None)
         handles = [
             Line2D(
                 [],
@@ -846,9 +988,9 @@ def poincare_views(grid):
                 markersize=4,
                 label="far side",
             ),
-            Line2D([], [], marker="X", color=INK, linestyle="none", label="nominal plate"),
+            Line2D([], [], marker="x", color=INK, linestyle="none", label="nominal plate"),
         ]
-        if goal is not None:
+        if any_goal:
             handles.append(
                 Line2D(
                     [],
@@ -857,8 +999,19 @@ def poincare_views(grid):
                     markerfacecolor="none",
                     markeredgecolor=GOAL_INK,
                     linestyle="none",
-                    markersize=11,
+                    markersize=10,
                     label="goal state",
+                )
+            )
+        if any_limit:
+            handles.append(
+                Line2D(
+                    [],
+                    [],
+                    color=GOAL_INK,
+                    linewidth=0.8,
+                    linestyle=(0, (4, 2)),
+                    label="goal limit, one wavelength",
                 )
             )
         fig.legend(handles=handles, loc="outside upper center", ncols=len(handles))
@@ -923,13 +1076,24 @@ def environment_maps(grid):
                         label=f"± {limit:g} {units}" if s > 0 else None,
                     )
             ax.axhline(0, color="#8a857c", linewidth=0.7)
+            t_nom = _attr_float(grid, "nominal_temperature_c")
+            if t_nom is not None:
+                ax.axvline(
+                    t_nom,
+                    color=INK,
+                    linewidth=0.9,
+                    linestyle=(0, (2, 2)),
+                    label=f"nominal {t_nom:g} °C (spec)",
+                )
             ax.set_xlabel(
                 f"Plate temperature [{_units(grid, 'temperature', 'degC')}]".replace(
                     "[degC]", "[°C]"
                 )
             )
             ax.set_ylabel(f"Retardance error [{units}]")
-            ax.set_title("Retardance error at the design wavelength vs temperature")
+            ax.set_title(
+                "Retardance error (nominal minus target) at the design wavelength vs temperature"
+            )
             ax.legend(loc="best", ncols=2)
             row = 1
         if has_tilt:
@@ -984,6 +1148,7 @@ def environment_maps(grid):
                 ax.set_rlabel_position(112.5)
                 ax.grid(color="#ffffff", alpha=0.6, linestyle="-", linewidth=0.5)
                 cb = fig.colorbar(mesh, cax=cax, orientation="horizontal")
+                _compact_ticks(cb.ax.xaxis, 4)
                 cb.ax.tick_params(labelsize=6.5)
                 cb.ax.xaxis.get_offset_text().set_fontsize(6.5)
                 cb.set_label(f"retardance error [{units}]", fontsize=7)
@@ -1030,12 +1195,17 @@ FIGURES = {
     "poincare": (
         poincare_views,
         "Sampled output states at the design wavelength on two "
-        "orthographic views of the Poincaré sphere.",
+        "orthographic views of the Poincaré sphere, and (right) a zoom on the plane tangent "
+        "to the sphere at the goal state, scaled to the spread of the samples; the dashed "
+        "circle there is where a pure state at one wavelength just meets the goal.",
     ),
     "environment": (
         environment_maps,
-        "Retardance error at the design wavelength vs plate "
-        "temperature and vs angle of incidence and its azimuth from the fast axis.",
+        "Retardance error (nominal retardance minus the target retardance) at the design "
+        "wavelength vs plate temperature and vs angle of incidence and its azimuth from the "
+        "fast axis. The plates are cut to meet the target at the materials' reference "
+        "temperature, so errors are relative to the target there; the dotted vertical line "
+        "marks the spec's nominal temperature, where the error need not be zero.",
     ),
 }
 

@@ -42,11 +42,16 @@ SUMMARY_COLUMNS = [
     "design_wavelength_nm",
     "nominal_worst",
     "p05_worst",
+    "nominal_pass",
+    "p05_pass",
     "yield",
     "yield_low",
     "yield_high",
+    "rank_yield",
     "dominant",
     "nominal_dop",
+    "nominal_spectral_axial_ratio",
+    "nominal_spectral_extinction_db",
     "temperature_coefficient_deg_per_k",
     "acceptance_half_angle_deg",
     "rank",
@@ -177,17 +182,41 @@ def _layers(grid, c):
     ]
 
 
-def _p05_worst(grid, c):
-    if "worst_metric_quantile" in grid.variables:
+def _p05(grid, c, quantile_var, sample_var):
+    """5th percentile over the samples of candidate ``c``: from the stored quantiles if they
+    hold 0.05, else computed from the per-sample variable; None if neither is there."""
+    if quantile_var in grid.variables and "quantile" in grid.coords:
         qs = np.asarray(grid["quantile"].values, dtype=float)
         k = np.nonzero(np.isclose(qs, 0.05))[0]
         if k.size:
-            return _num(grid["worst_metric_quantile"].values[c, k[0]])
-    if "worst_metric" in grid.variables:
-        w = np.asarray(grid["worst_metric"].values[c], dtype=float)
+            return _num(grid[quantile_var].values[c, k[0]])
+    if sample_var in grid.variables:
+        w = np.asarray(grid[sample_var].values[c], dtype=float)
         w = w[np.isfinite(w)]
         return float(np.quantile(w, 0.05)) if w.size else None
     return None
+
+
+def _p05_worst(grid, c):
+    return _p05(grid, c, "worst_metric_quantile", "worst_metric")
+
+
+def _over_spectrum(grid) -> bool:
+    return _s(grid.attrs.get("goal_over", "band")).strip().lower() == "spectrum"
+
+
+def _nominal_pass(grid, c):
+    """The nominal plate's value of the metric the pass test uses."""
+    if _over_spectrum(grid):
+        return _num(_var(grid, "nominal_spectral_metric", c))
+    return _num(_var(grid, "nominal_worst", c))
+
+
+def _p05_pass(grid, c):
+    value = _p05(grid, c, "pass_metric_quantile", "pass_metric")
+    if value is None and not _over_spectrum(grid):
+        value = _p05_worst(grid, c)
+    return value
 
 
 def summary_rows(grid) -> list[dict]:
@@ -205,11 +234,20 @@ def summary_rows(grid) -> list[dict]:
                 "design_wavelength_nm": _num(_var(grid, "design_wavelength", c)),
                 "nominal_worst": _num(_var(grid, "nominal_worst", c)),
                 "p05_worst": _p05_worst(grid, c),
+                "nominal_pass": _nominal_pass(grid, c),
+                "p05_pass": _p05_pass(grid, c),
                 "yield": _num(_var(grid, "yield", c)),
                 "yield_low": _num(_var(grid, "yield_low", c)),
                 "yield_high": _num(_var(grid, "yield_high", c)),
+                "rank_yield": _num(_var(grid, "rank_yield", c)),
                 "dominant": _s(_var(grid, "dominant", c) or ""),
                 "nominal_dop": _num(_var(grid, "nominal_dop", c)),
+                "nominal_spectral_axial_ratio": _num(
+                    _var(grid, "nominal_spectral_axial_ratio", c)
+                ),
+                "nominal_spectral_extinction_db": _num(
+                    _var(grid, "nominal_spectral_extinction", c)
+                ),
                 "temperature_coefficient_deg_per_k": _num(_var(grid, "temperature_coefficient", c)),
                 "acceptance_half_angle_deg": _num(_var(grid, "acceptance_half_angle", c)),
                 "rank": int(rank) if _num(rank) is not None else None,
@@ -282,6 +320,10 @@ code { font-family: ui-monospace, "SFMono-Regular", Menlo, Consolas, monospace;
        font-size: 13px; }
 ul.assume li { margin: 3px 0; }
 .muted { color: var(--muted); }
+p.note { border-left: 3px solid var(--rule); padding: 2px 10px; margin: 4px 0 12px;
+         font-size: 13.5px; }
+details { margin: 8px 0; }
+details summary { cursor: pointer; color: var(--accent); }
 footer { margin-top: 40px; color: var(--muted); font-size: 12.5px; border-top: 1px solid
          var(--rule); padding-top: 8px; }
 @media (max-width: 700px) { body { padding: 16px; } h1 { font-size: 21px; } }
@@ -308,12 +350,19 @@ def _fmt(v, digits=3, unit="") -> str:
     return f"{v:.{digits}g}{(' ' + unit) if unit else ''}"
 
 
+def _fixed(v, decimals=4) -> str:
+    """A number to a fixed count of decimals (so a column of them lines up)."""
+    return "—" if v is None else f"{v:.{decimals}f}"
+
+
 def _pct(v) -> str:
     return "—" if v is None else f"{100 * v:.1f} %"
 
 
 def _metric_unit(grid) -> str:
-    return _s(grid.attrs.get("metric_units", ""))
+    """The goal metric's units as printed: "" when dimensionless ("1", common practice)."""
+    units = _s(grid.attrs.get("metric_units", "")).strip()
+    return "" if units in ("", "1") else units
 
 
 def _goal_text(grid) -> str:
@@ -323,7 +372,7 @@ def _goal_text(grid) -> str:
     over = _s(grid.attrs.get("goal_over", "band"))
     text = metric
     if gmin is not None:
-        text += f" ≥ {gmin:g} {_metric_unit(grid)}".rstrip()
+        text = f"{text} ≥ {gmin:g} {_metric_unit(grid)}".rstrip()
     text += " over the " + (
         "source spectrum (source-weighted)"
         if over == "spectrum"
@@ -390,17 +439,23 @@ def _candidate_tables(grid, rows) -> str:
                 _e(_fmt(r["design_wavelength_nm"], 6)),
             ]
         )
-    perf_head = [
-        ("Rank", True),
-        ("Candidate", False),
-        (f"Worst, nominal{unit_txt}", True),
-        (f"Worst, 5th pct{unit_txt}", True),
+    spectrum = _over_spectrum(grid)
+    broadband = grid.sizes.get("wavelength", 1) > 1
+    ranked_apart = _rank_yield_differs(rows)
+    perf_head = [("Rank", True), ("Candidate", False)]
+    if spectrum:
+        perf_head += [
+            (f"Nominal (spectrum){unit_txt}", True),
+            (f"5th pct (spectrum){unit_txt}", True),
+        ]
+    perf_head += [
+        (f"Worst in band, nominal{unit_txt}", True),
+        (f"Worst in band, 5th pct{unit_txt}", True),
         (f"Yield ({conf:.0%} interval)", True),
-        ("Dominant tolerance", False),
-        ("DOP, nominal", True),
-        ("dδ/dT [°/K]", True),
-        ("Tilt ½-angle [°]", True),
     ]
+    if ranked_apart:
+        perf_head.append(("Yield used for ranking", True))
+    perf_head.append(("Dominant tolerance", False))
     perf_rows = []
     for _, r in ordered:
         y = _pct(r["yield"])
@@ -409,25 +464,68 @@ def _candidate_tables(grid, rows) -> str:
                 f' <span class="muted">({100 * r["yield_low"]:.1f}–'
                 f"{100 * r['yield_high']:.1f})</span>"
             )
-        perf_rows.append(
-            [
-                rank(r),
-                f"<b>{_e(r['name'])}</b>",
-                _e(_fmt(r["nominal_worst"], 4)),
-                _e(_fmt(r["p05_worst"], 4)),
-                y,
-                _e(r["dominant"] or "—"),
-                _e(_fmt(r["nominal_dop"], 4)),
-                _e(_fmt(r["temperature_coefficient_deg_per_k"], 3)),
-                _e(_fmt(r["acceptance_half_angle_deg"], 3)),
-            ]
+        cells = [rank(r), f"<b>{_e(r['name'])}</b>"]
+        if spectrum:
+            cells += [_e(_fmt(r["nominal_pass"], 4)), _e(_fmt(r["p05_pass"], 4))]
+        cells += [_e(_fmt(r["nominal_worst"], 4)), _e(_fmt(r["p05_worst"], 4)), y]
+        if ranked_apart:
+            cells.append(_e(_pct(r["rank_yield"])))
+        cells.append(_e(r["dominant"] or "—"))
+        perf_rows.append(cells)
+
+    state_head = [("Rank", True), ("Candidate", False), ("DOP, nominal", True)]
+    show_ar = broadband and any(r["nominal_spectral_axial_ratio"] is not None for r in rows)
+    show_ext = broadband and any(r["nominal_spectral_extinction_db"] is not None for r in rows)
+    if show_ar:
+        state_head.append(("Axial ratio, spectrum, nominal", True))
+    if show_ext:
+        state_head.append(("Extinction, spectrum, nominal [dB]", True))
+    state_head += [("dδ/dT [°/K]", True), ("Tilt ½-angle [°]", True)]
+    state_rows = []
+    for _, r in ordered:
+        cells = [rank(r), f"<b>{_e(r['name'])}</b>", _e(_fixed(r["nominal_dop"], 4))]
+        if show_ar:
+            cells.append(_e(_fixed(r["nominal_spectral_axial_ratio"], 4)))
+        if show_ext:
+            cells.append(_e(_fixed(r["nominal_spectral_extinction_db"], 1)))
+        cells += [
+            _e(_fmt(r["temperature_coefficient_deg_per_k"], 3)),
+            _e(_fmt(r["acceptance_half_angle_deg"], 3)),
+        ]
+        state_rows.append(cells)
+
+    notes = []
+    if spectrum:
+        notes.append(
+            "The goal is judged on the source-averaged output, so the pass test uses the "
+            "spectrum columns; the worst single wavelength in the band may fall below the goal "
+            "even for a plate whose every build passes."
         )
+    if ranked_apart:
+        notes.append(
+            "The ranking used the depolarization-aware yield (column “Yield used for "
+            "ranking”): for an axial-ratio goal over the spectrum, unpolarized light left by "
+            "the spectral average counts against a plate through its fidelity to the goal."
+        )
+    note_html = "".join(f'<p class="note">{_e(n)}</p>' for n in notes)
     return (
         "<h3>The plates</h3>"
         + _table(design_head, design_rows, best)
-        + "<h3>How they fare</h3>"
+        + "<h3>How they fare against the goal</h3>"
         + _table(perf_head, perf_rows, best)
+        + note_html
+        + ("<h3>Output state" + (" over the spectrum" if broadband else "")
+           + " and environment</h3>")
+        + _table(state_head, state_rows, best)
     )
+
+
+def _rank_yield_differs(rows) -> bool:
+    for r in rows:
+        a, b = r["yield"], r["rank_yield"]
+        if a is not None and b is not None and abs(a - b) > 1e-12:
+            return True
+    return False
 
 
 def _ranking(grid, rows) -> str:
@@ -505,10 +603,19 @@ def assumptions(grid) -> list[str]:
         if _num(spec.get(key)) is not None:
             ref = _num(spec.get(key))
             break
+    t_nom = _num(grid.attrs.get("nominal_temperature_c"))
     out.append(
-        "Plates are designed (thicknesses chosen) at the reference temperature"
-        + (f" of {ref:g} °C" if ref is not None else "")
-        + "; temperature changes the retardance through each material's thermal data."
+        "Plates are designed (thicknesses chosen) at "
+        + (f"the reference temperature of {ref:g} °C" if ref is not None
+           else "the materials' reference temperature")
+        + "; temperature changes the retardance through each material's thermal data"
+        + (
+            f"; the spec's nominal operating temperature is {t_nom:g} °C (sampled "
+            f"temperatures centre on it)"
+            if t_nom is not None
+            else ""
+        )
+        + "."
     )
     out.append(
         "Each layer is an ideal linear retarder (Jones calculus); reflections inside "
@@ -518,7 +625,8 @@ def assumptions(grid) -> list[str]:
     if limit is not None and "acceptance_half_angle" in grid.variables:
         out.append(
             f"Acceptance half-angle: the angle of incidence at which the retardance error "
-            f"first reaches ±{limit:g} waves at some plane-of-incidence azimuth."
+            f"(retardance minus the plate's target retardance) first reaches ±{limit:g} "
+            f"waves at some plane-of-incidence azimuth."
         )
     if "design_stokes" in grid.variables:
         out.append(
@@ -614,23 +722,36 @@ def build_html(grid, figures, command=None) -> str:
             f'{_e(b["name"])} <span class="muted">({_e(b["construction"])})</span></div>'
             f"<div>{_e(reason)}</div></div>"
         )
+    # one caution box, in the report's own words (the run's attr laser_caution says the same)
     p.append(
-        f'<div class="caution" id="laser-safety"><strong>Laser safety.</strong> {_e(LASER_CAUTION)}'
+        f'<div class="caution" id="laser-safety"><strong>Laser safety.</strong> '
+        f"{_e(LASER_CAUTION)}</div>"
     )
-    extra = _s(grid.attrs.get("laser_caution", "")).strip()
-    if extra and extra != LASER_CAUTION:
-        p.append(f'<br><span class="muted">Note recorded with the run:</span> {_e(extra)}')
-    p.append("</div>")
 
     p.append("<h2>Candidates</h2>")
     p.append(_candidate_tables(grid, rows))
     p.append(
-        '<p class="muted">Worst: the lowest goal metric over the band, for the nominal '
-        "plate and as the 5th percentile over the sampled builds. Yield: share of builds "
-        "that pass. Dominant tolerance: the one whose removal raises the yield most. DOP: "
-        "degree of polarization of the source-averaged output. dδ/dT: retardance change "
-        "per kelvin at the design wavelength. Tilt ½-angle: angle of incidence at which "
-        "the retardance error reaches the acceptance limit.</p>"
+        '<p class="muted">'
+        + (
+            "Spectrum: the goal metric of the source-averaged output, for the nominal plate "
+            "and as the 5th percentile over the sampled builds. "
+            if _over_spectrum(grid)
+            else ""
+        )
+        + "Worst in band: the lowest goal metric over the band's wavelengths, nominal and 5th "
+        "percentile. Yield: share of builds that pass. Dominant tolerance: the one whose "
+        "removal raises the yield most. DOP: degree of polarization of the source-averaged "
+        "output of the nominal plate"
+        + (
+            "; axial ratio and extinction over the spectrum are those of that averaged "
+            "output (its polarized part for the axial ratio; the extinction counts the "
+            "unpolarized part)"
+            if grid.sizes.get("wavelength", 1) > 1
+            else ""
+        )
+        + ". dδ/dT: retardance change per kelvin at the design wavelength. Tilt ½-angle: "
+        "angle of incidence at which the retardance error (from the target retardance) "
+        "reaches the acceptance limit.</p>"
     )
     p.append("<h2>Ranking</h2>")
     p.append(_ranking(grid, rows))
@@ -646,10 +767,20 @@ def build_html(grid, figures, command=None) -> str:
     p.append(_materials(grid))
 
     p.append("<h2>The job</h2>")
-    spec_path = grid.attrs.get("spec_path")
-    if spec_path:
-        p.append(f"<p>Spec file: <code>{_e(spec_path)}</code>. The validated spec as run:</p>")
-    p.append(f'<pre id="spec">{_e(spec_text)}</pre>')
+    spec_path = _s(grid.attrs.get("spec_path") or "")
+    spec_toml = _s(grid.attrs.get("spec_toml") or "")
+    where = f"Spec file: <code>{_e(spec_path)}</code>. " if spec_path else ""
+    if spec_toml.strip():
+        p.append(f"<p>{where}The spec as written:</p>")
+        p.append(f'<pre id="spec-toml">{_e(spec_toml)}</pre>')
+        p.append(
+            '<details id="spec-details"><summary>The validated spec as run (normalised, with '
+            "defaults filled in)</summary>"
+            f'<pre id="spec">{_e(spec_text)}</pre></details>'
+        )
+    else:
+        p.append(f"<p>{where}The validated spec as run:</p>")
+        p.append(f'<pre id="spec">{_e(spec_text)}</pre>')
 
     p.append("<h2>Reproduce this run</h2><table><tbody>")
     p.append(
