@@ -30,13 +30,15 @@ def nominal_waves(plate: Plate) -> float:
 
 
 def temperature_error(plate: Plate, temperatures_c) -> np.ndarray:
-    """Retardance error (retardance minus target) versus temperature at the design wavelength.
+    """Retardance change with temperature at the design wavelength. [waves]
 
-    [waves]  Zero at the materials' reference temperature for a plate built exactly to target.
+    δ(T) − δ(T_ref): zero at the materials' reference temperature, where the plate is cut.  The
+    plate's own offset from its target at the design wavelength (an achromat matched at two
+    other wavelengths) is not part of it; it shows in ``nominal_retardance``.
     """
     t = np.asarray(temperatures_c, dtype=float)
     d = plate_retardance(plate, plate.design_nm, temperature_c=t) / TWO_PI
-    return d - target_waves(plate)
+    return d - nominal_waves(plate)
 
 
 def temperature_coefficient(plate: Plate, temperature_c: float = 20.0) -> float:
@@ -66,7 +68,7 @@ def tilt_error(plate: Plate, tilts_deg, azimuths_deg) -> np.ndarray:
     Returns
     -------
     ndarray (n, m)
-        Retardance error δ(θᵢ, φ) − target at the design wavelength. [waves]
+        Retardance change δ(θᵢ, φ) − δ(0) at the design wavelength. [waves]
 
     References
     ----------
@@ -75,7 +77,7 @@ def tilt_error(plate: Plate, tilts_deg, azimuths_deg) -> np.ndarray:
     i = np.asarray(tilts_deg, dtype=float)[:, None]
     a = np.asarray(azimuths_deg, dtype=float)[None, :] + plate.axis_deg
     d = plate_retardance(plate, plate.design_nm, aoi_deg=i, incidence_azimuth_deg=a) / TWO_PI
-    return d - target_waves(plate)
+    return d - nominal_waves(plate)
 
 
 def acceptance_half_angle(
@@ -85,13 +87,13 @@ def acceptance_half_angle(
     step_deg: float = 0.01,
     n_azimuths: int = 72,
 ) -> float:
-    """Largest angle of incidence within which |δ(θᵢ, φ) − target| ≤ limit for every azimuth.
+    """Largest angle of incidence within which |δ(θᵢ, φ) − δ(0)| ≤ limit for every azimuth. [deg]
 
-    [deg]  The error counts both the plate's own deviation from target at the design wavelength
-    (an achromat matched at two other wavelengths is not exactly on target there) and the change
-    with tilt.  Scanned on a grid of ``step_deg`` up to ``max_deg`` and refined linearly between
-    the last good and first bad angle; 0 when the error at normal incidence already exceeds the
-    limit; ``max_deg`` when the limit is never reached.
+    The field of view of the error-free plate at its design wavelength: the retardance change
+    that tilt causes (J. M. Beckers, Appl. Opt. 11, 681 (1972)); the plate's own offset from its
+    target is reported apart (``nominal_retardance``).  Scanned on a grid of ``step_deg`` up to
+    ``max_deg`` and refined linearly between the last good and first bad angle; ``max_deg`` when
+    the limit is never reached.
     """
     tilts = np.arange(0.0, max_deg + step_deg / 2, step_deg)
     az = np.linspace(0.0, 180.0, n_azimuths, endpoint=False)

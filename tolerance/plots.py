@@ -862,15 +862,36 @@ def _zoom_panel(ax, grid, c, st, nominal, goal, colour):
             )
         )
     if nom is not None:
-        ax.plot(*nom, marker="x", markersize=7, markeredgewidth=1.0, color=INK,
-                linestyle="none", zorder=5)
+        ax.plot(
+            *nom,
+            marker="x",
+            markersize=7,
+            markeredgewidth=1.0,
+            color=INK,
+            linestyle="none",
+            zorder=5,
+        )
     if goal is not None:
-        ax.plot(0, 0, marker="*", markersize=11, markerfacecolor="none",
-                markeredgecolor=GOAL_INK, markeredgewidth=0.8, linestyle="none", zorder=6)
+        ax.plot(
+            0,
+            0,
+            marker="*",
+            markersize=11,
+            markerfacecolor="none",
+            markeredgecolor=GOAL_INK,
+            markeredgewidth=0.8,
+            linestyle="none",
+            zorder=6,
+        )
     _compact_ticks(ax.xaxis, 3)
     _compact_ticks(ax.yaxis, 3)
-    ax.set_title("zoom around the goal" if goal is not None else "zoom around the samples",
-                 fontsize=7.5, fontweight="normal", color="#4a463f", loc="center")
+    ax.set_title(
+        "zoom around the goal" if goal is not None else "zoom around the samples",
+        fontsize=7.5,
+        fontweight="normal",
+        color="#4a463f",
+        loc="center",
+    )
 
 
 def poincare_views(grid):
@@ -1091,9 +1112,7 @@ def environment_maps(grid):
                 )
             )
             ax.set_ylabel(f"Retardance error [{units}]")
-            ax.set_title(
-                "Retardance error (nominal minus target) at the design wavelength vs temperature"
-            )
+            ax.set_title("Retardance change with temperature at the design wavelength")
             ax.legend(loc="best", ncols=2)
             row = 1
         if has_tilt:
@@ -1201,11 +1220,10 @@ FIGURES = {
     ),
     "environment": (
         environment_maps,
-        "Retardance error (nominal retardance minus the target retardance) at the design "
-        "wavelength vs plate temperature and vs angle of incidence and its azimuth from the "
-        "fast axis. The plates are cut to meet the target at the materials' reference "
-        "temperature, so errors are relative to the target there; the dotted vertical line "
-        "marks the spec's nominal temperature, where the error need not be zero.",
+        "Retardance change of the error-free plate at the design wavelength vs plate "
+        "temperature (from its value at the materials' reference temperature, where the plates "
+        "are cut) and vs angle of incidence and its azimuth from the fast axis (from normal "
+        "incidence); the dotted vertical line marks the spec's nominal temperature.",
     ),
 }
 

@@ -242,9 +242,7 @@ def summary_rows(grid) -> list[dict]:
                 "rank_yield": _num(_var(grid, "rank_yield", c)),
                 "dominant": _s(_var(grid, "dominant", c) or ""),
                 "nominal_dop": _num(_var(grid, "nominal_dop", c)),
-                "nominal_spectral_axial_ratio": _num(
-                    _var(grid, "nominal_spectral_axial_ratio", c)
-                ),
+                "nominal_spectral_axial_ratio": _num(_var(grid, "nominal_spectral_axial_ratio", c)),
                 "nominal_spectral_extinction_db": _num(
                     _var(grid, "nominal_spectral_extinction", c)
                 ),
@@ -514,8 +512,11 @@ def _candidate_tables(grid, rows) -> str:
         + "<h3>How they fare against the goal</h3>"
         + _table(perf_head, perf_rows, best)
         + note_html
-        + ("<h3>Output state" + (" over the spectrum" if broadband else "")
-           + " and environment</h3>")
+        + (
+            "<h3>Output state"
+            + (" over the spectrum" if broadband else "")
+            + " and environment</h3>"
+        )
         + _table(state_head, state_rows, best)
     )
 
@@ -606,8 +607,11 @@ def assumptions(grid) -> list[str]:
     t_nom = _num(grid.attrs.get("nominal_temperature_c"))
     out.append(
         "Plates are designed (thicknesses chosen) at "
-        + (f"the reference temperature of {ref:g} °C" if ref is not None
-           else "the materials' reference temperature")
+        + (
+            f"the reference temperature of {ref:g} °C"
+            if ref is not None
+            else "the materials' reference temperature"
+        )
         + "; temperature changes the retardance through each material's thermal data"
         + (
             f"; the spec's nominal operating temperature is {t_nom:g} °C (sampled "
@@ -624,9 +628,9 @@ def assumptions(grid) -> list[str]:
     limit = _num(grid.attrs.get("acceptance_limit_waves"))
     if limit is not None and "acceptance_half_angle" in grid.variables:
         out.append(
-            f"Acceptance half-angle: the angle of incidence at which the retardance error "
-            f"(retardance minus the plate's target retardance) first reaches ±{limit:g} "
-            f"waves at some plane-of-incidence azimuth."
+            f"Acceptance half-angle: the angle of incidence at which the retardance change "
+            f"from normal incidence first reaches ±{limit:g} waves at some plane-of-incidence "
+            f"azimuth (the plate's own offset from target is shown in the retardance figure)."
         )
     if "design_stokes" in grid.variables:
         out.append(
@@ -750,7 +754,7 @@ def build_html(grid, figures, command=None) -> str:
             else ""
         )
         + ". dδ/dT: retardance change per kelvin at the design wavelength. Tilt ½-angle: "
-        "angle of incidence at which the retardance error (from the target retardance) "
+        "angle of incidence at which the tilt-induced retardance change (from normal incidence) "
         "reaches the acceptance limit.</p>"
     )
     p.append("<h2>Ranking</h2>")

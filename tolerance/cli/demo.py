@@ -36,7 +36,8 @@ def examples() -> dict[str, tuple[str, str]]:
 @click.option(
     "--out",
     type=click.Path(path_type=Path),
-    help="Output folder [default: ./reports/demo/] (with --spec-only: the file).",
+    help="Output folder [default: ./reports/demo/, or ./reports/NAME/ for the other examples] "
+    "(with --spec-only: the file).",
 )
 @click.option("--force", is_flag=True, help="Replace an existing output.")
 @click.option("--samples", type=int, help="Monte Carlo samples (default: the example's).")
@@ -96,7 +97,8 @@ def demo(name, list_, spec_only, out, force, samples, formats, as_json):
     spec = validate(tomllib.loads(text), f"{name}.toml")
     spec["base_dir"] = str(Path(str(resources.files("tolerance.examples"))))
     spec["source_text"] = text
-    folder = Path(out) if out else Path("reports") / "demo"
+    # the default example writes to reports/demo/, the others to reports/<name>/
+    folder = Path(out) if out else Path("reports") / ("demo" if name == DEFAULT else name)
     argv = ["retol", "demo", name] + (["--samples", str(samples)] if samples else [])
     _, folder = execute(
         spec, Path(f"{name}.toml"), folder, force, samples, None, None, as_json, formats, argv=argv

@@ -116,7 +116,22 @@ def show(name, at, temperature, extrapolate, as_json):
                 ]
                 for r in rows
             ],
-            ["material", "wavelength [nm]", "T [C]", "n_o", "n_e", "n_e - n_o"],
+            ["material", "wavelength [nm]", "T [C]", "n_o", "n_e", "n_e - n_o"]
+            if t == m.reference_temperature_c
+            else [
+                "material",
+                "wavelength [nm]",
+                "T [C]",
+                "n_o (ref.)",
+                "n_e (eff.)",
+                "n_e - n_o (eff.)",
+            ],
         )
     )
+    if t != m.reference_temperature_c:
+        click.echo(
+            f"(eff.: the birefringence that gives a plate's retardance at {t:g} C through the "
+            f"retardance coefficient {m.retardance_temperature_coefficient:g}/K, expansion "
+            f"included; n_o held at its {m.reference_temperature_c:g} C value)"
+        )
     click.echo(f"source: {m.source}")

@@ -226,9 +226,11 @@ def plate(
             }
         )
         return
+    where = (
+        " and ".join(f"{x:g}" for x in match) + " nm (matched)" if match else f"{p.design_nm:g} nm"
+    )
     click.echo(
-        f"{p.construction} plate, target {p.waves:g} waves at {p.design_nm:g} nm, "
-        f"fast axis {p.axis_deg:g} deg"
+        f"{p.construction} plate, target {p.waves:g} waves at {where}, fast axis {p.axis_deg:g} deg"
     )
     click.echo(
         table(

@@ -147,6 +147,12 @@ def summary_rows(ds):
     return rows
 
 
+def _pct(x: float) -> str:
+    """A yield in percent, with more digits near 0 and 100 % so an interval never looks exact."""
+    v = 100.0 * x
+    return f"{v:.2f}" if (v < 1.0 or v > 99.0) and v not in (0.0, 100.0) else f"{v:.1f}"
+
+
 def print_summary(ds, rows):
     unit = ds.attrs.get("metric_units", "")
     metric = ds.attrs.get("goal_metric", "")
@@ -175,8 +181,7 @@ def print_summary(ds, rows):
                 f"{r['median_worst']:.4f}",
                 f"{r['p05_worst']:.4f}",
                 *([f"{r['nominal_pass']:.4f}", f"{r['p05_pass']:.4f}"] if spectrum else []),
-                f"{100 * r['yield']:.1f}% "
-                f"[{100 * r['yield_low']:.1f}, {100 * r['yield_high']:.1f}]",
+                f"{_pct(r['yield'])}% [{_pct(r['yield_low'])}, {_pct(r['yield_high'])}]",
                 r["dominant"],
                 f"{r['nominal_dop']:.4f}",
                 f"{r['temperature_coefficient_deg_per_k']:+.4f}",
@@ -243,7 +248,7 @@ def execute(
 
     def progress(done, total):
         nonlocal bar
-        if quiet:
+        if quiet or not sys.stderr.isatty():
             return
         if bar is None:
             bar = click.progressbar(
@@ -283,7 +288,7 @@ def execute(
         print_summary(ds, rows)
         click.echo(
             f"\nwrote {folder / 'grid.nc'}"
-            + (f" and {folder / 'report.html'}" if write_report else "")
+            + (f", {folder / 'report.html'}, summary.csv and figures/" if write_report else "")
         )
     return ds, folder
 
