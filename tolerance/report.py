@@ -549,6 +549,33 @@ def _describe(value) -> str:
     return _s(value)
 
 
+_TOL_WORDS = {
+    "thickness_um": "plate thickness (each plate)",
+    "clocking_deg": "fast-axis clocking in the mount",
+    "crossing_deg": "crossing between plates",
+    "tilt_deg": "angle of incidence (its magnitude; plane-of-incidence azimuth uniform)",
+    "temperature_c": "plate temperature",
+    "input_azimuth_deg": "input azimuth",
+}
+
+
+def _distribution_words(d, key: str) -> str:
+    """A tolerance distribution in words, e.g. 'normal, σ = 0.3 µm'."""
+    if not isinstance(d, dict) or "kind" not in d:
+        return _describe(d)
+    unit = {"um": " µm", "deg": "°", "_c": " °C"}
+    u = next((v for k, v in unit.items() if key.endswith(k)), "")
+    k = d["kind"]
+    if k == "normal":
+        extra = f" (±{_s(d['limit'])}{u} read as {_s(d['coverage'])} σ)" if "limit" in d else ""
+        return f"normal, σ = {_s(d['sigma'])}{u}{extra}"
+    if k == "uniform":
+        return f"uniform, ±{_s(d['half_width'])}{u}"
+    if k == "range":
+        return f"uniform from {_s(d['low'])} to {_s(d['high'])}{u}"
+    return _describe(d)
+
+
 def assumptions(grid) -> list[str]:
     """Plain-text assumptions of the run, read from the grid's attrs and spec where it can."""
     spec = _json_attr(grid, "spec", {}) or {}
@@ -560,7 +587,7 @@ def assumptions(grid) -> list[str]:
         [_s(t) for t in grid["tolerance_name"].values] if "tolerance_name" in grid.coords else []
     )
     if isinstance(tols, dict) and tols:
-        parts = [f"{k}: {_describe(v)}" for k, v in tols.items()]
+        parts = [f"{_TOL_WORDS.get(k, k)}: {_distribution_words(v, k)}" for k, v in tols.items()]
         out.append(
             "Tolerances drawn independently for each sampled build — " + "; ".join(parts) + "."
         )
