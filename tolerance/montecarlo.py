@@ -429,20 +429,7 @@ def nominal(case: Case, spec: dict, wl_optics, spectrum):
     stokes = np.empty((W, 3))
     from .kernel import stokes_one
 
-    stokes_one(
-        *wl_optics,
-        inputs["thick"][0],
-        inputs["tfac"][0],
-        inputs["c2"][0],
-        inputs["s2"][0],
-        inputs["sin2i"][0],
-        inputs["cphi2"][0],
-        inputs["sphi2"][0],
-        inputs["ca"][0],
-        inputs["sa"][0],
-        case.plate.signs(),
-        stokes,
-    )
+    stokes_one(*wl_optics, *_first_sample(inputs), case.plate.signs(), stokes)
     return {
         "values": vals,
         "stokes": stokes,
@@ -450,6 +437,15 @@ def nominal(case: Case, spec: dict, wl_optics, spectrum):
         "spec_stokes": spec_st[0],
         "design_stokes": des_st[0],
     }
+
+
+#: The per-sample kernel inputs, in the kernels' argument order.
+PER_SAMPLE = ("thick", "tfac", "c2", "s2", "sin2i", "cphi2", "sphi2", "ca", "sa")
+
+
+def _first_sample(inputs) -> list:
+    """The first sample's kernel inputs (for the one-sample kernels)."""
+    return [inputs[k][0] for k in PER_SAMPLE]
 
 
 def _values(case, spec, wl_optics, spectrum, inputs):
@@ -466,15 +462,7 @@ def _values(case, spec, wl_optics, spectrum, inputs):
         ne2,
         rat,
         dn,
-        inputs["thick"][0],
-        inputs["tfac"][0],
-        inputs["c2"][0],
-        inputs["s2"][0],
-        inputs["sin2i"][0],
-        inputs["cphi2"][0],
-        inputs["sphi2"][0],
-        inputs["ca"][0],
-        inputs["sa"][0],
+        *_first_sample(inputs),
         case.plate.signs(),
         case.goal,
         METRICS[spec["goal"]["metric"]],
