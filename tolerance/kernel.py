@@ -404,6 +404,31 @@ def _observable_rows(work):
 
 
 @nb.njit(**_OPTS)
+def _one_sample(k0, no2, ne2, rat, dn, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj):
+    """The work rows of one sample at every wavelength (the one-sample kernels' common part)."""
+    work = np.empty((N_WORK, k0.shape[0]))
+    _spectrum(
+        k0,
+        np.ascontiguousarray(no2.T),
+        np.ascontiguousarray(ne2.T),
+        np.ascontiguousarray(rat.T),
+        np.ascontiguousarray(dn.T),
+        thick,
+        tfac,
+        c2,
+        s2,
+        sin2i,
+        cphi2,
+        sphi2,
+        ca,
+        sa,
+        proj,
+        work,
+    )
+    return work
+
+
+@nb.njit(**_OPTS)
 def per_wavelength_values(
     k0,
     no2,
@@ -426,24 +451,8 @@ def per_wavelength_values(
 ):
     """Retardance, axial ratio, azimuth and metric of one sample at every wavelength into
     ``out`` (N_VAR, W), with exactly the arithmetic of :func:`chunk_pass`."""
-    work = np.empty((N_WORK, k0.shape[0]))
-    _spectrum(
-        k0,
-        np.ascontiguousarray(no2.T),
-        np.ascontiguousarray(ne2.T),
-        np.ascontiguousarray(rat.T),
-        np.ascontiguousarray(dn.T),
-        thick,
-        tfac,
-        c2,
-        s2,
-        sin2i,
-        cphi2,
-        sphi2,
-        ca,
-        sa,
-        proj,
-        work,
+    work = _one_sample(
+        k0, no2, ne2, rat, dn, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj
     )
     _metric_row(work, goal[0], goal[1], goal[2], metric_kind)
     _observable_rows(work)
@@ -457,24 +466,8 @@ def per_wavelength_values(
 @nb.njit(**_OPTS)
 def stokes_one(k0, no2, ne2, rat, dn, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, out):
     """Normalised Stokes (s1, s2, s3) of one sample at every wavelength into ``out`` (W, 3)."""
-    work = np.empty((N_WORK, k0.shape[0]))
-    _spectrum(
-        k0,
-        np.ascontiguousarray(no2.T),
-        np.ascontiguousarray(ne2.T),
-        np.ascontiguousarray(rat.T),
-        np.ascontiguousarray(dn.T),
-        thick,
-        tfac,
-        c2,
-        s2,
-        sin2i,
-        cphi2,
-        sphi2,
-        ca,
-        sa,
-        proj,
-        work,
+    work = _one_sample(
+        k0, no2, ne2, rat, dn, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj
     )
     for w in range(k0.shape[0]):
         out[w, 0] = work[_XR, w]
