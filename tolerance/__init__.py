@@ -11,7 +11,7 @@ Heavy modules (numpy, numba, xarray) load on first use so that the command line 
 
 from __future__ import annotations
 
-__version__ = "0.1.0"
+from .version import __version__
 
 __all__ = ["__version__", "load_spec", "run", "design_plate", "get_material"]
 

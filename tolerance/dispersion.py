@@ -17,7 +17,9 @@ import warnings
 from dataclasses import dataclass, field
 from functools import cache
 from importlib import resources
+from collections.abc import Mapping
 from pathlib import Path
+from types import MappingProxyType
 
 import numpy as np
 
@@ -34,7 +36,7 @@ class Material:
     name: str
     kind: str
     formula: str
-    coefficients: dict
+    coefficients: Mapping = field(hash=False)
     valid_min_nm: float
     valid_max_nm: float
     reference_temperature_c: float
@@ -59,6 +61,15 @@ class Material:
         """n_e - n_o at the reference temperature; see :func:`birefringence`."""
         n_o, n_e = indices(self, wavelength_nm, extrapolate=extrapolate)
         return n_e - n_o
+
+
+def frozen(value):
+    """A read-only copy: tables become mapping proxies, lists tuples (materials are immutable)."""
+    if isinstance(value, dict):
+        return MappingProxyType({k: frozen(v) for k, v in value.items()})
+    if isinstance(value, list | tuple):
+        return tuple(frozen(v) for v in value)
+    return value
 
 
 def _ghosh(lam_um, c):
@@ -300,7 +311,7 @@ def material_from_dict(d: dict, path: str = "<dict>") -> Material:
         name=name.lower(),
         kind=kind,
         formula=ftype,
-        coefficients=coeffs,
+        coefficients=frozen(coeffs),
         valid_min_nm=lo,
         valid_max_nm=hi,
         reference_temperature_c=t_ref,
@@ -368,7 +379,7 @@ def _load_table(p: Path) -> Material:
         name=p.stem.lower(),
         kind=kind,
         formula="table",
-        coefficients={},
+        coefficients=frozen({}),
         valid_min_nm=float(wl[0]),
         valid_max_nm=float(wl[-1]),
         reference_temperature_c=20.0,

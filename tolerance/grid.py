@@ -7,16 +7,20 @@ Global attributes hold the spec (JSON), the seed, the package version and the ma
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import os
 import tempfile
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 import xarray as xr
 
-from . import __version__
+from .version import __version__
 from .decision import rank
+from .metrics import METRICS
+from .tolerances import SHORT
 from .environment import (
     acceptance_half_angle,
     temperature_coefficient,
@@ -32,34 +36,159 @@ LASER_CAUTION = (
     "officer; wear the eyewear they specify when aligning."
 )
 
-METRIC_INFO = {
-    "axial_ratio": ("1", "axial ratio b/a of the output, signed negative for the wrong hand"),
-    "fidelity": ("1", "fidelity (1 + s·g)/2 of the output to the goal state"),
-    "extinction_db": ("dB", "extinction ratio through an analyzer that passes the goal state"),
+@dataclass(frozen=True)
+class Var:
+    """One entry of the grid's schema: dimensions, units and long name.
+
+    ``{mu}`` and ``{mlong}`` in the units and long name stand for the goal metric's unit and long
+    name.
+    """
+
+    dims: tuple[str, ...]
+    units: str
+    long_name: str
+
+
+_C, _W, _S, _Q = ("candidate",), ("candidate", "wavelength"), ("candidate", "sample"), ("candidate", "quantile")
+_CT = ("candidate", "tolerance_name")
+#: Every variable the grid may hold.  ``sample_*`` variables exist only with ``keep_samples``.
+SCHEMA: dict[str, Var] = {
+    "source_spectrum": Var(("wavelength",), "1", "relative spectral power density of the source (peak 1)"),
+    "source_weight": Var(("wavelength",), "1", "fraction of the source power in each grid cell"),
+    "construction": Var(_C, "", "plate construction"),
+    "design_wavelength": Var(_C, "nm", "design wavelength"),
+    "target_waves": Var(_C, "waves", "target retardance beyond whole waves"),
+    "handedness": Var(_C, "1", "goal sense: +1 right (clockwise looking toward the source), -1 left"),
+    "layer_material": Var(("candidate", "layer"), "", "layer material"),
+    "layer_thickness": Var(("candidate", "layer"), "um", "layer thickness"),
+    "layer_axis": Var(("candidate", "layer"), "deg", "layer fast-axis angle"),
+    "nominal_retardance": Var(_W, "waves", "error-free retardance along the plate's fast axis"),
+    "nominal_axial_ratio": Var(_W, "1", "error-free axial ratio b/a"),
+    "nominal_azimuth": Var(_W, "deg", "error-free major-axis azimuth"),
+    "nominal_metric": Var(_W, "{mu}", "error-free {mlong}"),
+    "nominal_stokes": Var(_W + ("stokes",), "1", "error-free normalised Stokes vector"),
+    "retardance_mean": Var(_W, "waves", "mean retardance over samples"),
+    "retardance_std": Var(_W, "waves", "standard deviation of retardance over samples"),
+    "worst_metric": Var(_S, "{mu}", "each sample's worst {mlong} over the band"),
+    "spectral_metric": Var(_S, "{mu}", "each sample's source-weighted {mlong}"),
+    "spectral_stokes": Var(
+        _S + ("stokes",),
+        "1",
+        "source-averaged normalised Stokes vector of each sample (|s| = degree of polarization)",
+    ),
+    "spectral_axial_ratio": Var(_S, "1", "axial ratio b/a of the polarized part of the source-averaged output"),
+    "spectral_azimuth": Var(_S, "deg", "major-axis azimuth of the polarized part of the source-averaged output"),
+    "spectral_extinction": Var(
+        _S,
+        "dB",
+        "extinction ratio of the source-averaged output through an analyzer that passes the goal "
+        "state (unpolarized part counted)",
+    ),
+    "nominal_spectral_axial_ratio": Var(
+        _C, "1", "error-free axial ratio of the polarized part of the source-averaged output"
+    ),
+    "nominal_spectral_azimuth": Var(
+        _C, "deg", "error-free major-axis azimuth of the polarized part of the source-averaged output"
+    ),
+    "nominal_spectral_extinction": Var(
+        _C, "dB", "error-free extinction ratio of the source-averaged output through the goal analyzer"
+    ),
+    "rank_yield": Var(
+        _C,
+        "1",
+        "yield the ranking uses: the goal's, except that an axial-ratio goal over the spectrum is "
+        "judged by spectral fidelity so that unpolarized light counts",
+    ),
+    "spectral_dop": Var(_S, "1", "degree of polarization of the source-averaged output"),
+    "pass_metric": Var(_S, "{mu}", "the {mlong} that the pass test uses"),
+    "design_stokes": Var(_S + ("stokes",), "1", "normalised output Stokes vector at the design wavelength"),
+    "nominal_worst": Var(_C, "{mu}", "error-free worst {mlong} in band"),
+    "nominal_spectral_metric": Var(_C, "{mu}", "error-free source-weighted {mlong}"),
+    "nominal_dop": Var(_C, "1", "degree of polarization of the error-free output over the source"),
+    "nominal_spectral_fidelity": Var(
+        _C, "1", "error-free source-averaged fidelity to the goal (unpolarized part counted)"
+    ),
+    "worst_metric_quantile": Var(_Q, "{mu}", "quantiles of the worst {mlong} in band"),
+    "pass_metric_quantile": Var(_Q, "{mu}", "quantiles of the pass-test {mlong}"),
+    "dop_quantile": Var(_Q, "1", "quantiles of the source-averaged degree of polarization"),
+    "yield": Var(_C, "1", "fraction of assemblies that meet the goal"),
+    "yield_low": Var(_C, "1", "lower confidence limit of the yield"),
+    "yield_high": Var(_C, "1", "upper confidence limit of the yield"),
+    "sensitivity_alone": Var(_CT, "1", "yield with only this tolerance acting"),
+    "sensitivity_without": Var(
+        _CT, "1", "yield with every tolerance but this one (what holding it exactly would buy)"
+    ),
+    "dominant": Var(_C, "", "tolerance whose removal raises the yield most"),
+    "retardance_error_temperature": Var(
+        ("candidate", "temperature"), "waves", "retardance change with temperature at the design wavelength"
+    ),
+    "retardance_error_tilt": Var(
+        ("candidate", "tilt", "tilt_azimuth"),
+        "waves",
+        "retardance change with angle of incidence at the design wavelength",
+    ),
+    "acceptance_half_angle": Var(
+        _C,
+        "deg",
+        "largest angle of incidence keeping the retardance error within the limit at every azimuth",
+    ),
+    "temperature_coefficient": Var(_C, "deg/K", "retardance change per kelvin at the design wavelength"),
+    "rank": Var(_C, "1", "rank of the candidate (1 = pick)"),
+    "reason": Var(_C, "", "one-line reason for the rank"),
 }
+#: Per-wavelength variables the kernel keeps statistics of, with units and words.
+KERNEL_VARS = {
+    "retardance": ("waves", "retardance"),
+    "axial_ratio": ("1", "axial ratio b/a"),
+    "azimuth": ("deg", "major-axis azimuth"),
+    "metric": ("{mu}", "{mlong}"),
+}
+for _key, (_u, _long) in KERNEL_VARS.items():
+    SCHEMA[f"{_key}_quantile"] = Var(_Q + ("wavelength",), _u, f"quantiles over samples of the {_long}")
+    SCHEMA[f"sample_{_key}"] = Var(_S + ("wavelength",), _u, f"per-sample {_long}")
+
+COORDS: dict[str, Var] = {
+    "candidate": Var(("candidate",), "", "candidate plate"),
+    "wavelength": Var(("wavelength",), "nm", "vacuum wavelength"),
+    "quantile": Var(("quantile",), "1", "quantile over samples"),
+    "sample": Var(("sample",), "1", "Monte Carlo sample"),
+    "tolerance_name": Var(("tolerance_name",), "", "tolerance name"),
+    "stokes": Var(("stokes",), "1", "normalised Stokes component"),
+    "layer": Var(("layer",), "1", "layer index (light meets 0 first)"),
+    "temperature": Var(("temperature",), "degC", "plate temperature"),
+    "tilt": Var(("tilt",), "deg", "angle of incidence"),
+    "tilt_azimuth": Var(("tilt_azimuth",), "deg", "plane-of-incidence azimuth from the plate's fast axis"),
+}
+CONVENTIONS = (
+    "time dependence exp(i(kz - wt)); S3 > 0 = clockwise looking toward the "
+    "source = right-handed; angles counter-clockwise from x looking toward "
+    "the source"
+)
 
 
-def _da(data, dims, units, long_name, **attrs):
-    return xr.DataArray(data, dims=dims, attrs={"units": units, "long_name": long_name, **attrs})
+def assemble(values: dict, coords: dict, attrs: dict, metric: str, var_attrs=None) -> xr.Dataset:
+    """A Dataset from arrays named in :data:`SCHEMA` / :data:`COORDS`, labelled from the schema."""
+    info = METRICS[metric].extra
+    fmt = {"mu": info["unit"], "mlong": info["long_name"]}
+
+    def da(var: Var, data, extra=None):
+        return xr.DataArray(
+            data,
+            dims=var.dims,
+            attrs={"units": var.units.format(**fmt), "long_name": var.long_name.format(**fmt), **(extra or {})},
+        )
+
+    data = {k: da(SCHEMA[k], v, (var_attrs or {}).get(k)) for k, v in values.items()}
+    cds = {k: da(COORDS[k], v) for k, v in coords.items()}
+    return xr.Dataset(data, coords=cds, attrs=attrs)
 
 
-def build_grid(spec, wl, spectrum, cases, results, qs, tol_names, seed, n, chunk) -> xr.Dataset:
-    """Assemble the Dataset from the engine's per-candidate results."""
-    from .kernel import VARIABLES
+# ----------------------------------------------------------------------------- named steps
 
-    names = [c.plate.name for c in cases]
+
+def _design_values(cases) -> dict:
     C = len(cases)
     L = max(len(c.plate.layers) for c in cases)
-    mu, mlong = METRIC_INFO[spec["goal"]["metric"]]
-    env = spec["environment"]
-    temps = np.linspace(env["temperature_range"][0], env["temperature_range"][1], 61)
-    tilts = np.linspace(0.0, env["tilt_max_deg"], 41)
-    azs = np.arange(0.0, 360.0, 7.5)
-    limit = spec["goal"]["acceptance_limit_waves"]
-
-    def stack(key):
-        return np.stack([r[key] for r in results])
-
     lay_mat = np.full((C, L), "", dtype=object)
     lay_th = np.full((C, L), np.nan)
     lay_ax = np.full((C, L), np.nan)
@@ -68,356 +197,140 @@ def build_grid(spec, wl, spectrum, cases, results, qs, tol_names, seed, n, chunk
             lay_mat[i, j] = la.material.name
             lay_th[i, j] = la.thickness_um
             lay_ax[i, j] = la.axis_deg
-    quant = stack("quantiles")  # (C, Q, V, W)
-    nomv = stack("nominal")  # (C, V, W)
-    env_t = np.stack([temperature_error(c.plate, temps) for c in cases])
-    env_tilt = np.stack([tilt_error(c.plate, tilts, azs) for c in cases])
-    accept = np.array([acceptance_half_angle(c.plate, limit) for c in cases])
-    tcoef = np.array([temperature_coefficient(c.plate, env["temperature_c"]) for c in cases])
-    fid_nom = []
+    return {
+        "construction": np.array([c.plate.construction for c in cases], dtype=object),
+        "design_wavelength": np.array([c.plate.design_nm for c in cases]),
+        "target_waves": np.array([c.plate.waves for c in cases]),
+        "handedness": np.array([c.handedness for c in cases]),
+        "layer_material": lay_mat,
+        "layer_thickness": lay_th,
+        "layer_axis": lay_ax,
+    }
+
+
+def _nominal_values(cases, results) -> dict:
+    nomv = np.stack([r.nominal.values for r in results])  # (C, V, W)
+    sst_nom = np.stack([r.nominal.spec_stokes for r in results])
+    e_n = _spectral_state(sst_nom)
+    return {
+        "nominal_retardance": nomv[:, 0],
+        "nominal_axial_ratio": nomv[:, 1],
+        "nominal_azimuth": nomv[:, 2],
+        "nominal_metric": nomv[:, 3],
+        "nominal_stokes": np.stack([r.nominal.stokes for r in results]),
+        "nominal_spectral_axial_ratio": e_n["axial_ratio"],
+        "nominal_spectral_azimuth": e_n["azimuth_deg"],
+        "nominal_spectral_extinction": np.array(
+            [_one_metric(r.nominal.spec_stokes, c.goal, "extinction_db") for r, c in zip(results, cases, strict=True)]
+        ),
+        "nominal_worst": np.array([r.nominal.worst for r in results]),
+        "nominal_spectral_metric": np.array([r.nominal_spectral_metric for r in results]),
+        "nominal_dop": np.array([r.nominal_dop for r in results]),
+        "nominal_spectral_fidelity": np.array(
+            [_one_metric(r.nominal.spec_stokes, c.goal, "fidelity") for r, c in zip(results, cases, strict=True)]
+        ),
+    }
+
+
+def _one_metric(spec_stokes, goal, metric) -> float:
     from .kernel import spectral_metric
 
-    for r, c in zip(results, cases, strict=True):
-        fid_nom.append(
-            float(spectral_metric(r["nominal_spec_stokes"][None, :], c.goal, "fidelity")[0])
-        )
-    ranks, reasons = rank(
-        names,
-        [r["rank_yield"] for r in results],
-        [r["rank_yield_low"] for r in results],
-        [r["rank_yield_high"] for r in results],
-        fid_nom,
-        accept,
-        tcoef,
-    )
-    # the source-averaged output of every sample, and of the error-free plate
-    sst = stack("spec_stokes")
-    sst_nom = np.stack([r["nominal_spec_stokes"] for r in results])
+    return float(spectral_metric(spec_stokes[None, :], goal, metric)[0])
+
+
+def _spectral_state(st):
     from .polarization import ellipse
 
-    def spectral_state(st):
-        full = np.concatenate([np.ones(st.shape[:-1] + (1,)), st], axis=-1)
-        return ellipse(full)
+    full = np.concatenate([np.ones(st.shape[:-1] + (1,)), st], axis=-1)
+    return ellipse(full)
 
-    e_s = spectral_state(sst)
-    e_n = spectral_state(sst_nom)
-    ext_s = np.stack(
-        [
-            spectral_metric(r["spec_stokes"], c.goal, "extinction_db")
-            for r, c in zip(results, cases, strict=True)
-        ]
-    )
-    ext_n = np.array(
-        [
-            float(spectral_metric(r["nominal_spec_stokes"][None, :], c.goal, "extinction_db")[0])
-            for r, c in zip(results, cases, strict=True)
-        ]
-    )
+
+def _sample_values(cases, results, qs) -> dict:
+    from .kernel import spectral_metric
+
+    def stack(attr):
+        return np.stack([getattr(r, attr) for r in results])
+
+    sst = stack("spec_stokes")
+    e_s = _spectral_state(sst)
     qarr = np.asarray(qs, dtype=float)
 
-    def wq(a, axis=0):
-        return np.quantile(a, qarr, axis=axis, method="linear")
+    def wq(a):
+        return np.quantile(a, qarr, axis=1, method="linear").T
 
-    data = {
-        "source_spectrum": _da(
-            np.asarray(spectrum.density, float),
-            ("wavelength",),
-            "1",
-            "relative spectral power density of the source (peak 1)",
+    out = {
+        "retardance_mean": stack("mean"),
+        "retardance_std": stack("std"),
+        "worst_metric": stack("worst"),
+        "spectral_metric": stack("spectral_metric"),
+        "spectral_stokes": sst,
+        "spectral_axial_ratio": e_s["axial_ratio"],
+        "spectral_azimuth": e_s["azimuth_deg"],
+        "spectral_extinction": np.stack(
+            [spectral_metric(r.spec_stokes, c.goal, "extinction_db") for r, c in zip(results, cases, strict=True)]
         ),
-        "source_weight": _da(
-            np.asarray(spectrum.grid_weight, float),
-            ("wavelength",),
-            "1",
-            "fraction of the source power in each grid cell",
-        ),
-        "construction": _da(
-            np.array([c.plate.construction for c in cases], dtype=object),
-            ("candidate",),
-            "",
-            "plate construction",
-        ),
-        "design_wavelength": _da(
-            np.array([c.plate.design_nm for c in cases]), ("candidate",), "nm", "design wavelength"
-        ),
-        "target_waves": _da(
-            np.array([c.plate.waves for c in cases]),
-            ("candidate",),
-            "waves",
-            "target retardance beyond whole waves",
-        ),
-        "handedness": _da(
-            np.array([c.handedness for c in cases]),
-            ("candidate",),
-            "1",
-            "goal sense: +1 right (clockwise looking toward the source), -1 left",
-        ),
-        "layer_material": _da(lay_mat, ("candidate", "layer"), "", "layer material"),
-        "layer_thickness": _da(lay_th, ("candidate", "layer"), "um", "layer thickness"),
-        "layer_axis": _da(lay_ax, ("candidate", "layer"), "deg", "layer fast-axis angle"),
-        "nominal_retardance": _da(
-            nomv[:, 0],
-            ("candidate", "wavelength"),
-            "waves",
-            "error-free retardance along the plate's fast axis",
-        ),
-        "nominal_axial_ratio": _da(
-            nomv[:, 1], ("candidate", "wavelength"), "1", "error-free axial ratio b/a"
-        ),
-        "nominal_azimuth": _da(
-            nomv[:, 2], ("candidate", "wavelength"), "deg", "error-free major-axis azimuth"
-        ),
-        "nominal_metric": _da(nomv[:, 3], ("candidate", "wavelength"), mu, f"error-free {mlong}"),
-        "nominal_stokes": _da(
-            np.stack([r["nominal_stokes"] for r in results]),
-            ("candidate", "wavelength", "stokes"),
-            "1",
-            "error-free normalised Stokes vector",
-        ),
-        "retardance_mean": _da(
-            stack("mean"), ("candidate", "wavelength"), "waves", "mean retardance over samples"
-        ),
-        "retardance_std": _da(
-            stack("std"),
-            ("candidate", "wavelength"),
-            "waves",
-            "standard deviation of retardance over samples",
-        ),
-        "worst_metric": _da(
-            stack("worst"),
-            ("candidate", "sample"),
-            mu,
-            f"each sample's worst {mlong} over the band",
-        ),
-        "spectral_metric": _da(
-            stack("spectral_metric"),
-            ("candidate", "sample"),
-            mu,
-            f"each sample's source-weighted {mlong}",
-        ),
-        "spectral_stokes": _da(
-            sst,
-            ("candidate", "sample", "stokes"),
-            "1",
-            "source-averaged normalised Stokes vector of each sample (|s| = degree of "
-            "polarization)",
-        ),
-        "spectral_axial_ratio": _da(
-            e_s["axial_ratio"],
-            ("candidate", "sample"),
-            "1",
-            "axial ratio b/a of the polarized part of the source-averaged output",
-        ),
-        "spectral_azimuth": _da(
-            e_s["azimuth_deg"],
-            ("candidate", "sample"),
-            "deg",
-            "major-axis azimuth of the polarized part of the source-averaged output",
-        ),
-        "spectral_extinction": _da(
-            ext_s,
-            ("candidate", "sample"),
-            "dB",
-            "extinction ratio of the source-averaged output through an analyzer that passes the "
-            "goal state (unpolarized part counted)",
-        ),
-        "nominal_spectral_axial_ratio": _da(
-            e_n["axial_ratio"],
-            ("candidate",),
-            "1",
-            "error-free axial ratio of the polarized part of the source-averaged output",
-        ),
-        "nominal_spectral_azimuth": _da(
-            e_n["azimuth_deg"],
-            ("candidate",),
-            "deg",
-            "error-free major-axis azimuth of the polarized part of the source-averaged output",
-        ),
-        "nominal_spectral_extinction": _da(
-            ext_n,
-            ("candidate",),
-            "dB",
-            "error-free extinction ratio of the source-averaged output through the goal analyzer",
-        ),
-        "rank_yield": _da(
-            np.array([r["rank_yield"] for r in results]),
-            ("candidate",),
-            "1",
-            "yield the ranking uses: the goal's, except that an axial-ratio goal over the "
-            "spectrum is judged by spectral fidelity so that unpolarized light counts",
-        ),
-        "spectral_dop": _da(
-            stack("dop"),
-            ("candidate", "sample"),
-            "1",
-            "degree of polarization of the source-averaged output",
-        ),
-        "pass_metric": _da(
-            stack("pass_metric"),
-            ("candidate", "sample"),
-            mu,
-            f"the {mlong} that the pass test uses",
-        ),
-        "design_stokes": _da(
-            stack("design_stokes"),
-            ("candidate", "sample", "stokes"),
-            "1",
-            "normalised output Stokes vector at the design wavelength",
-        ),
-        "nominal_worst": _da(
-            np.array([r["nominal_worst"] for r in results]),
-            ("candidate",),
-            mu,
-            f"error-free worst {mlong} in band",
-        ),
-        "nominal_spectral_metric": _da(
-            np.array([r["nominal_spectral_metric"] for r in results]),
-            ("candidate",),
-            mu,
-            f"error-free source-weighted {mlong}",
-        ),
-        "nominal_dop": _da(
-            np.array([r["nominal_dop"] for r in results]),
-            ("candidate",),
-            "1",
-            "degree of polarization of the error-free output over the source",
-        ),
-        "nominal_spectral_fidelity": _da(
-            np.array(fid_nom),
-            ("candidate",),
-            "1",
-            "error-free source-averaged fidelity to the goal (unpolarized part counted)",
-        ),
-        "worst_metric_quantile": _da(
-            wq(stack("worst"), axis=1).T,
-            ("candidate", "quantile"),
-            mu,
-            f"quantiles of the worst {mlong} in band",
-        ),
-        "pass_metric_quantile": _da(
-            wq(stack("pass_metric"), axis=1).T,
-            ("candidate", "quantile"),
-            mu,
-            f"quantiles of the pass-test {mlong}",
-        ),
-        "dop_quantile": _da(
-            wq(stack("dop"), axis=1).T,
-            ("candidate", "quantile"),
-            "1",
-            "quantiles of the source-averaged degree of polarization",
-        ),
-        "yield": _da(
-            np.array([r["yield"] for r in results]),
-            ("candidate",),
-            "1",
-            "fraction of assemblies that meet the goal",
-            confidence=spec["run"]["confidence"],
-            method="Wilson score",
-        ),
-        "yield_low": _da(
-            np.array([r["yield_low"] for r in results]),
-            ("candidate",),
-            "1",
-            "lower confidence limit of the yield",
-        ),
-        "yield_high": _da(
-            np.array([r["yield_high"] for r in results]),
-            ("candidate",),
-            "1",
-            "upper confidence limit of the yield",
-        ),
-        "sensitivity_alone": _da(
-            np.array(
-                [[r["sens_alone"].get(t, np.nan) for t in tol_names] for r in results]
-            ).reshape(C, len(tol_names)),
-            ("candidate", "tolerance_name"),
-            "1",
-            "yield with only this tolerance acting",
-            samples=int(results[0]["sensitivity_samples"]),
-        ),
-        "sensitivity_without": _da(
-            np.array(
-                [[r["sens_without"].get(t, np.nan) for t in tol_names] for r in results]
-            ).reshape(C, len(tol_names)),
-            ("candidate", "tolerance_name"),
-            "1",
-            "yield with every tolerance but this one (what holding it exactly would buy)",
-            samples=int(results[0]["sensitivity_samples"]),
-        ),
-        "dominant": _da(
-            np.array([r["dominant"] for r in results], dtype=object),
-            ("candidate",),
-            "",
-            "tolerance whose removal raises the yield most",
-        ),
-        "retardance_error_temperature": _da(
-            env_t,
-            ("candidate", "temperature"),
-            "waves",
-            "retardance change with temperature at the design wavelength",
-        ),
-        "retardance_error_tilt": _da(
-            env_tilt,
-            ("candidate", "tilt", "tilt_azimuth"),
-            "waves",
-            "retardance change with angle of incidence at the design wavelength",
-        ),
-        "acceptance_half_angle": _da(
-            accept,
-            ("candidate",),
-            "deg",
-            "largest angle of incidence keeping the retardance error "
-            "within the limit at every azimuth",
-            limit_waves=limit,
-        ),
-        "temperature_coefficient": _da(
-            tcoef, ("candidate",), "deg/K", "retardance change per kelvin at the design wavelength"
-        ),
-        "rank": _da(ranks, ("candidate",), "1", "rank of the candidate (1 = pick)"),
-        "reason": _da(reasons, ("candidate",), "", "one-line reason for the rank"),
+        "spectral_dop": stack("dop"),
+        "pass_metric": stack("pass_metric"),
+        "design_stokes": stack("design_stokes"),
+        "worst_metric_quantile": wq(stack("worst")),
+        "pass_metric_quantile": wq(stack("pass_metric")),
+        "dop_quantile": wq(stack("dop")),
     }
-    for v, key in enumerate(VARIABLES):
-        units = {"retardance": "waves", "axial_ratio": "1", "azimuth": "deg", "metric": mu}[key]
-        long = {
-            "retardance": "retardance",
-            "axial_ratio": "axial ratio b/a",
-            "azimuth": "major-axis azimuth",
-            "metric": mlong,
-        }[key]
-        data[f"{key}_quantile"] = _da(
-            quant[:, :, v],
-            ("candidate", "quantile", "wavelength"),
-            units,
-            f"quantiles over samples of the {long}",
+    quant = stack("quantiles")  # (C, Q, V, W)
+    for v, key in enumerate(KERNEL_VARS):
+        out[f"{key}_quantile"] = quant[:, :, v]
+        if results[0].kept is not None:
+            out[f"sample_{key}"] = np.stack([r.kept[:, v, :] for r in results])
+    return out
+
+
+def _yield_values(results, tol_names) -> dict:
+    C = len(results)
+
+    def sens(attr):
+        return np.array([[getattr(r, attr).get(t, np.nan) for t in tol_names] for r in results]).reshape(
+            C, len(tol_names)
         )
-        if results[0]["kept"] is not None:
-            data[f"sample_{key}"] = _da(
-                np.stack([r["kept"][:, v, :] for r in results]),
-                ("candidate", "sample", "wavelength"),
-                units,
-                f"per-sample {long}",
-            )
-    coords = {
-        "candidate": _da(np.array(names, dtype=object), ("candidate",), "", "candidate plate"),
-        "wavelength": _da(wl, ("wavelength",), "nm", "vacuum wavelength"),
-        "quantile": _da(qarr, ("quantile",), "1", "quantile over samples"),
-        "sample": _da(np.arange(n), ("sample",), "1", "Monte Carlo sample"),
-        "tolerance_name": _da(
-            np.array(tol_names, dtype=object), ("tolerance_name",), "", "tolerance name"
-        ),
-        "stokes": _da(
-            np.array(["s1", "s2", "s3"], dtype=object),
-            ("stokes",),
-            "1",
-            "normalised Stokes component",
-        ),
-        "layer": _da(np.arange(L), ("layer",), "1", "layer index (light meets 0 first)"),
-        "temperature": _da(temps, ("temperature",), "degC", "plate temperature"),
-        "tilt": _da(tilts, ("tilt",), "deg", "angle of incidence"),
-        "tilt_azimuth": _da(
-            azs, ("tilt_azimuth",), "deg", "plane-of-incidence azimuth from the plate's fast axis"
+
+    return {
+        "rank_yield": np.array([r.rank_yield for r in results]),
+        "yield": np.array([r.yield_ for r in results]),
+        "yield_low": np.array([r.yield_low for r in results]),
+        "yield_high": np.array([r.yield_high for r in results]),
+        "sensitivity_alone": sens("sens_alone"),
+        "sensitivity_without": sens("sens_without"),
+        "dominant": np.array([SHORT.get(r.dominant, r.dominant) for r in results], dtype=object),
+    }
+
+
+def _environment_values(study, cases, temps, tilts, azs) -> dict:
+    env = study.environment
+    limit = study.goal.acceptance_limit_waves
+    return {
+        "retardance_error_temperature": np.stack([temperature_error(c.plate, temps) for c in cases]),
+        "retardance_error_tilt": np.stack([tilt_error(c.plate, tilts, azs) for c in cases]),
+        "acceptance_half_angle": np.array([acceptance_half_angle(c.plate, limit) for c in cases]),
+        "temperature_coefficient": np.array(
+            [temperature_coefficient(c.plate, env.temperature_c) for c in cases]
         ),
     }
+
+
+def _decision_values(names, results, values) -> dict:
+    ranks, reasons = rank(
+        names,
+        [r.rank_yield for r in results],
+        [r.rank_yield_low for r in results],
+        [r.rank_yield_high for r in results],
+        list(values["nominal_spectral_fidelity"]),
+        values["acceptance_half_angle"],
+        values["temperature_coefficient"],
+    )
+    return {"rank": ranks, "reason": reasons}
+
+
+def _attrs(eng, cases, mu, mlong) -> dict:
+    study = eng.study
     mats = {}
     for c in cases:
         for la in c.plate.layers:
@@ -428,36 +341,84 @@ def build_grid(spec, wl, spectrum, cases, results, qs, tol_names, seed, n, chunk
                 "thermal_source": m.thermal_source,
                 "valid_nm": [m.valid_min_nm, m.valid_max_nm],
             }
-    clean_spec = {k: v for k, v in spec.items() if k not in ("base_dir", "source_text")}
-    attrs = {
-        "title": spec["title"],
-        "spec": json.dumps(clean_spec, sort_keys=True),
-        "spec_path": str(spec.get("spec_path", "")),
-        "spec_toml": str(spec.get("source_text", "")),
-        "seed": int(seed),
-        "samples": int(n),
-        "chunk_size": int(chunk),
+    return {
+        "title": study.title,
+        "spec": study.to_json(),
+        "spec_path": str(study.spec_path),
+        "spec_toml": str(study.source_text or ""),
+        "seed": int(eng.seed),
+        "samples": int(eng.samples),
+        "chunk_size": int(eng.chunk),
         "version": __version__,
         "material_sources": json.dumps(list(mats.values())),
-        "goal_state": spec["goal"]["state"],
-        "goal_metric": spec["goal"]["metric"],
-        "goal_min": float(spec["goal"]["min"]),
-        "goal_over": spec["goal"]["over"],
+        "goal_state": study.goal.state,
+        "goal_metric": study.goal.metric,
+        "goal_min": float(study.goal.min),
+        "goal_over": study.goal.over,
         "metric_units": mu,
         "metric_long_name": mlong,
-        "source_description": spectrum.description,
-        "confidence": float(spec["run"]["confidence"]),
-        "acceptance_limit_waves": float(limit),
-        "nominal_temperature_c": float(env["temperature_c"]),
+        "source_description": eng.spectrum.description,
+        "confidence": float(study.run.confidence),
+        "acceptance_limit_waves": float(study.goal.acceptance_limit_waves),
+        "nominal_temperature_c": float(study.environment.temperature_c),
         "command": "",
         "laser_caution": LASER_CAUTION,
-        "conventions": (
-            "time dependence exp(i(kz - wt)); S3 > 0 = clockwise looking toward the "
-            "source = right-handed; angles counter-clockwise from x looking toward "
-            "the source"
-        ),
+        "conventions": CONVENTIONS,
     }
-    return xr.Dataset(data, coords=coords, attrs=attrs)
+
+
+def to_dataset(eng, results, tol_keys) -> xr.Dataset:
+    """Assemble the results Dataset from an :class:`~tolerance.montecarlo.Engine`'s per-candidate
+    :class:`~tolerance.montecarlo.CandidateResult` records, labelled from :data:`SCHEMA`."""
+    study = eng.study
+    cases = eng.cases
+    names = [c.plate.name for c in cases]
+    tol_names = [SHORT[k] for k in tol_keys]
+    info = METRICS[study.goal.metric].extra
+    mu, mlong = info["unit"], info["long_name"]
+    env = study.environment
+    temps = np.linspace(env.temperature_range[0], env.temperature_range[1], 61)
+    tilts = np.linspace(0.0, env.tilt_max_deg, 41)
+    azs = np.arange(0.0, 360.0, 7.5)
+    short_results = [
+        dataclasses.replace(
+            r,
+            sens_alone={SHORT[k]: v for k, v in r.sens_alone.items()},
+            sens_without={SHORT[k]: v for k, v in r.sens_without.items()},
+        )
+        for r in results
+    ]
+    values = {
+        "source_spectrum": np.asarray(eng.spectrum.density, float),
+        "source_weight": np.asarray(eng.spectrum.grid_weight, float),
+        **_design_values(cases),
+        **_nominal_values(cases, results),
+        **_sample_values(cases, results, study.run.quantiles),
+        **_yield_values(short_results, tol_names),
+        **_environment_values(study, cases, temps, tilts, azs),
+    }
+    values.update(_decision_values(names, results, values))
+    n_sens = int(results[0].sensitivity_samples)
+    var_attrs = {
+        "yield": {"confidence": study.run.confidence, "method": "Wilson score"},
+        "sensitivity_alone": {"samples": n_sens},
+        "sensitivity_without": {"samples": n_sens},
+        "acceptance_half_angle": {"limit_waves": study.goal.acceptance_limit_waves},
+    }
+    L = max(len(c.plate.layers) for c in cases)
+    coords = {
+        "candidate": np.array(names, dtype=object),
+        "wavelength": eng.grid,
+        "quantile": np.asarray(study.run.quantiles, dtype=float),
+        "sample": np.arange(eng.samples),
+        "tolerance_name": np.array(tol_names, dtype=object),
+        "stokes": np.array(["s1", "s2", "s3"], dtype=object),
+        "layer": np.arange(L),
+        "temperature": temps,
+        "tilt": tilts,
+        "tilt_azimuth": azs,
+    }
+    return assemble(values, coords, _attrs(eng, cases, mu, mlong), study.goal.metric, var_attrs)
 
 
 def save_grid(ds: xr.Dataset, path) -> Path:

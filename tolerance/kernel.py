@@ -21,24 +21,94 @@ checks the kernel against those numpy functions.  Inputs are plain numpy arrays 
 from __future__ import annotations
 
 import math
+from typing import NamedTuple
 
 import numba as nb
 import numpy as np
+
+from .metrics import CODES
 
 #: Statistics kept per wavelength, in this order.
 VARIABLES = ("retardance", "axial_ratio", "azimuth", "metric")
 N_VAR = len(VARIABLES)
 
-METRIC_AXIAL_RATIO = 0
-METRIC_FIDELITY = 1
-METRIC_EXTINCTION = 2
-METRICS = {
-    "axial_ratio": METRIC_AXIAL_RATIO,
-    "fidelity": METRIC_FIDELITY,
-    "extinction_db": METRIC_EXTINCTION,
-}
+METRICS = CODES  # metric name -> kernel code, from the metric registry
+METRIC_AXIAL_RATIO = CODES["axial_ratio"]
+METRIC_FIDELITY = CODES["fidelity"]
+METRIC_EXTINCTION = CODES["extinction_db"]
 
 EXTINCTION_FLOOR = 1e-15  # 150 dB cap, as polarization.EXTINCTION_CAP_DB
+
+class WavelengthOptics(NamedTuple):
+    """Per wavelength: k0 = 2π/λ [1/µm] (W,) and per layer n_o², n_e², (n_e/n_o)², Δn (W, L)."""
+
+    k0: np.ndarray
+    no2: np.ndarray
+    ne2: np.ndarray
+    rat: np.ndarray
+    dn: np.ndarray
+
+
+class LineOptics(NamedTuple):
+    """Per discrete source line: k0 (Ssrc, K), indices (Ssrc, K, L), power weights (K,)."""
+
+    k0: np.ndarray
+    no2: np.ndarray
+    ne2: np.ndarray
+    rat: np.ndarray
+    dn: np.ndarray
+    weight: np.ndarray
+
+
+class SampleInputs(NamedTuple):
+    """Per sample (S) and layer (L): thickness [µm], temperature factor, cos/sin of twice the
+    fast-axis angle, sin² of the angle of incidence (S,), cos²/sin² of the plane of incidence
+    against the optic axis, and cos/sin of the input azimuth (S,)."""
+
+    thick: np.ndarray
+    tfac: np.ndarray
+    c2: np.ndarray
+    s2: np.ndarray
+    sin2i: np.ndarray
+    cphi2: np.ndarray
+    sphi2: np.ndarray
+    ca: np.ndarray
+    sa: np.ndarray
+
+
+class Target(NamedTuple):
+    """Layer projections on the plate axis (L,), goal Stokes (3,), metric code, design index."""
+
+    proj: np.ndarray
+    goal: np.ndarray
+    metric_kind: int
+    w_design: int
+
+
+class Statistics(NamedTuple):
+    """Streaming statistics state, updated in place (see :func:`chunk_pass`)."""
+
+    do_hist: bool
+    lo: np.ndarray
+    inv_width: np.ndarray
+    hist: np.ndarray
+    vmin: np.ndarray
+    vmax: np.ndarray
+    block_sums: np.ndarray
+    block_size: int
+    ret_shift: np.ndarray
+
+
+class SampleOutputs(NamedTuple):
+    """Per-sample outputs: worst metric (S,), source-averaged and design Stokes (S, 3), kept
+    values (S, N_VAR, W) when ``keep``."""
+
+    worst: np.ndarray
+    spec_stokes: np.ndarray
+    design_stokes: np.ndarray
+    keep: bool
+    kept: np.ndarray
+
 
 _OPTS = dict(nogil=True, cache=True, fastmath=False, error_model="numpy")
 
@@ -404,8 +474,10 @@ def _observable_rows(work):
 
 
 @nb.njit(**_OPTS)
-def _one_sample(k0, no2, ne2, rat, dn, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj):
+def _one_sample(optics, sample, proj):
     """The work rows of one sample at every wavelength (the one-sample kernels' common part)."""
+    k0, no2, ne2, rat, dn = optics
+    thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa = sample
     work = np.empty((N_WORK, k0.shape[0]))
     _spectrum(
         k0,
@@ -429,31 +501,12 @@ def _one_sample(k0, no2, ne2, rat, dn, thick, tfac, c2, s2, sin2i, cphi2, sphi2,
 
 
 @nb.njit(**_OPTS)
-def per_wavelength_values(
-    k0,
-    no2,
-    ne2,
-    rat,
-    dn,
-    thick,
-    tfac,
-    c2,
-    s2,
-    sin2i,
-    cphi2,
-    sphi2,
-    ca,
-    sa,
-    proj,
-    goal,
-    metric_kind,
-    out,
-):
+def per_wavelength_values(optics, sample, proj, goal, metric_kind, out):
     """Retardance, axial ratio, azimuth and metric of one sample at every wavelength into
-    ``out`` (N_VAR, W), with exactly the arithmetic of :func:`chunk_pass`."""
-    work = _one_sample(
-        k0, no2, ne2, rat, dn, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj
-    )
+    ``out`` (N_VAR, W), with exactly the arithmetic of :func:`chunk_pass`.  ``sample`` holds the
+    fields of :class:`SampleInputs` for one sample."""
+    k0 = optics[0]
+    work = _one_sample(optics, sample, proj)
     _metric_row(work, goal[0], goal[1], goal[2], metric_kind)
     _observable_rows(work)
     for w in range(k0.shape[0]):
@@ -464,11 +517,10 @@ def per_wavelength_values(
 
 
 @nb.njit(**_OPTS)
-def stokes_one(k0, no2, ne2, rat, dn, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, out):
+def stokes_one(optics, sample, proj, out):
     """Normalised Stokes (s1, s2, s3) of one sample at every wavelength into ``out`` (W, 3)."""
-    work = _one_sample(
-        k0, no2, ne2, rat, dn, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj
-    )
+    k0 = optics[0]
+    work = _one_sample(optics, sample, proj)
     for w in range(k0.shape[0]):
         out[w, 0] = work[_XR, w]
         out[w, 1] = work[_XI, w]
@@ -476,54 +528,12 @@ def stokes_one(k0, no2, ne2, rat, dn, thick, tfac, c2, s2, sin2i, cphi2, sphi2, 
 
 
 @nb.njit(parallel=True, **_OPTS)
-def chunk_pass(
-    # per wavelength of the analysis grid: k0 (W,), indices (W, L)
-    k0,
-    no2,
-    ne2,
-    rat,
-    dn,
-    grid_weight,
-    # per discrete source line: k0 (Ssrc, K) and indices (Ssrc, K, L); Ssrc is 1 or S
-    lk0,
-    lno2,
-    lne2,
-    lrat,
-    ldn,
-    line_weight,
-    # per sample (S) and layer
-    thick,
-    tfac,
-    c2,
-    s2,
-    sin2i,
-    cphi2,
-    sphi2,
-    ca,
-    sa,
-    # constants
-    proj,
-    goal,
-    metric_kind,
-    w_design,
-    # statistics state (updated in place)
-    do_hist,
-    lo,
-    inv_width,
-    hist,
-    vmin,
-    vmax,
-    block_sums,
-    block_size,
-    ret_shift,
-    # per-sample outputs
-    worst,
-    spec_stokes,
-    design_stokes,
-    keep,
-    kept,
-):
-    """Process one chunk; see the module docstring.  Shapes: hist (T, N_VAR, W, B) int32 or
+def chunk_pass(optics, grid_weight, lines, samples, target, stats, outs):
+    """Process one chunk; see the module docstring.
+
+    The inputs travel as tuples in the order of :class:`WavelengthOptics`, :class:`LineOptics`,
+    :class:`SampleInputs`, :class:`Target`, :class:`Statistics` and :class:`SampleOutputs`
+    (named tuples built by :mod:`tolerance.montecarlo`).  Shapes: hist (T, N_VAR, W, B) int32 or
     int64, vmin/vmax (T, N_VAR, W), block_sums (n_blocks, W, 2), worst (S,), spec_stokes (S, 3),
     design_stokes (S, 3), kept (S, N_VAR, W) float32 when ``keep``.
 
@@ -531,6 +541,12 @@ def chunk_pass(
     every per-sample and per-block result is written by one thread only, so the results do not
     depend on T.
     """
+    k0, no2, ne2, rat, dn = optics
+    lk0, lno2, lne2, lrat, ldn, line_weight = lines
+    thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa = samples
+    proj, goal, metric_kind, w_design = target
+    do_hist, lo, inv_width, hist, vmin, vmax, block_sums, block_size, ret_shift = stats
+    worst, spec_stokes, design_stokes, keep, kept = outs
     S = thick.shape[0]
     W = k0.shape[0]
     K = line_weight.shape[0]

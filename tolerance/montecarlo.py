@@ -1,145 +1,132 @@
 """The Monte Carlo tolerance engine: draws, chunks, the fused kernel and the statistics.
 
-:func:`run` takes a validated spec (see :mod:`tolerance.spec`) and returns the results grid, an
-xarray Dataset (built by :mod:`tolerance.grid`).  Memory is bounded by the chunk size: per
-wavelength the engine keeps streaming histograms, exact minima and maxima and per-block sums, and
-per sample only a few scalars (worst metric, spectrally averaged Stokes vector, state at the
-design wavelength), unless per-sample spectra are asked for (``keep_samples``).
+:func:`run` takes a validated :class:`~tolerance.study.Study` and returns the results grid, an
+xarray Dataset (assembled by :func:`tolerance.grid.to_dataset`).  Studies that call the engine
+many times (allocation, design, sweeps) use :class:`Engine` directly: it draws once per study
+and reuses the draws (common random numbers), takes tolerances scaled or replaced per call
+without redrawing, a plate swapped per call, and returns a frozen :class:`CandidateResult`.
+
+Memory is bounded by the chunk size: per wavelength the engine keeps streaming histograms, exact
+minima and maxima and per-block sums, and per sample only a few scalars (worst metric, spectrally
+averaged Stokes vector, state at the design wavelength), unless per-sample spectra are asked for
+(``keep_samples``).
 """
 
 from __future__ import annotations
 
+import dataclasses
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass
-from pathlib import Path
+from types import MappingProxyType
 
 import numpy as np
 
 from . import sampler
-from .dispersion import check_range, indices
+from .dispersion import indices
+from .distributions import Distribution
 from .errors import RetolError
-from .plates import Plate, design_plate
+from .kernel import (
+    METRICS,
+    N_VAR,
+    LineOptics,
+    SampleInputs,
+    SampleOutputs,
+    Statistics,
+    Target,
+    WavelengthOptics,
+    chunk_pass,
+    per_wavelength_values,
+    spectral_metric,
+    stokes_one,
+)
+from .plates import Plate
 from .polarization import goal_vector
+from .study import Candidate, Study
+from .tolerances import SHORT
 
 #: Histogram bins per variable and wavelength (fewer for very long grids).
 BINS = 2048
 PILOT = 2048
 DEFAULT_CHUNK = 16384
 DEFAULT_SENSITIVITY_SAMPLES = 20000
+#: Draws kept in memory for reuse across candidates and calls (bytes).
+DRAW_CACHE_BYTES = 512 * 2**20
+#: Kept per-sample values larger than this are refused (float32 values).
+KEEP_LIMIT = 400_000_000
 
-# ----------------------------------------------------------------------------- preparation
+
+# ----------------------------------------------------------------------------- records
 
 
-@dataclass
+@dataclass(frozen=True)
 class Case:
-    """One candidate ready for the kernel."""
+    """One candidate ready for the kernel: its plate, tolerances and goal vector."""
 
+    candidate: Candidate
     plate: Plate
-    spec: dict
-    tolerances: dict
+    tolerances: Mapping[str, Distribution]
     goal: np.ndarray
     handedness: int
     w_design: int
 
+    @property
+    def active(self) -> tuple[str, ...]:
+        """Tolerances that vary (zero widths left out), in the grid's order."""
+        return tuple(k for k in SHORT if k in self.tolerances and not self.tolerances[k].is_zero)
 
-def wavelength_grid(spec: dict) -> np.ndarray:
-    w = spec["wavelength"]
-    return np.round(w["start_nm"] + w["step_nm"] * np.arange(w["count"]), 9)
-
-
-def build_plate(c: dict) -> Plate:
-    keys = {
-        k: c[k]
-        for k in ("order", "thick_plate_um", "partner", "match_nm", "retardance_nm", "layers")
-        if k in c
-    }
-    return design_plate(
-        c["construction"],
-        material=c.get("material"),
-        waves=c["waves"],
-        design_nm=c.get("design_nm"),
-        axis_deg=c["axis_deg"],
-        name=c["name"],
-        **keys,
-    )
+    @property
+    def fixed(self) -> tuple[str, ...]:
+        """Fixed values (a range with low == high): conditions, not tolerances."""
+        return tuple(k for k, v in self.tolerances.items() if v.is_fixed_value)
 
 
-def drift_distribution(spec: dict) -> dict | None:
-    """The laser's centre drift as a normalised distribution in nm, or None."""
-    src = spec["source"]
-    if "drift" not in src:
-        return None
-    from .spec import _Ctx, _distribution
+@dataclass(frozen=True)
+class Nominal:
+    """The error-free plate through the same kernel arithmetic."""
 
-    raw = src["drift"]
-    if isinstance(raw, dict):
-        raw = {
-            k: (_nm(v, f"[source].drift.{k}") if isinstance(v, str) else v) for k, v in raw.items()
-        }
-    d = _distribution(
-        _Ctx(Path(spec.get("spec_path", "<spec>")).name), "drift", raw, where="[source].drift"
-    )
-    if d["kind"] == "range":
-        # an absolute wavelength range: the draws are offsets from the line's centre
-        from .units import wavelength_nm
-
-        c = wavelength_nm(src.get("center", 0.0), "[source].center")
-        d = {"kind": "range", "low": d["low"] - c, "high": d["high"] - c}
-    return d
+    values: np.ndarray  # (N_VAR, W)
+    stokes: np.ndarray  # (W, 3)
+    worst: float
+    spec_stokes: np.ndarray  # (3,)
+    design_stokes: np.ndarray  # (3,)
 
 
-def _nm(v, field):
-    from .units import interval_nm
+@dataclass(frozen=True)
+class CandidateResult:
+    """Everything the engine learns about one candidate; the grid is assembled from these."""
 
-    return interval_nm(v, field)
-
-
-def spectrum_of(spec: dict, grid: np.ndarray):
-    from .sources import build_spectrum
-
-    base = spec.get("base_dir")
-    fname = Path(spec.get("spec_path", "<spec>")).name
-    return build_spectrum(
-        spec["source"], grid, Path(base) if base else None, field=f"{fname}: [source]"
-    )
-
-
-def tolerances_for(spec: dict, cand: dict) -> dict:
-    """The candidate's tolerances: the spec's, overridden by the candidate's own, plus drift."""
-    tol = dict(spec["tolerances"])
-    tol.update(cand.get("tolerances", {}))
-    d = drift_distribution(spec)
-    if d is not None:
-        tol["drift"] = d
-    return tol
-
-
-GRID_NAMES = {
-    "thickness_um": "thickness",
-    "clocking_deg": "clocking",
-    "crossing_deg": "crossing",
-    "tilt_deg": "tilt",
-    "temperature_c": "temperature",
-    "input_azimuth_deg": "input_azimuth",
-    "drift": "drift",
-}
+    name: str
+    quantiles: np.ndarray  # (Q, N_VAR, W)
+    mean: np.ndarray  # (W,) retardance [waves]
+    std: np.ndarray  # (W,)
+    worst: np.ndarray  # (S,)
+    spectral_metric: np.ndarray  # (S,)
+    pass_metric: np.ndarray  # (S,)
+    dop: np.ndarray  # (S,)
+    design_stokes: np.ndarray  # (S, 3)
+    spec_stokes: np.ndarray  # (S, 3)
+    kept: np.ndarray | None  # (S, N_VAR, W) float32
+    passes: int
+    yield_: float
+    yield_low: float
+    yield_high: float
+    rank_yield: float
+    rank_yield_low: float
+    rank_yield_high: float
+    nominal: Nominal
+    nominal_spectral_metric: float
+    nominal_dop: float
+    sens_alone: Mapping[str, float]  # by spec key
+    sens_without: Mapping[str, float]
+    dominant: str  # spec key or "none"
+    sensitivity_samples: int
 
 
-def _is_zero(dist: dict) -> bool:
-    """True when a distribution cannot vary (zero width); a fixed range still shifts the value,
-    so it stays active when low == high only if it differs from the nominal."""
-    k = dist["kind"]
-    if k == "normal":
-        return dist["sigma"] == 0
-    if k == "uniform":
-        return dist["half_width"] == 0
-    return dist["low"] == dist["high"]
+# ----------------------------------------------------------------------------- plate optics
 
 
-# ----------------------------------------------------------------------------- per-chunk inputs
-
-
-def _layer_optics(plate: Plate, wl: np.ndarray):
+def layer_optics(plate: Plate, wl: np.ndarray) -> WavelengthOptics:
     """k0 (…,) and per-layer n_o², n_e², (n_e/n_o)², Δn arrays of shape (…, L)."""
     no2, ne2, dn = [], [], []
     for la in plate.layers:
@@ -150,7 +137,7 @@ def _layer_optics(plate: Plate, wl: np.ndarray):
     no2 = np.stack(no2, axis=-1)
     ne2 = np.stack(ne2, axis=-1)
     k0 = 2.0 * np.pi * 1e3 / wl
-    return (
+    return WavelengthOptics(
         np.ascontiguousarray(k0),
         np.ascontiguousarray(no2),
         np.ascontiguousarray(ne2),
@@ -159,105 +146,126 @@ def _layer_optics(plate: Plate, wl: np.ndarray):
     )
 
 
-def sample_inputs(case: Case, spec: dict, seed: int, start: int, stop: int, active=None):
-    """Per-sample kernel inputs for samples [start, stop) (a multiple of BLOCK at ``start``).
-
-    ``active`` limits the tolerances that act (None: all of the case's).
-    """
-    plate = case.plate
-    L = len(plate.layers)
-    n = stop - start
-    tol = {k: v for k, v in case.tolerances.items() if active is None or k in active}
-
-    def draw(name, index=0):
-        return sampler.standard_draws(seed, name, index, start, stop)
-
-    thick = np.empty((n, L))
-    axis = np.empty((n, L))
-    optic = np.empty((n, L))
-    tfac = np.empty((n, L))
-    t_nom = spec["environment"]["temperature_c"]
-    if "temperature_c" in tol:
-        z, u = draw("temperature_c")
-        temp = sampler.scaled(tol["temperature_c"], z, u, center=t_nom)
-    else:
-        temp = np.full(n, t_nom)
-    if "clocking_deg" in tol:
-        z, u = draw("clocking_deg")
-        clock = sampler.scaled(tol["clocking_deg"], z, u)
-    else:
-        clock = np.zeros(n)
-    for j, la in enumerate(plate.layers):
-        if "thickness_um" in tol:
-            z, u = draw("thickness_um", j)
-            thick[:, j] = la.thickness_um + sampler.scaled(tol["thickness_um"], z, u)
-        else:
-            thick[:, j] = la.thickness_um
-        cross = 0.0
-        if j > 0 and "crossing_deg" in tol:
-            z, u = draw("crossing_deg", j)
-            cross = sampler.scaled(tol["crossing_deg"], z, u)
-        axis[:, j] = la.axis_deg + clock + cross
-        optic[:, j] = la.optic_axis_deg + clock + cross
-        m = la.material
-        tfac[:, j] = 1.0 + m.retardance_temperature_coefficient * (temp - m.reference_temperature_c)
-    np.maximum(thick, 0.0, out=thick)
-    if "tilt_deg" in tol:
-        z, u = draw("tilt_deg")
-        aoi = np.abs(sampler.scaled(tol["tilt_deg"], z, u))
-        _, u2 = draw("tilt_azimuth")
-        poi = 360.0 * u2
-    else:
-        aoi = np.zeros(n)
-        poi = np.zeros(n)
-    sin2i = np.sin(np.radians(aoi)) ** 2
-    phi = np.radians(poi[:, None] - optic)
-    alpha = spec["input"]["azimuth_deg"]
-    if "input_azimuth_deg" in tol:
-        z, u = draw("input_azimuth_deg")
-        alpha = alpha + sampler.scaled(tol["input_azimuth_deg"], z, u)
-    alpha = np.radians(np.broadcast_to(alpha, (n,)))
-    drift = None
-    if "drift" in tol:
-        z, u = draw("drift")
-        drift = sampler.scaled(tol["drift"], z, u)
-    th = np.radians(2.0 * axis)
-    return {
-        "thick": np.ascontiguousarray(thick),
-        "tfac": np.ascontiguousarray(tfac),
-        "c2": np.ascontiguousarray(np.cos(th)),
-        "s2": np.ascontiguousarray(np.sin(th)),
-        "sin2i": np.ascontiguousarray(sin2i),
-        "cphi2": np.ascontiguousarray(np.cos(phi) ** 2),
-        "sphi2": np.ascontiguousarray(np.sin(phi) ** 2),
-        "ca": np.ascontiguousarray(np.cos(alpha)),
-        "sa": np.ascontiguousarray(np.sin(alpha)),
-        "drift": drift,
-        "temperature": temp,
-        "aoi": aoi,
-    }
-
-
-def _line_optics(plate: Plate, lines_nm: np.ndarray, drift):
-    """Line optics arrays of shape (Ssrc, K[, L]); per sample when the laser drifts."""
+def line_optics(plate: Plate, spectrum, drift) -> LineOptics:
+    """Line optics of shape (Ssrc, K[, L]); per sample when the laser drifts."""
+    lines_nm = spectrum.lines_nm
     if lines_nm.size == 0:
         wl = np.full((1, 1), 1000.0)
     elif drift is None:
         wl = lines_nm[None, :]
     else:
         wl = lines_nm[None, :] + drift[:, None]
-    return _layer_optics(plate, wl)
+    w = np.array(spectrum.line_weight, dtype=float)  # a writable copy: one numba signature
+    return LineOptics(*layer_optics(plate, wl), w if w.size else np.zeros(0))
 
 
-# ----------------------------------------------------------------------------- the engine
+# ----------------------------------------------------------------------------- draws
+
+
+class Draws:
+    """Standard draws of one seed, made once and reused (common random numbers).
+
+    Every candidate and every call reads the same standardised draws of a tolerance stream, so
+    differences between candidates or tolerance widths are not sampling noise.  Draws are kept
+    up to :data:`DRAW_CACHE_BYTES`; past that they are made again (identically) on demand.
+    """
+
+    def __init__(self, seed: int):
+        self.seed = int(seed)
+        self._cache: dict = {}
+        self._bytes = 0
+
+    def __call__(self, name: str, index: int, start: int, stop: int):
+        key = (name, index, start, stop)
+        hit = self._cache.get(key)
+        if hit is not None:
+            return hit
+        z, u = sampler.standard_draws(self.seed, name, index, start, stop)
+        size = z.nbytes + u.nbytes
+        if self._bytes + size <= DRAW_CACHE_BYTES:
+            z.flags.writeable = False
+            u.flags.writeable = False
+            self._cache[key] = (z, u)
+            self._bytes += size
+        return z, u
+
+
+def sample_inputs(case: Case, study: Study, draws: Draws, start: int, stop: int, active=None):
+    """Per-sample kernel inputs for samples [start, stop) (``start`` a multiple of BLOCK).
+
+    ``active`` limits the tolerances that act (None: all of the case's).  Returns the
+    :class:`~tolerance.kernel.SampleInputs` and a dict of the drawn drift [nm] (or None),
+    temperature [°C] and angle of incidence [deg].
+    """
+    plate = case.plate
+    L = len(plate.layers)
+    n = stop - start
+    tol = {k: v for k, v in case.tolerances.items() if active is None or k in active}
+
+    def value(key, index=0, center=0.0):
+        z, u = draws(key, index, start, stop)
+        return tol[key].draw(z, u, center=center)
+
+    thick = np.empty((n, L))
+    axis = np.empty((n, L))
+    optic = np.empty((n, L))
+    tfac = np.empty((n, L))
+    t_nom = study.environment.temperature_c
+    temp = value("temperature_c", center=t_nom) if "temperature_c" in tol else np.full(n, t_nom)
+    clock = value("clocking_deg") if "clocking_deg" in tol else np.zeros(n)
+    for j, la in enumerate(plate.layers):
+        if "thickness_um" in tol:
+            thick[:, j] = la.thickness_um + value("thickness_um", j)
+        else:
+            thick[:, j] = la.thickness_um
+        cross = value("crossing_deg", j) if j > 0 and "crossing_deg" in tol else 0.0
+        axis[:, j] = la.axis_deg + clock + cross
+        optic[:, j] = la.optic_axis_deg + clock + cross
+        m = la.material
+        tfac[:, j] = 1.0 + m.retardance_temperature_coefficient * (temp - m.reference_temperature_c)
+    np.maximum(thick, 0.0, out=thick)
+    if "tilt_deg" in tol:
+        aoi = np.abs(value("tilt_deg"))
+        _, u2 = draws("tilt_azimuth", 0, start, stop)
+        poi = 360.0 * u2
+    else:
+        aoi = np.zeros(n)
+        poi = np.zeros(n)
+    sin2i = np.sin(np.radians(aoi)) ** 2
+    phi = np.radians(poi[:, None] - optic)
+    alpha = study.input.azimuth_deg
+    if "input_azimuth_deg" in tol:
+        alpha = alpha + value("input_azimuth_deg")
+    alpha = np.radians(np.broadcast_to(alpha, (n,)))
+    drift = value("drift") if "drift" in tol else None
+    th = np.radians(2.0 * axis)
+    c = np.ascontiguousarray
+    inputs = SampleInputs(
+        c(thick),
+        c(tfac),
+        c(np.cos(th)),
+        c(np.sin(th)),
+        c(sin2i),
+        c(np.cos(phi) ** 2),
+        c(np.sin(phi) ** 2),
+        c(np.cos(alpha)),
+        c(np.sin(alpha)),
+    )
+    return inputs, {"drift": drift, "temperature": temp, "aoi": aoi}
+
+
+def first_sample(inputs: SampleInputs) -> tuple:
+    """The first sample's kernel inputs (for the one-sample kernels)."""
+    return tuple(a[0] for a in inputs)
+
+
+# ----------------------------------------------------------------------------- statistics
 
 
 class Accumulator:
     """Streaming statistics of one candidate over all chunks."""
 
     def __init__(self, n_samples: int, W: int, lo, inv_width, bins: int, threads: int, keep: bool):
-        from .kernel import N_VAR
-
         # int32 counts halve the histograms' memory traffic; int64 only past 2**31 samples
         self.hist = np.zeros(
             (threads, N_VAR, W, bins), dtype=np.int32 if n_samples < 2**31 else np.int64
@@ -272,203 +280,6 @@ class Accumulator:
         self.design_stokes = np.empty((n_samples, 3))
         self.kept = np.empty((n_samples, N_VAR, W), dtype=np.float32) if keep else None
         self.n = n_samples
-
-
-def _kernel_call(
-    case,
-    spec,
-    wl_optics,
-    spectrum,
-    inputs,
-    acc: Accumulator | None,
-    start,
-    stop,
-    do_hist,
-    ret_shift,
-    keep_out=None,
-):
-    from .kernel import METRICS, N_VAR, chunk_pass
-
-    k0, no2, ne2, rat, dn = wl_optics
-    n = stop - start
-    lk0, lno2, lne2, lrat, ldn = _line_optics(case.plate, spectrum.lines_nm, inputs["drift"])
-    line_w = np.array(spectrum.line_weight, dtype=float)  # a writable copy: one numba signature
-    if line_w.size == 0:
-        line_w = np.zeros(0)
-    worst = np.empty(n)
-    spec_st = np.empty((n, 3))
-    des_st = np.empty((n, 3))
-    n_blocks = (n + sampler.BLOCK - 1) // sampler.BLOCK
-    block_sums = np.zeros((n_blocks, k0.shape[0], 2))
-    if acc is not None and do_hist:
-        hist, vmin, vmax, lo, iw = acc.hist, acc.vmin, acc.vmax, acc.lo, acc.inv_width
-    else:
-        import numba
-
-        T = numba.get_num_threads()
-        hist = np.zeros((T, N_VAR, k0.shape[0] if do_hist else 1, 1), dtype=np.int32)
-        vmin = np.zeros((T, N_VAR, k0.shape[0]))
-        vmax = np.zeros((T, N_VAR, k0.shape[0]))
-        lo = np.zeros((N_VAR, k0.shape[0]))
-        iw = np.zeros((N_VAR, k0.shape[0]))
-    keep = keep_out is not None
-    kept = keep_out if keep else np.zeros((1, N_VAR, 1), dtype=np.float32)
-    chunk_pass(
-        k0,
-        no2,
-        ne2,
-        rat,
-        dn,
-        np.array(spectrum.grid_weight, dtype=float),
-        lk0,
-        lno2,
-        lne2,
-        lrat,
-        ldn,
-        line_w,
-        inputs["thick"],
-        inputs["tfac"],
-        inputs["c2"],
-        inputs["s2"],
-        inputs["sin2i"],
-        inputs["cphi2"],
-        inputs["sphi2"],
-        inputs["ca"],
-        inputs["sa"],
-        case.plate.signs(),
-        case.goal,
-        METRICS[spec["goal"]["metric"]],
-        case.w_design,
-        do_hist,
-        lo,
-        iw,
-        hist,
-        vmin,
-        vmax,
-        block_sums,
-        sampler.BLOCK,
-        ret_shift,
-        worst,
-        spec_st,
-        des_st,
-        keep,
-        kept,
-    )
-    return worst, spec_st, des_st, block_sums
-
-
-def prepare(spec: dict):
-    """Plates, spectrum and per-candidate cases of a validated spec."""
-    grid = wavelength_grid(spec)
-    spectrum = spectrum_of(spec, grid)
-    cases = []
-    goal = spec["goal"]
-    fname = Path(spec.get("spec_path", "<spec>")).name
-    for c in spec["candidates"]:
-        try:
-            plate = build_plate(c)
-        except RetolError as exc:
-            raise RetolError(
-                f"{fname}: [[candidate]] {c['name']!r}.{exc.field}", exc.problem, exc.fix
-            ) from None
-        for la in plate.layers:
-            try:
-                check_range(
-                    la.material, grid, field=f"{fname}: [wavelength] for candidate {c['name']!r}"
-                )
-                if spectrum.lines_nm.size:
-                    lines = np.asarray(spectrum.lines_nm, dtype=float)
-                    span = (spectrum.drift or {}).get("span_nm")
-                    if span is not None:
-                        lines = np.concatenate([lines + float(span[0]), lines + float(span[1])])
-                    check_range(la.material, lines, field=f"{fname}: [source] (with its drift)")
-            except RetolError as exc:
-                raise RetolError(
-                    exc.field, exc.problem, "choose a [wavelength] grid and source inside it"
-                ) from None
-        w_design = int(np.argmin(np.abs(grid - plate.design_nm)))
-        case = Case(
-            plate=plate,
-            spec=c,
-            tolerances=tolerances_for(spec, c),
-            goal=np.zeros(3),
-            handedness=1,
-            w_design=w_design,
-        )
-        if goal["state"] == "circular":
-            if goal["handedness"] is not None:
-                hand = 1 if goal["handedness"] == "right" else -1
-            else:
-                hand = _nominal_handedness(case, spec, grid, spectrum)
-            case.handedness = hand
-            case.goal = goal_vector("circular", handedness=hand)
-        else:
-            case.goal = goal_vector("linear", goal["azimuth_deg"])
-        cases.append(case)
-    return grid, spectrum, cases
-
-
-def _nominal_handedness(case, spec, grid, spectrum) -> int:
-    """Sense of the error-free output at the design wavelength (+1 clockwise)."""
-    from .plates import plate_jones
-    from .polarization import jones_to_stokes, linear_jones
-
-    J = plate_jones(case.plate, case.plate.design_nm, extrapolate=True)
-    S = jones_to_stokes(J @ linear_jones(spec["input"]["azimuth_deg"]))
-    return 1 if S[3] >= 0 else -1
-
-
-def nominal(case: Case, spec: dict, wl_optics, spectrum):
-    """Error-free results through the same kernel: per-wavelength values (N_VAR, W) and more."""
-    inputs = sample_inputs(case, spec, 0, 0, 1, active=())
-    W = wl_optics[0].shape[0]
-    worst, spec_st, des_st, _ = _kernel_call(
-        case, spec, wl_optics, spectrum, inputs, None, 0, 1, False, np.zeros(W), keep_out=None
-    )
-    vals = _values(case, spec, wl_optics, spectrum, inputs)
-    stokes = np.empty((W, 3))
-    from .kernel import stokes_one
-
-    stokes_one(*wl_optics, *_first_sample(inputs), case.plate.signs(), stokes)
-    return {
-        "values": vals,
-        "stokes": stokes,
-        "worst": float(worst[0]),
-        "spec_stokes": spec_st[0],
-        "design_stokes": des_st[0],
-    }
-
-
-#: The per-sample kernel inputs, in the kernels' argument order.
-PER_SAMPLE = ("thick", "tfac", "c2", "s2", "sin2i", "cphi2", "sphi2", "ca", "sa")
-
-
-def _first_sample(inputs) -> list:
-    """The first sample's kernel inputs (for the one-sample kernels)."""
-    return [inputs[k][0] for k in PER_SAMPLE]
-
-
-def _values(case, spec, wl_optics, spectrum, inputs):
-    """(N_VAR, W) float64 values of one sample, through the kernel's own arithmetic."""
-    from .kernel import N_VAR, per_wavelength_values
-
-    k0, no2, ne2, rat, dn = wl_optics
-    out = np.empty((N_VAR, k0.shape[0]))
-    from .kernel import METRICS
-
-    per_wavelength_values(
-        k0,
-        no2,
-        ne2,
-        rat,
-        dn,
-        *_first_sample(inputs),
-        case.plate.signs(),
-        case.goal,
-        METRICS[spec["goal"]["metric"]],
-        out,
-    )
-    return out
 
 
 def _chunks(n: int, chunk: int):
@@ -529,194 +340,6 @@ def hist_quantiles(hist, lo, inv_width, vmin, vmax, qs):
     return out
 
 
-def _pass_metric(spec, worst, spec_stokes, goal):
-    from .kernel import spectral_metric
-
-    sm = spectral_metric(spec_stokes, goal, spec["goal"]["metric"])
-    pm = worst if spec["goal"]["over"] == "band" else sm
-    return sm, pm
-
-
-def run(spec: dict, samples=None, seed=None, chunk_size=None, progress=None, keep_samples=None):
-    """Run the Monte Carlo of a validated spec and return the results grid.
-
-    Parameters
-    ----------
-    spec : dict
-        From :func:`tolerance.load_spec` (or :func:`tolerance.spec.validate`).
-    samples, seed, chunk_size : int, optional
-        Override the spec's ``[run]`` values.  The chunk size is rounded up to a whole number of
-        draw blocks (:data:`tolerance.sampler.BLOCK`); results do not depend on it.
-    progress : callable(done, total), optional
-        Called after every chunk with sample counts summed over candidates and passes.
-    keep_samples : bool, optional
-        Keep per-sample values at every wavelength (memory grows with samples × wavelengths).
-
-    Returns
-    -------
-    xarray.Dataset
-        The results grid; see :mod:`tolerance.grid`.
-    """
-    import numba
-
-    from .kernel import N_VAR
-
-    r = spec["run"]
-    n = int(samples if samples is not None else r["samples"])
-    if n < 1:
-        raise RetolError("--samples", f"must be at least 1, got {n}", "e.g. --samples 20000")
-    seed = int(seed if seed is not None else r["seed"])
-    if seed < 0:
-        raise RetolError("--seed", "must not be negative", "e.g. --seed 7")
-    chunk = int(chunk_size if chunk_size is not None else (r["chunk_size"] or DEFAULT_CHUNK))
-    if chunk < 1:
-        raise RetolError("--chunk-size", "must be at least 1", "e.g. --chunk-size 16384")
-    chunk = max(sampler.BLOCK, -(-chunk // sampler.BLOCK) * sampler.BLOCK)
-    keep = r["keep_samples"] if keep_samples is None else bool(keep_samples)
-    qs = list(r["quantiles"])
-    conf = r["confidence"]
-    n_sens = min(n, int(r["sensitivity_samples"] or DEFAULT_SENSITIVITY_SAMPLES))
-
-    grid, spectrum, cases = prepare(spec)
-    W = grid.size
-    if keep and n * W * N_VAR * len(cases) > 400_000_000:
-        raise RetolError(
-            "keep_samples",
-            "would keep more than 1.6 GB of per-sample values",
-            "use fewer samples or wavelengths, or drop keep_samples",
-        )
-    T = numba.get_num_threads()
-    # bins per (variable, wavelength): about 75 MB of int32 counts per thread at most; never
-    # dependent on the thread count, so that results are not either
-    per_row = max(1, 150_000_000 // (2 * N_VAR * W * 4))
-    bins = int(min(BINS, max(64, 2 ** int(math.log2(per_row)))))
-    active_all = [sorted(k for k, v in c.tolerances.items() if not _is_zero(v)) for c in cases]
-    tol_names = sorted({k for a in active_all for k in a}, key=list(GRID_NAMES).index)
-    total = len(cases) * (n + 2 * len(tol_names) * n_sens)
-    done = 0
-    results = []
-    for case, active in zip(cases, active_all, strict=True):
-        optics = _layer_optics(case.plate, grid)
-        nom = nominal(case, spec, optics, spectrum)
-        ret_shift = nom["values"][0].copy()
-        # pilot: fix the histogram ranges from the first samples (independent of the chunking)
-        p_stop = min(n, PILOT)
-        pil_inputs = sample_inputs(case, spec, seed, 0, p_stop)
-        pil_kept = np.zeros((p_stop, N_VAR, W), dtype=np.float32)
-        _kernel_call(
-            case,
-            spec,
-            optics,
-            spectrum,
-            pil_inputs,
-            None,
-            0,
-            p_stop,
-            True,
-            ret_shift,
-            keep_out=pil_kept,
-        )
-        lo, iw = _ranges(pil_kept, nom["values"], bins)
-        acc = Accumulator(n, W, lo, iw, bins, T, keep)
-        for start, stop in _chunks(n, chunk):
-            inputs = sample_inputs(case, spec, seed, start, stop)
-            kept_view = acc.kept[start:stop] if keep else None
-            worst, sst, dst, bsum = _kernel_call(
-                case,
-                spec,
-                optics,
-                spectrum,
-                inputs,
-                acc,
-                start,
-                stop,
-                True,
-                ret_shift,
-                keep_out=kept_view,
-            )
-            acc.worst[start:stop] = worst
-            acc.spec_stokes[start:stop] = sst
-            acc.design_stokes[start:stop] = dst
-            for b in range(bsum.shape[0]):
-                acc.sums += bsum[b]
-            done += stop - start
-            if progress:
-                progress(done, total)
-        # sensitivity: the same draws with one tolerance alone, and with all but it
-        sens_alone, sens_without = {}, {}
-        _, pm_full = _pass_metric(spec, acc.worst[:n_sens], acc.spec_stokes[:n_sens], case.goal)
-        full_yield_sens = float(np.mean(pm_full >= spec["goal"]["min"]))
-        _, pm_nom = _pass_metric(
-            spec, np.array([nom["worst"]]), nom["spec_stokes"][None, :], case.goal
-        )
-        nominal_pass = float(pm_nom[0] >= spec["goal"]["min"])
-        nom["spectral_pass"] = nominal_pass
-        for name in tol_names:
-            for mode in ("alone", "without"):
-                subset = [name] if mode == "alone" else [k for k in active if k != name]
-                # a fixed value (a range with low == high) is a condition, not a tolerance
-                subset += [
-                    k for k, v in case.tolerances.items() if v["kind"] == "range" and _is_zero(v)
-                ]
-                if name not in active:
-                    y = nominal_pass if mode == "alone" else full_yield_sens
-                    done += n_sens
-                elif mode == "alone" and len(active) == 1:
-                    y = full_yield_sens
-                    done += n_sens
-                elif not [k for k in subset if k in active]:
-                    y = nominal_pass
-                    done += n_sens
-                else:
-                    passes = 0
-                    for start, stop in _chunks(n_sens, chunk):
-                        inputs = sample_inputs(case, spec, seed, start, stop, active=subset)
-                        worst, sst, _, _ = _kernel_call(
-                            case,
-                            spec,
-                            optics,
-                            spectrum,
-                            inputs,
-                            None,
-                            start,
-                            stop,
-                            False,
-                            ret_shift,
-                        )
-                        _, pm = _pass_metric(spec, worst, sst, case.goal)
-                        passes += int(np.sum(pm >= spec["goal"]["min"]))
-                        done += stop - start
-                        if progress:
-                            progress(done, total)
-                    y = passes / n_sens
-                (sens_alone if mode == "alone" else sens_without)[name] = y
-        if progress:
-            progress(done, total)
-        results.append(
-            _finish(
-                case,
-                spec,
-                acc,
-                nom,
-                qs,
-                conf,
-                tol_names,
-                sens_alone,
-                sens_without,
-                full_yield_sens,
-                n_sens,
-            )
-        )
-    from .grid import build_grid
-
-    for r in results:
-        r["sens_alone"] = {GRID_NAMES[k]: v for k, v in r["sens_alone"].items()}
-        r["sens_without"] = {GRID_NAMES[k]: v for k, v in r["sens_without"].items()}
-        r["dominant"] = GRID_NAMES.get(r["dominant"], r["dominant"])
-    short = [GRID_NAMES[k] for k in tol_names]
-    return build_grid(spec, grid, spectrum, cases, results, qs, short, seed, n, chunk)
-
-
 def _ranges(kept, nominal_values, bins):
     """Histogram lower edges and inverse bin widths (V, W) from a pilot's values."""
     mn = np.minimum(np.min(kept, axis=0).astype(float), nominal_values)
@@ -728,81 +351,405 @@ def _ranges(kept, nominal_values, bins):
     return lo, bins / (hi - lo)
 
 
-def _finish(
-    case, spec, acc: Accumulator, nom, qs, conf, tol_names, alone, without, yield_sens, n_sens
-):
-    from .kernel import spectral_metric
+def histogram_bins(W: int) -> int:
+    """Bins per (variable, wavelength): about 75 MB of int32 counts per thread at most; never
+    dependent on the thread count, so that results are not either."""
+    per_row = max(1, 150_000_000 // (2 * N_VAR * W * 4))
+    return int(min(BINS, max(64, 2 ** int(math.log2(per_row)))))
 
+
+# ----------------------------------------------------------------------------- the engine
+
+
+class Engine:
+    """A study prepared for repeated evaluation.
+
+    Parameters
+    ----------
+    study : Study
+        From :func:`tolerance.load_spec`.
+    samples, seed, chunk_size : int, optional
+        Override the study's ``[run]`` values.  The chunk size is rounded up to a whole number of
+        draw blocks (:data:`tolerance.sampler.BLOCK`); results do not depend on it.
+
+    Examples
+    --------
+    Allocation-style loops: the same draws for every call (common random numbers)::
+
+        eng = Engine(study, samples=20000)
+        case = eng.case(0, scale={"clocking_deg": 0.5})
+        y = eng.pass_rate(case)
+    """
+
+    def __init__(self, study: Study, samples=None, seed=None, chunk_size=None):
+        r = study.run
+        n = samples if samples is not None else r.samples
+        if isinstance(n, bool) or not isinstance(n, int | np.integer) or n < 1:
+            raise RetolError("--samples", f"must be a whole number >= 1, got {n!r}", "e.g. --samples 20000")
+        seed = seed if seed is not None else r.seed
+        if isinstance(seed, bool) or not isinstance(seed, int | np.integer) or seed < 0:
+            raise RetolError("--seed", f"must be a whole number >= 0, got {seed!r}", "e.g. --seed 7")
+        chunk = chunk_size if chunk_size is not None else (r.chunk_size or DEFAULT_CHUNK)
+        if isinstance(chunk, bool) or not isinstance(chunk, int | np.integer) or chunk < 1:
+            raise RetolError("--chunk-size", "must be a whole number >= 1", "e.g. --chunk-size 16384")
+        self.study = study
+        self.samples = int(n)
+        self.seed = int(seed)
+        self.chunk = max(sampler.BLOCK, -(-int(chunk) // sampler.BLOCK) * sampler.BLOCK)
+        self.grid = study.wavelength.values()
+        self.spectrum = study.source.spectrum
+        self.draws = Draws(self.seed)
+        self.metric_code = METRICS[study.goal.metric]
+        self.cases = tuple(self.case(i) for i in range(len(study.candidates)))
+        self._optics: dict = {}
+
+    # ------------------------------------------------------------------ cases
+    def case(self, candidate, tolerances=None, scale=None, plate=None) -> Case:
+        """A candidate ready for the kernel, optionally changed for this call.
+
+        Parameters
+        ----------
+        candidate : int, str or Candidate
+            Which candidate (index, name or record).
+        tolerances : mapping of str to Distribution, optional
+            Replace the candidate's tolerances (after spec, overrides and drift are merged).
+        scale : mapping of str to float, optional
+            Scale these tolerances' widths by a factor (a range about its centre).
+        plate : Plate, optional
+            Evaluate this plate instead of the candidate's own.
+        """
+        if isinstance(candidate, int):
+            cand = self.study.candidates[candidate]
+        elif isinstance(candidate, str):
+            cand = self.study.candidate(candidate)
+        else:
+            cand = candidate
+        plate = plate if plate is not None else cand.plate
+        tol = dict(self.study.tolerances_for(cand) if tolerances is None else tolerances)
+        for k, f in (scale or {}).items():
+            if k not in tol:
+                raise RetolError(k, "is not a tolerance of this candidate", f"known: {', '.join(tol)}")
+            tol[k] = tol[k].scaled(f)
+        w_design = int(np.argmin(np.abs(self.grid - plate.design_nm)))
+        goal = self.study.goal
+        if goal.state == "circular":
+            if goal.handedness is not None:
+                hand = 1 if goal.handedness == "right" else -1
+            else:
+                hand = self._nominal_handedness(plate)
+            gvec = goal_vector("circular", handedness=hand)
+        else:
+            hand = 1
+            gvec = goal_vector("linear", goal.azimuth_deg)
+        return Case(cand, plate, MappingProxyType(tol), gvec, hand, w_design)
+
+    def _nominal_handedness(self, plate: Plate) -> int:
+        """Sense of the error-free output at the design wavelength (+1 clockwise)."""
+        from .plates import plate_jones
+        from .polarization import jones_to_stokes, linear_jones
+
+        J = plate_jones(plate, plate.design_nm, extrapolate=True)
+        S = jones_to_stokes(J @ linear_jones(self.study.input.azimuth_deg))
+        return 1 if S[3] >= 0 else -1
+
+    def optics(self, plate: Plate) -> WavelengthOptics:
+        key = id(plate)
+        hit = self._optics.get(key)
+        if hit is None or hit[0] is not plate:
+            hit = (plate, layer_optics(plate, self.grid))
+            self._optics[key] = hit
+        return hit[1]
+
+    # ------------------------------------------------------------------ kernel calls
+    def _call(self, case: Case, inputs, extra, stats: Statistics | None, n: int, keep_out=None):
+        optics = self.optics(case.plate)
+        W = optics.k0.shape[0]
+        worst = np.empty(n)
+        spec_st = np.empty((n, 3))
+        des_st = np.empty((n, 3))
+        if stats is None:
+            import numba
+
+            T = numba.get_num_threads()
+            stats = Statistics(
+                False,
+                np.zeros((N_VAR, W)),
+                np.zeros((N_VAR, W)),
+                np.zeros((T, N_VAR, 1, 1), dtype=np.int32),
+                np.zeros((T, N_VAR, W)),
+                np.zeros((T, N_VAR, W)),
+                np.zeros((1, W, 2)),
+                sampler.BLOCK,
+                np.zeros(W),
+            )
+        keep = keep_out is not None
+        kept = keep_out if keep else np.zeros((1, N_VAR, 1), dtype=np.float32)
+        chunk_pass(
+            optics,
+            np.array(self.spectrum.grid_weight, dtype=float),
+            line_optics(case.plate, self.spectrum, extra["drift"]),
+            inputs,
+            Target(case.plate.signs(), case.goal, self.metric_code, case.w_design),
+            stats,
+            SampleOutputs(worst, spec_st, des_st, keep, kept),
+        )
+        return worst, spec_st, des_st
+
+    def _stats(self, acc, n, do_hist, ret_shift, lo=None, iw=None) -> Statistics:
+        n_blocks = (n + sampler.BLOCK - 1) // sampler.BLOCK
+        W = self.grid.size
+        if acc is not None:
+            return Statistics(do_hist, acc.lo, acc.inv_width, acc.hist, acc.vmin, acc.vmax,
+                              np.zeros((n_blocks, W, 2)), sampler.BLOCK, ret_shift)
+        import numba
+
+        T = numba.get_num_threads()
+        return Statistics(
+            do_hist,
+            np.zeros((N_VAR, W)) if lo is None else lo,
+            np.zeros((N_VAR, W)) if iw is None else iw,
+            np.zeros((T, N_VAR, W if do_hist else 1, 1), dtype=np.int32),
+            np.zeros((T, N_VAR, W)),
+            np.zeros((T, N_VAR, W)),
+            np.zeros((n_blocks, W, 2)),
+            sampler.BLOCK,
+            ret_shift,
+        )
+
+    def nominal(self, case: Case) -> Nominal:
+        """Error-free results through the same kernel arithmetic."""
+        inputs, extra = sample_inputs(case, self.study, self.draws, 0, 1, active=())
+        W = self.grid.size
+        worst, spec_st, des_st = self._call(case, inputs, extra, self._stats(None, 1, False, np.zeros(W)), 1)
+        optics = self.optics(case.plate)
+        one = first_sample(inputs)
+        values = np.empty((N_VAR, W))
+        per_wavelength_values(optics, one, case.plate.signs(), case.goal, self.metric_code, values)
+        stokes = np.empty((W, 3))
+        stokes_one(optics, one, case.plate.signs(), stokes)
+        return Nominal(values, stokes, float(worst[0]), spec_st[0], des_st[0])
+
+    def pass_metric(self, worst, spec_stokes, goal) -> np.ndarray:
+        """The per-sample metric the goal judges: worst over the band, or source-weighted."""
+        if self.study.goal.over == "band":
+            return worst
+        return spectral_metric(spec_stokes, goal, self.study.goal.metric)
+
+    def pass_values(self, case: Case, n: int | None = None, active=None):
+        """Per-sample (worst, source-averaged Stokes) of the first ``n`` samples, no statistics."""
+        n = self.samples if n is None else int(n)
+        worst = np.empty(n)
+        sst = np.empty((n, 3))
+        ret_shift = np.zeros(self.grid.size)
+        for start, stop in _chunks(n, self.chunk):
+            inputs, extra = sample_inputs(case, self.study, self.draws, start, stop, active=active)
+            w, s, _ = self._call(case, inputs, extra, self._stats(None, stop - start, False, ret_shift), stop - start)
+            worst[start:stop] = w
+            sst[start:stop] = s
+        return worst, sst
+
+    def pass_rate(self, case: Case, n: int | None = None, active=None) -> float:
+        """The share of the first ``n`` samples that meet the goal (same draws every call)."""
+        worst, sst = self.pass_values(case, n, active)
+        pm = self.pass_metric(worst, sst, case.goal)
+        return float(np.mean(pm >= self.study.goal.min))
+
+    # ------------------------------------------------------------------ one candidate
+    def evaluate(self, case: Case, keep_samples: bool = False, progress=None) -> CandidateResult:
+        """The full statistics of one candidate: main pass, quantiles, yield and sensitivity."""
+        nom = self.nominal(case)
+        acc = self._main_pass(case, nom, keep_samples, progress)
+        sens = self._sensitivity(case, nom, acc, progress)
+        return _finish(self, case, acc, nom, *sens)
+
+    def _main_pass(self, case: Case, nom: Nominal, keep: bool, progress) -> Accumulator:
+        import numba
+
+        n, W = self.samples, self.grid.size
+        ret_shift = nom.values[0].copy()
+        # pilot: fix the histogram ranges from the first samples (independent of the chunking)
+        p_stop = min(n, PILOT)
+        pil_inputs, pil_extra = sample_inputs(case, self.study, self.draws, 0, p_stop)
+        pil_kept = np.zeros((p_stop, N_VAR, W), dtype=np.float32)
+        self._call(case, pil_inputs, pil_extra, self._stats(None, p_stop, True, ret_shift), p_stop, pil_kept)
+        bins = histogram_bins(W)
+        lo, iw = _ranges(pil_kept, nom.values, bins)
+        acc = Accumulator(n, W, lo, iw, bins, numba.get_num_threads(), keep)
+        for start, stop in _chunks(n, self.chunk):
+            inputs, extra = sample_inputs(case, self.study, self.draws, start, stop)
+            stats = self._stats(acc, stop - start, True, ret_shift)
+            kept_view = acc.kept[start:stop] if keep else None
+            worst, sst, dst = self._call(case, inputs, extra, stats, stop - start, kept_view)
+            acc.worst[start:stop] = worst
+            acc.spec_stokes[start:stop] = sst
+            acc.design_stokes[start:stop] = dst
+            for b in range(stats.block_sums.shape[0]):
+                acc.sums += stats.block_sums[b]
+            if progress:
+                progress(stop - start)
+        return acc
+
+    def sensitivity_samples(self) -> int:
+        return min(self.samples, int(self.study.run.sensitivity_samples or DEFAULT_SENSITIVITY_SAMPLES))
+
+    def _sensitivity(self, case: Case, nom: Nominal, acc: Accumulator, progress):
+        """Yield with each tolerance alone, and with all but it, on the same draws."""
+        goal_min = self.study.goal.min
+        n_sens = self.sensitivity_samples()
+        active = case.active
+        names = tolerance_names(self.cases)
+        pm_full = self.pass_metric(acc.worst[:n_sens], acc.spec_stokes[:n_sens], case.goal)
+        full = float(np.mean(pm_full >= goal_min))
+        pm_nom = self.pass_metric(np.array([nom.worst]), nom.spec_stokes[None, :], case.goal)
+        nominal_pass = float(pm_nom[0] >= goal_min)
+        alone, without = {}, {}
+        for name in names:
+            for mode in ("alone", "without"):
+                # a fixed value (a range with low == high) is a condition, not a tolerance
+                subset = ([name] if mode == "alone" else [k for k in active if k != name]) + list(case.fixed)
+                if name not in active:
+                    y = nominal_pass if mode == "alone" else full
+                elif mode == "alone" and len(active) == 1:
+                    y = full
+                elif not [k for k in subset if k in active]:
+                    y = nominal_pass
+                else:
+                    y = self.pass_rate(case, n_sens, active=subset)
+                (alone if mode == "alone" else without)[name] = y
+                if progress:
+                    progress(n_sens)
+        return alone, without, full, nominal_pass, n_sens
+
+
+def tolerance_names(cases) -> tuple[str, ...]:
+    """Every tolerance active in any case, in the grid's order."""
+    act = {k for c in cases for k in c.active}
+    return tuple(k for k in SHORT if k in act)
+
+
+def _finish(eng: Engine, case: Case, acc: Accumulator, nom: Nominal, alone, without, yield_sens,
+            nominal_pass, n_sens) -> CandidateResult:
+    goal = eng.study.goal
+    conf = eng.study.run.confidence
     hist = acc.hist.sum(axis=0)
     vmin = acc.vmin.min(axis=0)
     vmax = acc.vmax.max(axis=0)
-    quant = hist_quantiles(hist, acc.lo, acc.inv_width, vmin, vmax, qs)
+    quant = hist_quantiles(hist, acc.lo, acc.inv_width, vmin, vmax, eng.study.run.quantiles)
     n = acc.n
     mean_d = acc.sums[:, 0] / n
     var = np.maximum(acc.sums[:, 1] / n - mean_d**2, 0.0) * (n / max(n - 1, 1))
-    spec_metric = spectral_metric(acc.spec_stokes, case.goal, spec["goal"]["metric"])
-    pass_metric = acc.worst if spec["goal"]["over"] == "band" else spec_metric
-    k = int(np.sum(pass_metric >= spec["goal"]["min"]))
-    y = k / n
+    spec_metric = spectral_metric(acc.spec_stokes, case.goal, goal.metric)
+    pass_metric = acc.worst if goal.over == "band" else spec_metric
+    k = int(np.sum(pass_metric >= goal.min))
     ylo, yhi = wilson(k, n, conf)
     # the yield the decision ranks on counts unpolarized light: for an axial-ratio goal over the
     # spectrum (which looks at the polarized part only) it is the share of samples whose
     # spectral fidelity reaches that of a pure state with b/a = min
     rank_k = k
-    if spec["goal"]["over"] == "spectrum" and spec["goal"]["metric"] == "axial_ratio":
-        m = spec["goal"]["min"]
+    if goal.over == "spectrum" and goal.metric == "axial_ratio":
+        m = goal.min
         f_min = 0.5 * (1.0 + 2.0 * m / (1.0 + m * m))
         fid = spectral_metric(acc.spec_stokes, case.goal, "fidelity")
         rank_k = int(np.sum(fid >= f_min))
     rank_lo, rank_hi = wilson(rank_k, n, conf)
     dop = np.sqrt(np.sum(acc.spec_stokes**2, axis=1))
-    nom_spec = nom["spec_stokes"]
-    nom_dop = float(np.sqrt(np.sum(nom_spec**2)))
-    gains = {t: without[t] - yield_sens for t in tol_names}
-    dominant = "none"
-    if gains:
-        best = max(gains, key=lambda t: (gains[t], -alone[t]))
-        if gains[best] > 0:
-            dominant = best
-        else:
-            # no single removal helps (e.g. the nominal plate already fails): name the tolerance
-            # that alone does the most harm, if any does
-            nominal_pass = (
-                float(nom["worst"] >= spec["goal"]["min"])
-                if spec["goal"]["over"] == "band"
-                else float(nom["spectral_pass"])
-            )
-            worst_alone = min(alone, key=lambda t: alone[t])
-            if alone[worst_alone] < nominal_pass:
-                dominant = worst_alone
-    return {
-        "quantiles": quant,
-        "mean": mean_d + nom["values"][0],
-        "std": np.sqrt(var),
-        "worst": acc.worst,
-        "spectral_metric": spec_metric,
-        "pass_metric": pass_metric,
-        "dop": np.clip(dop, 0, 1),
-        "design_stokes": acc.design_stokes,
-        "kept": acc.kept,
-        "rank_yield": rank_k / n,
-        "rank_yield_low": rank_lo,
-        "rank_yield_high": rank_hi,
-        "spec_stokes": acc.spec_stokes,
-        "yield": y,
-        "yield_low": ylo,
-        "yield_high": yhi,
-        "passes": k,
-        "nominal": nom["values"],
-        "nominal_stokes": nom["stokes"],
-        "nominal_worst": nom["worst"],
-        "nominal_spectral_metric": float(
-            spectral_metric(nom_spec[None, :], case.goal, spec["goal"]["metric"])[0]
-        ),
-        "nominal_dop": min(1.0, nom_dop),
-        "nominal_spec_stokes": nom_spec,
-        "sens_alone": alone,
-        "sens_without": without,
-        "dominant": dominant,
-        "sensitivity_samples": n_sens,
-    }
+    nom_dop = float(np.sqrt(np.sum(nom.spec_stokes**2)))
+    return CandidateResult(
+        name=case.candidate.name,
+        quantiles=quant,
+        mean=mean_d + nom.values[0],
+        std=np.sqrt(var),
+        worst=acc.worst,
+        spectral_metric=spec_metric,
+        pass_metric=pass_metric,
+        dop=np.clip(dop, 0, 1),
+        design_stokes=acc.design_stokes,
+        spec_stokes=acc.spec_stokes,
+        kept=acc.kept,
+        passes=k,
+        yield_=k / n,
+        yield_low=ylo,
+        yield_high=yhi,
+        rank_yield=rank_k / n,
+        rank_yield_low=rank_lo,
+        rank_yield_high=rank_hi,
+        nominal=nom,
+        nominal_spectral_metric=float(spectral_metric(nom.spec_stokes[None, :], case.goal, goal.metric)[0]),
+        nominal_dop=min(1.0, nom_dop),
+        sens_alone=MappingProxyType(alone),
+        sens_without=MappingProxyType(without),
+        dominant=dominant_tolerance(alone, without, yield_sens, nominal_pass),
+        sensitivity_samples=n_sens,
+    )
+
+
+def dominant_tolerance(alone, without, yield_sens, nominal_pass) -> str:
+    """The tolerance whose removal helps most; if none helps, the one that alone harms most."""
+    gains = {t: without[t] - yield_sens for t in alone}
+    if not gains:
+        return "none"
+    best = max(gains, key=lambda t: (gains[t], -alone[t]))
+    if gains[best] > 0:
+        return best
+    # no single removal helps (e.g. the nominal plate already fails): name the tolerance that
+    # alone does the most harm, if any does
+    worst_alone = min(alone, key=lambda t: alone[t])
+    if alone[worst_alone] < nominal_pass:
+        return worst_alone
+    return "none"
+
+
+def run(study: Study, samples=None, seed=None, chunk_size=None, progress=None, keep_samples=None):
+    """Run the Monte Carlo of a validated study and return the results grid.
+
+    Parameters
+    ----------
+    study : Study
+        From :func:`tolerance.load_spec` (or :func:`tolerance.spec.validate`).
+    samples, seed, chunk_size : int, optional
+        Override the study's ``[run]`` values.  The chunk size is rounded up to a whole number of
+        draw blocks (:data:`tolerance.sampler.BLOCK`); results do not depend on it.
+    progress : callable(done, total), optional
+        Called after every chunk with sample counts summed over candidates and passes.
+    keep_samples : bool, optional
+        Keep per-sample values at every wavelength (memory grows with samples × wavelengths).
+
+    Returns
+    -------
+    xarray.Dataset
+        The results grid; see :mod:`tolerance.grid`.
+    """
+    if not isinstance(study, Study):
+        raise RetolError("study", f"must be a Study from load_spec, got {type(study).__name__}",
+                         "call tolerance.load_spec(path) first")
+    eng = Engine(study, samples, seed, chunk_size)
+    keep = study.run.keep_samples if keep_samples is None else bool(keep_samples)
+    n, W = eng.samples, eng.grid.size
+    if keep and n * W * N_VAR * len(eng.cases) > KEEP_LIMIT:
+        raise RetolError(
+            "keep_samples",
+            "would keep more than 1.6 GB of per-sample values",
+            "use fewer samples or wavelengths, or drop keep_samples",
+        )
+    names = tolerance_names(eng.cases)
+    total = len(eng.cases) * (n + 2 * len(names) * eng.sensitivity_samples())
+    done = [0]
+
+    def tick(k):
+        done[0] += k
+        if progress:
+            progress(done[0], total)
+
+    results = [eng.evaluate(case, keep, tick) for case in eng.cases]
+    if progress:
+        progress(total, total)
+    from .grid import to_dataset
+
+    return to_dataset(eng, results, names)
+
+
+def replace_tolerances(study: Study, **tolerances) -> Study:
+    """A copy of the study with some ``[tolerances]`` replaced (Distribution values)."""
+    tol = dict(study.tolerances)
+    tol.update(tolerances)
+    return dataclasses.replace(study, tolerances=MappingProxyType(tol))

@@ -13,6 +13,7 @@ import numpy as np
 
 from .dispersion import Material, birefringence, get_material
 from .errors import RetolError
+from .registry import Key, Registry
 from .polarization import retarder_jones
 from .retardance import layer_retardance
 
@@ -41,7 +42,7 @@ class Plate:
     waves: float
     design_nm: float
     axis_deg: float
-    details: dict = field(default_factory=dict)
+    details: dict = field(default_factory=dict, hash=False)
 
     @property
     def materials(self) -> tuple[Material, ...]:
@@ -229,14 +230,50 @@ def stack(material=None, waves=None, design_nm=None, axis_deg=0.0, layers=None, 
 
 
 #: Construction name -> builder(material, waves, design_nm, axis_deg, **keys) -> (layers, details)
-CONSTRUCTIONS = {
-    "zero-order": zero_order,
-    "multi-order": multi_order,
-    "compound": compound,
-    "achromatic": achromatic,
-    "film": film,
-    "stack": stack,
-}
+#: Construction registry: each entry names the spec keys it takes (as the spec writes them), the
+#: builder's keyword for each, units and help; the spec validator and the CLI read it.
+CONSTRUCTIONS = Registry("construction")
+CONSTRUCTIONS.add("zero-order", "one true zero-order plate", (), zero_order, params={})
+CONSTRUCTIONS.add(
+    "multi-order",
+    "one plate of order m + waves",
+    (Key("order", "", "whole waves m beyond the target", required=True),),
+    multi_order,
+    params={"order": "order"},
+)
+CONSTRUCTIONS.add(
+    "compound",
+    "two plates of one material, axes crossed (compound zero-order)",
+    (Key("thick_plate", "um", "thickness of the thicker plate", required=True),),
+    compound,
+    params={"thick_plate": "thick_plate_um"},
+)
+CONSTRUCTIONS.add(
+    "achromatic",
+    "two crystals, axes crossed, achromatic at two wavelengths or in slope",
+    (
+        Key("partner", "", "the second crystal", required=True),
+        Key("match", "nm", "the two wavelengths where the target holds exactly"),
+    ),
+    achromatic,
+    params={"partner": "partner", "match": "match_nm"},
+)
+CONSTRUCTIONS.add(
+    "film",
+    "a polymer retarder film sold by its retardance",
+    (Key("retardance", "nm", "retardance at the design wavelength"),),
+    film,
+    params={"retardance": "retardance_nm"},
+)
+CONSTRUCTIONS.add(
+    "stack",
+    "an explicit stack of layers (material, thickness, axis)",
+    (Key("layers", "", "list of { material, thickness, axis_deg }", required=True),),
+    stack,
+    params={"layers": "layers"},
+)
+#: Every construction-specific spec key, in registry order.
+CONSTRUCTION_KEYS = tuple(dict.fromkeys(k for e in CONSTRUCTIONS.values() for k in e.key_names))
 
 
 def design_plate(
@@ -256,16 +293,18 @@ def design_plate(
     >>> round(p.layers[0].thickness_um, 2)
     17.49
     """
-    if construction not in CONSTRUCTIONS:
-        import difflib
-
-        close = difflib.get_close_matches(construction, list(CONSTRUCTIONS), n=1)
-        hint = f"did you mean {close[0]!r}? " if close else ""
-        raise RetolError(
-            "construction",
-            f"unknown construction {construction!r}",
-            f"{hint}use one of {', '.join(CONSTRUCTIONS)}",
-        )
+    entry = CONSTRUCTIONS.lookup(construction, "construction")
+    known = tuple(entry.extra["params"].values())
+    for k in keys:
+        if k not in known:
+            other = [e.name for e in CONSTRUCTIONS.values() if k in e.extra["params"].values()]
+            problem = (
+                f"does not apply to a {construction} plate (it belongs to {', '.join(other)})"
+                if other
+                else f"is not a keyword of design_plate for a {construction} plate"
+            )
+            allowed = ", ".join(("material", "waves", "design_nm", "axis_deg", "name") + known)
+            raise RetolError(k, problem, f"known keywords: {allowed}")
     if construction != "stack":
         if material is None:
             raise RetolError("material", "is required", "give e.g. --material quartz")
@@ -275,7 +314,7 @@ def design_plate(
             from .dispersion import check_range
 
             check_range(get_material(m), design_nm, field="design")
-    layers, details = CONSTRUCTIONS[construction](
+    layers, details = entry.payload(
         material=material, waves=waves, design_nm=design_nm, axis_deg=axis_deg, **keys
     )
     if design_nm is None:

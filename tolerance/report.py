@@ -708,7 +708,7 @@ def build_html(grid, figures, command=None) -> str:
     command : str, optional
         The command that wrote this report (shown beside the run's own command).
     """
-    from . import __version__
+    from .version import __version__
 
     rows = summary_rows(grid)
     title = _s(grid.attrs.get("title") or "Retarder tolerance study")

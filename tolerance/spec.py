@@ -1,21 +1,37 @@
-"""Spec files (TOML): read, validate and normalise a tolerance study.
+"""Spec files (TOML): read and validate a tolerance study into a frozen :class:`~.study.Study`.
 
 A spec names the analysis grid, the source, the input state, the goal, the candidate plates and
 the tolerances that manufacturing and mounting can hold.  Every mistake raises
-:class:`~tolerance.errors.RetolError` naming the file, the key and the fix.  The validated spec is
-a plain dict (JSON-serialisable) so that it can be stored in the results grid.
+:class:`~tolerance.errors.RetolError` naming the file, the key and the fix.  All validation ends
+here: the source is built on the grid, the laser drift parsed, every candidate's plate designed
+and its materials checked against the grid, so nothing downstream re-parses or patches the study.
 """
 
 from __future__ import annotations
 
-import copy
 import difflib
 import json
 import math
 import tomllib
 from pathlib import Path
 
+from . import distributions
 from .errors import RetolError
+from .plates import CONSTRUCTION_KEYS, CONSTRUCTIONS
+from .study import (
+    Candidate,
+    Environment,
+    Goal,
+    InputState,
+    LayerSpec,
+    ReportSettings,
+    RunSettings,
+    Source,
+    Study,
+    WavelengthGrid,
+    _proxy,
+)
+from .tolerances import TOLERANCES, check_bounds
 from .units import interval_nm, length_um, wavelength_nm
 
 TOP_KEYS = (
@@ -42,7 +58,6 @@ GOAL_KEYS = (
     "acceptance_limit_waves",
 )
 GOAL_STATES = ("circular", "linear")
-GOAL_METRICS = ("axial_ratio", "extinction_db", "fidelity")
 GOAL_OVER = ("band", "spectrum")
 CANDIDATE_KEYS = (
     "name",
@@ -51,15 +66,9 @@ CANDIDATE_KEYS = (
     "waves",
     "design",
     "axis_deg",
-    "order",
-    "thick_plate",
-    "partner",
-    "match",
-    "retardance",
-    "layers",
+    *CONSTRUCTION_KEYS,
     "tolerances",
 )
-CONSTRUCTION_KEYS = ("order", "thick_plate", "partner", "match", "retardance", "layers")
 RUN_KEYS = (
     "samples",
     "seed",
@@ -71,19 +80,17 @@ RUN_KEYS = (
 )
 ENV_KEYS = ("temperature_c", "temperature_range", "tilt_max_deg")
 REPORT_KEYS = ("formats",)
+DIST_KEYS = distributions.DIST_KEYS
+DEFAULT_QUANTILES = (0.01, 0.05, 0.5, 0.95, 0.99)
+#: Largest number of wavelengths in the analysis grid.
+MAX_WAVELENGTHS = 20001
 
-#: Tolerance key -> (short name used in the grid, unit, what it perturbs)
-TOLERANCES = {
-    "thickness_um": ("thickness", "um", "each plate's thickness, independently"),
-    "clocking_deg": ("clocking", "deg", "the whole plate's fast-axis angle in its mount"),
-    "crossing_deg": ("crossing", "deg", "each later plate's axis relative to the first"),
-    "tilt_deg": ("tilt", "deg", "angle of incidence; plane-of-incidence azimuth uniform"),
-    "temperature_c": ("temperature", "degC", "plate temperature"),
-    "input_azimuth_deg": ("input_azimuth", "deg", "azimuth of the linear input"),
-}
-DIST_KEYS = ("sigma", "uniform", "low", "high", "tolerance", "coverage")
 
-DEFAULT_QUANTILES = [0.01, 0.05, 0.5, 0.95, 0.99]
+def goal_metrics():
+    """The goal-metric registry (see :mod:`tolerance.metrics`)."""
+    from .metrics import METRICS
+
+    return METRICS
 
 
 class _Ctx:
@@ -96,7 +103,7 @@ class _Ctx:
     def check_keys(self, table: dict, allowed, where: str):
         for k in table:
             if k not in allowed:
-                close = difflib.get_close_matches(k, list(allowed), n=1)
+                close = difflib.get_close_matches(str(k), list(allowed), n=1)
                 fix = (
                     f"did you mean {close[0]!r}?" if close else f"known keys: {', '.join(allowed)}"
                 )
@@ -112,6 +119,24 @@ class _Ctx:
             raise self.err(key, "must be a table", f"write it as [{key}]")
         return v
 
+    def name(self, d, key, where, choices, default=None):
+        """A string choice (refuses lists, tables, dates and numbers)."""
+        v = d.get(key, default)
+        if not isinstance(v, str):
+            raise self.err(f"{where}{key}", f"must be a name, got {v!r}", f"use one of {', '.join(choices)}")
+        if v not in choices:
+            close = difflib.get_close_matches(v, list(choices), n=1)
+            fix = f"did you mean {close[0]!r}?" if close else f"use one of {', '.join(choices)}"
+            raise self.err(f"{where}{key}", f"unknown {key} {v!r}", fix)
+        return v
+
+    def text(self, d, key, where, example):
+        v = d.get(key)
+        if not isinstance(v, str) or not v.strip():
+            got = "missing" if key not in d else f"must be a name, got {v!r}"
+            raise self.err(f"{where}{key}", got, f"add {key} = {example}")
+        return v
+
     def number(
         self,
         d,
@@ -122,6 +147,7 @@ class _Ctx:
         minimum=None,
         integer=False,
         strict_min=False,
+        maximum=None,
     ):
         if key not in d:
             if required:
@@ -141,6 +167,14 @@ class _Ctx:
                 f"must be {rel} {minimum:g}, got {v!r}",
                 f"give a value {'>' if strict_min else '>='} {minimum:g}",
             )
+        if maximum is not None and v > maximum:
+            raise self.err(f"{where}{key}", f"must be at most {maximum:g}, got {v!r}")
+        return v
+
+    def flag(self, d, key, where, default=False) -> bool:
+        v = d.get(key, default)
+        if not isinstance(v, bool):
+            raise self.err(f"{where}{key}", f"must be true or false, got {v!r}", f"{key} = true")
         return v
 
     def wl(self, d, key, where, required=True, default=None):
@@ -148,236 +182,130 @@ class _Ctx:
             if required:
                 raise self.err(f"{where}{key}", "missing", f'add {key} = "780nm"')
             return default
-        try:
-            return wavelength_nm(d[key], f"{self.path}: {where}{key}")
-        except RetolError:
-            raise
-        except Exception:  # pragma: no cover - defensive
-            raise self.err(f"{where}{key}", f"cannot read {d[key]!r}", 'e.g. "780nm"') from None
-
-
-def _distribution(ctx: _Ctx, key: str, value, where: str | None = None) -> dict:
-    """Normalise a tolerance distribution to {'kind', ...} with numbers in the key's unit."""
-    where = where or f"[tolerances].{key}"
-    if isinstance(value, int | float) and not isinstance(value, bool):
-        raise ctx.err(
-            where,
-            f"a bare number ({value!r}) does not say which distribution",
-            f"write {{ sigma = {value} }} (normal) or {{ uniform = {value} }} (± half width)",
-        )
-    if not isinstance(value, dict):
-        raise ctx.err(
-            where,
-            "must be a table such as { sigma = 0.3 }",
-            "use sigma, uniform, low/high or tolerance/coverage",
-        )
-    ctx.check_keys(value, DIST_KEYS, f"{where}.")
-    nums = {}
-    for k, v in value.items():
-        if isinstance(v, bool) or not isinstance(v, int | float):
-            if isinstance(v, str) and key.endswith(("_deg", "_c")) is False:
-                try:
-                    v = length_um(v, f"{ctx.path}: {where}.{k}")
-                except RetolError:
-                    raise
-            else:
-                raise ctx.err(f"{where}.{k}", f"must be a number, got {v!r}", f"e.g. {k} = 0.3")
-        if not math.isfinite(v):
-            raise ctx.err(f"{where}.{k}", "must be finite", "give a finite number")
-        nums[k] = float(v)
-    kinds = [k for k in ("sigma", "uniform", "tolerance") if k in nums]
-    has_range = "low" in nums or "high" in nums
-    if len(kinds) + has_range != 1:
-        raise ctx.err(
-            where, "give exactly one of sigma, uniform, low/high, tolerance", "e.g. { sigma = 0.3 }"
-        )
-    if "coverage" in nums and "tolerance" not in nums:
-        raise ctx.err(
-            f"{where}.coverage",
-            "only goes with tolerance",
-            "e.g. { tolerance = 0.9, coverage = 3 }",
-        )
-    if has_range:
-        if "low" not in nums or "high" not in nums:
-            raise ctx.err(where, "a range needs both low and high", "e.g. { low = 15, high = 35 }")
-        if nums["low"] > nums["high"]:
-            raise ctx.err(
-                f"{where}.low", f"low {nums['low']:g} is above high {nums['high']:g}", "swap them"
-            )
-        return _bounded(
-            ctx, key, where, {"kind": "range", "low": nums["low"], "high": nums["high"]}
-        )
-    k = kinds[0]
-    if nums[k] < 0:
-        raise ctx.err(f"{where}.{k}", f"must not be negative, got {nums[k]:g}", "give a width >= 0")
-    if k == "sigma":
-        return _bounded(ctx, key, where, {"kind": "normal", "sigma": nums["sigma"]})
-    if k == "uniform":
-        return _bounded(ctx, key, where, {"kind": "uniform", "half_width": nums["uniform"]})
-    cov = nums.get("coverage", 3.0)
-    if cov <= 0:
-        raise ctx.err(f"{where}.coverage", "must be positive", "e.g. coverage = 3")
-    return _bounded(
-        ctx,
-        key,
-        where,
-        {
-            "kind": "normal",
-            "sigma": nums["tolerance"] / cov,
-            "limit": nums["tolerance"],
-            "coverage": cov,
-        },
-    )
-
-
-def _reach(dist: dict) -> float:
-    """The largest |deviation| a distribution can practically give (6 sigma for a normal)."""
-    if dist["kind"] == "normal":
-        return 6.0 * dist["sigma"]
-    if dist["kind"] == "uniform":
-        return dist["half_width"]
-    return max(abs(dist["low"]), abs(dist["high"]))
-
-
-def _bounded(ctx: _Ctx, key: str, where: str, dist: dict) -> dict:
-    """Refuse distributions that reach physically impossible values."""
-    if key == "tilt_deg" and _reach(dist) >= 89.0:
-        raise ctx.err(
-            where,
-            "reaches an angle of incidence of 89 deg or more",
-            "tilts are a few degrees; give a smaller width",
-        )
-    if key in ("clocking_deg", "crossing_deg", "input_azimuth_deg") and _reach(dist) > 45.0:
-        raise ctx.err(where, "reaches more than 45 deg", "angle errors are small; check the unit")
-    if key == "temperature_c" and dist["kind"] == "range" and dist["low"] < -273.15:
-        raise ctx.err(f"{where}.low", "is below absolute zero", "give a temperature in deg C")
-    return dist
+        return wavelength_nm(d[key], f"{self.path}: {where}{key}")
 
 
 def _tolerances(ctx: _Ctx, table: dict, where="[tolerances]") -> dict:
     ctx.check_keys(table, list(TOLERANCES), f"{where}.")
     out = {}
     for key, value in table.items():
-        out[key] = _distribution(ctx, key, value)
+        field = f"{ctx.path}: {where}.{key}"
+        convert = length_um if TOLERANCES[key].extra["unit_kind"] == "length" else None
+        dist = distributions.parse(value, field, convert)
+        out[key] = check_bounds(key, dist, field)
     return out
 
 
-def _candidate(ctx: _Ctx, c, i: int, default_design) -> dict:
+def _layers(ctx: _Ctx, layers, where: str) -> tuple[LayerSpec, ...]:
+    if not isinstance(layers, list) or not layers:
+        raise ctx.err(
+            f"{where}layers",
+            "a stack needs a list of layers",
+            'add layers = [{ material = "quartz", thickness = "17.5um", axis_deg = 0 }]',
+        )
+    out = []
+    for j, la in enumerate(layers):
+        w = f"{where}layers[{j}]."
+        if not isinstance(la, dict):
+            raise ctx.err(f"{where}layers[{j}]", "must be a table")
+        ctx.check_keys(la, ("material", "thickness", "axis_deg"), w)
+        if "material" not in la or "thickness" not in la:
+            raise ctx.err(f"{where}layers[{j}]", "needs material and thickness")
+        mat = ctx.text(la, "material", w, '"quartz"')
+        th = length_um(la["thickness"], f"{ctx.path}: {w}thickness")
+        if not th > 0:
+            raise ctx.err(f"{w}thickness", "must be positive", 'e.g. "17.5um"')
+        if th > 1e6:
+            raise ctx.err(f"{w}thickness", f"{th:g} um is over a metre", "give the thickness in um or mm")
+        axis = float(ctx.number(la, "axis_deg", w, default=0.0))
+        out.append(LayerSpec(mat, th, axis))
+    return tuple(out)
+
+
+def _construction_params(ctx: _Ctx, c: dict, cons: str, where: str) -> dict:
+    """The construction's own keys, read and checked."""
+    out: dict = {}
+    if cons == "multi-order":
+        out["order"] = ctx.number(c, "order", where, required=True, minimum=0, integer=True, maximum=100000)
+    if cons == "compound":
+        if "thick_plate" not in c:
+            raise ctx.err(f"{where}thick_plate", "a compound plate needs it", 'add thick_plate = "1000um"')
+        t = length_um(c["thick_plate"], f"{ctx.path}: {where}thick_plate")
+        if not 0 < t <= 1e6:
+            raise ctx.err(f"{where}thick_plate", "must be positive and below a metre", 'e.g. "1000um"')
+        out["thick_plate_um"] = t
+    if cons == "achromatic":
+        out["partner"] = ctx.text(c, "partner", where, '"mgf2"')
+        if "match" in c:
+            m = c["match"]
+            if not isinstance(m, list) or len(m) != 2:
+                raise ctx.err(f"{where}match", "must list two wavelengths", 'e.g. match = ["450nm", "650nm"]')
+            out["match_nm"] = tuple(wavelength_nm(x, f"{ctx.path}: {where}match") for x in m)
+    if cons == "film" and "retardance" in c:
+        r = interval_nm(c["retardance"], f"{ctx.path}: {where}retardance")
+        if not r > 0:
+            raise ctx.err(f"{where}retardance", "must be positive", 'e.g. "137.5nm"')
+        out["retardance_nm"] = r
+    if cons == "stack":
+        out["layers"] = _layers(ctx, c.get("layers"), where)
+    return out
+
+
+def _candidate(ctx: _Ctx, c, i: int, default_design) -> Candidate:
     where = f"[[candidate]] #{i + 1}."
     if not isinstance(c, dict):
         raise ctx.err(f"candidate #{i + 1}", "must be a table", "write [[candidate]] blocks")
     ctx.check_keys(c, CANDIDATE_KEYS, where)
-    from .plates import CONSTRUCTIONS
-
     name = c.get("name", f"candidate {i + 1}")
     if not isinstance(name, str) or not name.strip():
         raise ctx.err(f"{where}name", "must be a non-empty string")
     where = f"[[candidate]] {name!r}."
     if "construction" not in c:
         raise ctx.err(f"{where}construction", "missing", f"one of {', '.join(CONSTRUCTIONS)}")
-    cons = c["construction"]
-    if cons not in CONSTRUCTIONS:
-        close = difflib.get_close_matches(str(cons), list(CONSTRUCTIONS), n=1)
-        fix = f"did you mean {close[0]!r}?" if close else f"use one of {', '.join(CONSTRUCTIONS)}"
-        raise ctx.err(f"{where}construction", f"unknown construction {cons!r}", fix)
-    extra = {
-        "zero-order": (),
-        "multi-order": ("order",),
-        "compound": ("thick_plate",),
-        "achromatic": ("partner", "match"),
-        "film": ("retardance",),
-        "stack": ("layers",),
-    }
+    cons = ctx.name(c, "construction", where, list(CONSTRUCTIONS))
+    own = CONSTRUCTIONS[cons].key_names
     for k in c:
-        if k in CONSTRUCTION_KEYS and k not in extra[cons]:
-            raise ctx.err(
-                f"{where}{k}",
-                f"does not apply to a {cons} plate",
-                "remove it, or change construction",
-            )
-    out = {"name": name, "construction": cons}
+        if k in CONSTRUCTION_KEYS and k not in own:
+            raise ctx.err(f"{where}{k}", f"does not apply to a {cons} plate", "remove it, or change construction")
+    material = None
     if cons != "stack":
-        if "material" not in c or not isinstance(c["material"], str):
-            raise ctx.err(f"{where}material", "missing", 'add material = "quartz"')
-        out["material"] = c["material"]
+        material = ctx.text(c, "material", where, '"quartz"')
     elif "material" in c:
-        out["material"] = c["material"]
-    out["waves"] = float(ctx.number(c, "waves", where, default=0.25, minimum=0, strict_min=True))
+        material = ctx.text(c, "material", where, '"quartz"')
+    waves = float(ctx.number(c, "waves", where, default=0.25, minimum=0, strict_min=True, maximum=1e5))
     if "design" in c:
-        out["design_nm"] = ctx.wl(c, "design", where)
-    elif cons != "stack":
-        if default_design is None:
-            raise ctx.err(f"{where}design", "missing", 'add design = "780nm"')
-        out["design_nm"] = default_design
+        design = ctx.wl(c, "design", where)
+    elif cons != "stack" and default_design is None:
+        raise ctx.err(f"{where}design", "missing", 'add design = "780nm"')
     else:
-        out["design_nm"] = default_design
-    out["axis_deg"] = float(ctx.number(c, "axis_deg", where, default=45.0))
-    if cons == "multi-order":
-        out["order"] = ctx.number(c, "order", where, required=True, minimum=0, integer=True)
-    if cons == "compound":
-        if "thick_plate" not in c:
-            raise ctx.err(
-                f"{where}thick_plate", "a compound plate needs it", 'add thick_plate = "1000um"'
-            )
-        out["thick_plate_um"] = length_um(c["thick_plate"], f"{ctx.path}: {where}thick_plate")
-        if not out["thick_plate_um"] > 0:
-            raise ctx.err(f"{where}thick_plate", "must be positive", 'e.g. "1000um"')
-    if cons == "achromatic":
-        if "partner" not in c or not isinstance(c["partner"], str):
-            raise ctx.err(f"{where}partner", "an achromatic plate needs it", 'add partner = "mgf2"')
-        out["partner"] = c["partner"]
-        if "match" in c:
-            m = c["match"]
-            if not isinstance(m, list) or len(m) != 2:
-                raise ctx.err(
-                    f"{where}match", "must list two wavelengths", 'e.g. match = ["450nm", "650nm"]'
-                )
-            out["match_nm"] = [wavelength_nm(x, f"{ctx.path}: {where}match") for x in m]
-    if cons == "film" and "retardance" in c:
-        out["retardance_nm"] = interval_nm(c["retardance"], f"{ctx.path}: {where}retardance")
-        if not out["retardance_nm"] > 0:
-            raise ctx.err(f"{where}retardance", "must be positive", 'e.g. "137.5nm"')
-    if cons == "stack":
-        layers = c.get("layers")
-        if not isinstance(layers, list) or not layers:
-            raise ctx.err(
-                f"{where}layers",
-                "a stack needs a list of layers",
-                'add layers = [{ material = "quartz", thickness = "17.5um", axis_deg = 0 }]',
-            )
-        out["layers"] = []
-        for j, la in enumerate(layers):
-            if not isinstance(la, dict):
-                raise ctx.err(f"{where}layers[{j}]", "must be a table")
-            ctx.check_keys(la, ("material", "thickness", "axis_deg"), f"{where}layers[{j}].")
-            if "material" not in la or "thickness" not in la:
-                raise ctx.err(f"{where}layers[{j}]", "needs material and thickness")
-            th = length_um(la["thickness"], f"{ctx.path}: {where}layers[{j}].thickness")
-            if not th > 0:
-                raise ctx.err(f"{where}layers[{j}].thickness", "must be positive", 'e.g. "17.5um"')
-            out["layers"].append(
-                {
-                    "material": la["material"],
-                    "thickness_um": th,
-                    "axis_deg": float(la.get("axis_deg", 0.0)),
-                }
-            )
+        design = default_design
+    axis = float(ctx.number(c, "axis_deg", where, default=45.0))
+    params = _construction_params(ctx, c, cons, where)
+    tol = {}
     if "tolerances" in c:
         t = c["tolerances"]
         if not isinstance(t, dict):
             raise ctx.err(f"{where}tolerances", "must be a table")
-        out["tolerances"] = _tolerances(ctx, t, f"{where}tolerances")
-    return out
+        tol = _tolerances(ctx, t, f"{where}tolerances")
+    cand = Candidate(
+        name=name,
+        construction=cons,
+        material=material,
+        waves=waves,
+        design_nm=design,
+        axis_deg=axis,
+        tolerances=_proxy(tol),
+        **params,
+    )
+    try:
+        plate = cand.build_plate()
+    except RetolError as exc:
+        raise RetolError(f"{ctx.path}: {where}{exc.field}", exc.problem, exc.fix) from None
+    object.__setattr__(cand, "plate", plate)
+    return cand
 
 
-def validate(raw: dict, path: str = "<spec>") -> dict:
-    """Validate a parsed spec and return its normalised form (a JSON-serialisable dict)."""
-    ctx = _Ctx(Path(path).name if path != "<spec>" else path)
-    if not isinstance(raw, dict):
-        raise ctx.err("spec", "must be a TOML document")
-    ctx.check_keys(raw, TOP_KEYS, "")
-    spec: dict = {"title": str(raw.get("title", Path(path).stem))}
-
+def _wavelength(ctx: _Ctx, raw: dict) -> WavelengthGrid:
     w = ctx.table(raw, "wavelength", required=True)
     ctx.check_keys(w, WAVELENGTH_KEYS, "[wavelength].")
     start = ctx.wl(w, "start", "[wavelength].")
@@ -390,160 +318,204 @@ def validate(raw: dict, path: str = "<spec>") -> dict:
     if stop < start:
         raise ctx.err("[wavelength].stop", f"{stop:g} nm is below start {start:g} nm", "swap them")
     n = int(math.floor((stop - start) / step + 1e-9)) + 1
-    if n > 20001:
-        raise ctx.err("[wavelength].step", f"gives {n} wavelengths", "use at most 20001")
-    spec["wavelength"] = {"start_nm": start, "stop_nm": stop, "step_nm": step, "count": n}
+    if n > MAX_WAVELENGTHS:
+        raise ctx.err("[wavelength].step", f"gives {n} wavelengths", f"use at most {MAX_WAVELENGTHS}")
+    return WavelengthGrid(start, stop, step, n)
 
-    src = ctx.table(raw, "source")
-    if not src:
-        src = {"shape": "flat"}
-    spec["source"] = copy.deepcopy(src)
 
-    inp = ctx.table(raw, "input")
-    ctx.check_keys(inp, INPUT_KEYS, "[input].")
-    spec["input"] = {"azimuth_deg": float(ctx.number(inp, "azimuth_deg", "[input].", default=0.0))}
+def _source(ctx: _Ctx, raw: dict, grid: WavelengthGrid, base_dir) -> Source:
+    from .sources import build_spectrum
 
+    src = ctx.table(raw, "source") or {"shape": "flat"}
+    try:
+        json.dumps(src)
+    except TypeError:
+        raise ctx.err("[source]", "holds a value that is not a number, string or table (a date?)",
+                      "write wavelengths as strings such as \"780nm\"") from None
+    spectrum = build_spectrum(src, grid.values(), Path(base_dir) if base_dir else None,
+                              field=f"{ctx.path}: [source]")
+    drift = distributions.from_drift(spectrum.drift) if spectrum.drift else None
+    return Source(table=_freeze(src), spectrum=spectrum, drift=drift)
+
+
+def _goal(ctx: _Ctx, raw: dict) -> Goal:
+    metrics = goal_metrics()
     g = ctx.table(raw, "goal", required=True)
     ctx.check_keys(g, GOAL_KEYS, "[goal].")
-    state = g.get("state", "circular")
-    if state not in GOAL_STATES:
-        raise ctx.err("[goal].state", f"unknown state {state!r}", "use circular or linear")
-    metric = g.get("metric", "axial_ratio" if state == "circular" else "extinction_db")
-    if metric not in GOAL_METRICS:
-        close = difflib.get_close_matches(str(metric), GOAL_METRICS, n=1)
-        fix = f"did you mean {close[0]!r}?" if close else f"use one of {', '.join(GOAL_METRICS)}"
-        raise ctx.err("[goal].metric", f"unknown metric {metric!r}", fix)
-    if metric == "axial_ratio" and state == "linear":
+    state = ctx.name(g, "state", "[goal].", GOAL_STATES, default="circular")
+    metric = ctx.name(
+        g, "metric", "[goal].", list(metrics), default="axial_ratio" if state == "circular" else "extinction_db"
+    )
+    entry = metrics[metric]
+    if state not in entry.extra["states"]:
         raise ctx.err(
             "[goal].metric",
-            "axial_ratio needs a circular goal",
+            f"{metric} needs a {' or '.join(entry.extra['states'])} goal",
             "use extinction_db or fidelity for a linear goal",
         )
-    over = g.get("over", "band")
-    if over not in GOAL_OVER:
-        raise ctx.err("[goal].over", f"unknown {over!r}", "use band or spectrum")
+    over = ctx.name(g, "over", "[goal].", GOAL_OVER, default="band")
     gmin = ctx.number(g, "min", "[goal].", required=True)
-    if metric in ("axial_ratio", "fidelity") and not 0.0 <= gmin <= 1.0:
+    lo, hi = entry.extra["range"]
+    if not lo <= gmin <= hi:
         raise ctx.err(
             "[goal].min",
-            f"{metric} lies between 0 and 1, so min = {gmin:g} cannot be the goal",
+            f"{metric} lies between {lo:g} and {hi:g}, so min = {gmin:g} cannot be the goal",
             "e.g. min = 0.95",
         )
     hand = g.get("handedness")
     if hand is not None and hand not in ("right", "left"):
-        raise ctx.err(
-            "[goal].handedness",
-            f"unknown {hand!r}",
-            "use right (clockwise looking toward the source) or left",
-        )
-    spec["goal"] = {
-        "state": state,
-        "metric": metric,
-        "min": float(gmin),
-        "over": over,
-        "azimuth_deg": float(ctx.number(g, "azimuth_deg", "[goal].", default=0.0)),
-        "handedness": hand,
-        "acceptance_limit_waves": float(
-            ctx.number(
-                g, "acceptance_limit_waves", "[goal].", default=0.01, minimum=0, strict_min=True
-            )
+        raise ctx.err("[goal].handedness", f"unknown {hand!r}", "use right (clockwise looking toward the source) or left")
+    return Goal(
+        state=state,
+        metric=metric,
+        min=float(gmin),
+        over=over,
+        azimuth_deg=float(ctx.number(g, "azimuth_deg", "[goal].", default=0.0)),
+        handedness=hand,
+        acceptance_limit_waves=float(
+            ctx.number(g, "acceptance_limit_waves", "[goal].", default=0.01, minimum=0, strict_min=True)
         ),
-    }
+    )
 
+
+def _environment(ctx: _Ctx, raw: dict) -> Environment:
     env = ctx.table(raw, "environment")
     ctx.check_keys(env, ENV_KEYS, "[environment].")
-    t_nom = float(ctx.number(env, "temperature_c", "[environment].", default=20.0))
+    t_nom = float(ctx.number(env, "temperature_c", "[environment].", default=20.0, minimum=-273.15))
     tr = env.get("temperature_range", [t_nom - 30.0, t_nom + 30.0])
     if (
         not isinstance(tr, list)
         or len(tr) != 2
-        or not all(isinstance(x, int | float) and not isinstance(x, bool) for x in tr)
+        or not all(isinstance(x, int | float) and not isinstance(x, bool) and math.isfinite(x) for x in tr)
         or tr[0] >= tr[1]
     ):
-        raise ctx.err(
-            "[environment].temperature_range",
-            "must be [low, high] with low < high",
-            "e.g. [-10, 50]",
-        )
-    spec["environment"] = {
-        "temperature_c": t_nom,
-        "temperature_range": [float(tr[0]), float(tr[1])],
-        "tilt_max_deg": float(
-            ctx.number(
-                env, "tilt_max_deg", "[environment].", default=20.0, minimum=0, strict_min=True
-            )
-        ),
-    }
+        raise ctx.err("[environment].temperature_range", "must be [low, high] finite with low < high", "e.g. [-10, 50]")
+    if tr[0] < -273.15:
+        raise ctx.err("[environment].temperature_range", "is below absolute zero", "give deg C")
+    tilt = float(ctx.number(env, "tilt_max_deg", "[environment].", default=20.0, minimum=0, strict_min=True))
+    if tilt >= 90:
+        raise ctx.err("[environment].tilt_max_deg", "must be below 90 deg", "e.g. tilt_max_deg = 15")
+    return Environment(t_nom, (float(tr[0]), float(tr[1])), tilt)
+
+
+def _run(ctx: _Ctx, raw: dict) -> RunSettings:
+    r = ctx.table(raw, "run")
+    ctx.check_keys(r, RUN_KEYS, "[run].")
+    samples = ctx.number(r, "samples", "[run].", default=20000, integer=True, minimum=1)
+    q = r.get("quantiles", list(DEFAULT_QUANTILES))
+    if (
+        not isinstance(q, list)
+        or not q
+        or not all(isinstance(x, int | float) and not isinstance(x, bool) and 0 <= x <= 1 for x in q)
+    ):
+        raise ctx.err("[run].quantiles", "must be a list of numbers in [0, 1]", "e.g. [0.05, 0.5, 0.95]")
+    conf = ctx.number(r, "confidence", "[run].", default=0.95)
+    if not 0 < conf < 1:
+        raise ctx.err("[run].confidence", "must lie between 0 and 1", "e.g. 0.95")
+    return RunSettings(
+        samples=int(samples),
+        seed=int(ctx.number(r, "seed", "[run].", default=0, integer=True, minimum=0)),
+        chunk_size=ctx.number(r, "chunk_size", "[run].", default=None, integer=True, minimum=1),
+        quantiles=tuple(sorted(float(x) for x in q)),
+        confidence=float(conf),
+        sensitivity_samples=ctx.number(r, "sensitivity_samples", "[run].", default=None, integer=True, minimum=1),
+        keep_samples=ctx.flag(r, "keep_samples", "[run]."),
+    )
+
+
+def _report(ctx: _Ctx, raw: dict) -> ReportSettings:
+    rep = ctx.table(raw, "report")
+    ctx.check_keys(rep, REPORT_KEYS, "[report].")
+    formats = rep.get("formats", ["png"])
+    if not isinstance(formats, list) or not formats or any(f not in ("png", "svg", "pdf") for f in formats):
+        raise ctx.err("[report].formats", f"must list png, svg or pdf, got {formats!r}", 'e.g. formats = ["png", "svg"]')
+    return ReportSettings(tuple(formats))
+
+
+def validate(raw: dict, path: str = "<spec>", base_dir=None, source_text=None) -> Study:
+    """Validate a parsed spec and return the frozen :class:`~tolerance.study.Study`.
+
+    Parameters
+    ----------
+    raw : dict
+        The parsed TOML document.
+    path : str
+        Where it came from, for messages and the grid's record.
+    base_dir : str or Path, optional
+        Folder against which relative file paths in the spec resolve (default: the working folder).
+    source_text : str, optional
+        The spec as written, kept for the report.
+    """
+    ctx = _Ctx(Path(path).name if path != "<spec>" else path)
+    if not isinstance(raw, dict):
+        raise ctx.err("spec", "must be a TOML document")
+    ctx.check_keys(raw, TOP_KEYS, "")
+    title = raw.get("title", Path(path).stem)
+    if not isinstance(title, str):
+        raise ctx.err("title", f"must be a string, got {title!r}", 'title = "my plate"')
+    grid = _wavelength(ctx, raw)
+    source = _source(ctx, raw, grid, base_dir)
+    inp = ctx.table(raw, "input")
+    ctx.check_keys(inp, INPUT_KEYS, "[input].")
+    input_state = InputState(float(ctx.number(inp, "azimuth_deg", "[input].", default=0.0)))
+    goal = _goal(ctx, raw)
+    environment = _environment(ctx, raw)
 
     cands = raw.get("candidate")
     if not isinstance(cands, list) or not cands:
         raise ctx.err("[[candidate]]", "no candidate plates", "add at least one [[candidate]]")
+    src = source.table
     default_design = None
-    if isinstance(src, dict) and "center" in src:
-        try:
-            default_design = wavelength_nm(src["center"], f"{ctx.path}: [source].center")
-        except RetolError:
-            raise
-    spec["candidates"] = [_candidate(ctx, c, i, default_design) for i, c in enumerate(cands)]
-    names = [c["name"] for c in spec["candidates"]]
+    if "center" in src:
+        default_design = wavelength_nm(src["center"], f"{ctx.path}: [source].center")
+    candidates = tuple(_candidate(ctx, c, i, default_design) for i, c in enumerate(cands))
+    names = [c.name for c in candidates]
     dup = {x for x in names if names.count(x) > 1}
     if dup:
-        raise ctx.err(
-            "[[candidate]].name",
-            f"duplicated name {sorted(dup)[0]!r}",
-            "give each candidate its own name",
-        )
-
-    spec["tolerances"] = _tolerances(ctx, ctx.table(raw, "tolerances"))
-
-    r = ctx.table(raw, "run")
-    ctx.check_keys(r, RUN_KEYS, "[run].")
-    samples = ctx.number(r, "samples", "[run].", default=20000, integer=True, minimum=1)
-    q = r.get("quantiles", DEFAULT_QUANTILES)
-    if (
-        not isinstance(q, list)
-        or not q
-        or not all(
-            isinstance(x, int | float) and not isinstance(x, bool) and 0 <= x <= 1 for x in q
-        )
-    ):
-        raise ctx.err(
-            "[run].quantiles", "must be a list of numbers in [0, 1]", "e.g. [0.05, 0.5, 0.95]"
-        )
-    conf = ctx.number(r, "confidence", "[run].", default=0.95)
-    if not 0 < conf < 1:
-        raise ctx.err("[run].confidence", "must lie between 0 and 1", "e.g. 0.95")
-    spec["run"] = {
-        "samples": int(samples),
-        "seed": int(ctx.number(r, "seed", "[run].", default=0, integer=True, minimum=0)),
-        "chunk_size": ctx.number(r, "chunk_size", "[run].", default=None, integer=True, minimum=1),
-        "quantiles": sorted(float(x) for x in q),
-        "confidence": float(conf),
-        "sensitivity_samples": ctx.number(
-            r, "sensitivity_samples", "[run].", default=None, integer=True, minimum=1
-        ),
-        "keep_samples": bool(r.get("keep_samples", False)),
-    }
-    rep = ctx.table(raw, "report")
-    ctx.check_keys(rep, REPORT_KEYS, "[report].")
-    formats = rep.get("formats", ["png"])
-    if (
-        not isinstance(formats, list)
-        or not formats
-        or any(f not in ("png", "svg", "pdf") for f in formats)
-    ):
-        raise ctx.err(
-            "[report].formats",
-            f"must list png, svg or pdf, got {formats!r}",
-            'e.g. formats = ["png", "svg"]',
-        )
-    spec["report"] = {"formats": list(formats)}
-    spec["spec_path"] = str(path)
-    json.dumps(spec)  # must be serialisable
-    return spec
+        raise ctx.err("[[candidate]].name", f"duplicated name {sorted(dup)[0]!r}", "give each candidate its own name")
+    study = Study(
+        title=title,
+        wavelength=grid,
+        source=source,
+        input=input_state,
+        goal=goal,
+        environment=environment,
+        candidates=candidates,
+        tolerances=_proxy(_tolerances(ctx, ctx.table(raw, "tolerances"))),
+        run=_run(ctx, raw),
+        report=_report(ctx, raw),
+        spec_path=str(path),
+        base_dir=None if base_dir is None else str(base_dir),
+        source_text=source_text,
+    )
+    _check_ranges(study)
+    return study
 
 
-def load_spec(path) -> dict:
+def _check_ranges(study: Study) -> None:
+    """Every candidate's materials must cover the grid and the source's lines (with drift)."""
+    import numpy as np
+
+    from .dispersion import check_range
+
+    grid = study.wavelength.values()
+    spectrum = study.source.spectrum
+    fname = study.file_name
+    for c in study.candidates:
+        for la in c.plate.layers:
+            try:
+                check_range(la.material, grid, field=f"{fname}: [wavelength] for candidate {c.name!r}")
+                if spectrum.lines_nm.size:
+                    lines = np.asarray(spectrum.lines_nm, dtype=float)
+                    span = (spectrum.drift or {}).get("span_nm")
+                    if span is not None:
+                        lines = np.concatenate([lines + float(span[0]), lines + float(span[1])])
+                    check_range(la.material, lines, field=f"{fname}: [source] (with its drift)")
+            except RetolError as exc:
+                raise RetolError(exc.field, exc.problem, "choose a [wavelength] grid and source inside it") from None
+
+
+def load_spec(path) -> Study:
     """Read and validate a spec file; see :func:`validate`.
 
     Raises
@@ -556,12 +528,75 @@ def load_spec(path) -> dict:
         raise RetolError(str(p), "no such spec file", "check the path")
     try:
         text = p.read_bytes().decode("utf-8")
-        raw = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise RetolError(p.name, f"is not valid TOML ({exc})", "fix the syntax") from None
     except UnicodeDecodeError:
         raise RetolError(p.name, "is not UTF-8 text", "save it as UTF-8") from None
-    spec = validate(raw, str(p))
-    spec["base_dir"] = str(p.parent.resolve())
-    spec["source_text"] = text
-    return spec
+    return loads(text, str(p), base_dir=p.parent.resolve())
+
+
+def loads(text: str, path: str = "<spec>", base_dir=None) -> Study:
+    """Validate a spec given as TOML text (e.g. a built-in example)."""
+    name = Path(path).name
+    try:
+        raw = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise RetolError(name, f"is not valid TOML ({exc})", "fix the syntax") from None
+    except RecursionError:
+        raise RetolError(name, "is nested too deeply", "flatten the spec") from None
+    return validate(raw, path, base_dir=base_dir, source_text=text)
+
+
+# ----------------------------------------------------------------------------- normalised form
+
+
+def _raw_distribution(d: dict) -> dict:
+    dist = distributions.Distribution.from_dict(d)
+    if dist.kind == "normal":
+        if dist.limit is not None:
+            return {"tolerance": dist.limit, "coverage": dist.coverage}
+        return {"sigma": dist.sigma}
+    if dist.kind == "uniform":
+        return {"uniform": dist.half_width}
+    return {"low": dist.low, "high": dist.high}
+
+
+def _raw_candidate(c: dict) -> dict:
+    out = {k: c[k] for k in ("name", "construction", "material", "waves", "axis_deg") if k in c}
+    if c.get("design_nm") is not None:
+        out["design"] = c["design_nm"]
+    for norm, key in (("order", "order"), ("thick_plate_um", "thick_plate"), ("partner", "partner"),
+                      ("match_nm", "match"), ("retardance_nm", "retardance")):
+        if norm in c:
+            out[key] = c[norm]
+    if "layers" in c:
+        out["layers"] = [
+            {"material": la["material"], "thickness": la["thickness_um"], "axis_deg": la["axis_deg"]}
+            for la in c["layers"]
+        ]
+    if "tolerances" in c:
+        out["tolerances"] = {k: _raw_distribution(v) for k, v in c["tolerances"].items()}
+    return out
+
+
+def from_normalised(d, base_dir=None, source_text=None) -> Study:
+    """The study of a normalised dict (:meth:`Study.to_dict`, a grid's ``spec`` attribute)."""
+    d = json.loads(d) if isinstance(d, str) else d
+    w = d["wavelength"]
+    raw = {
+        "title": d["title"],
+        "wavelength": {"start": w["start_nm"], "stop": w["stop_nm"], "step": w["step_nm"]},
+        "source": d["source"],
+        "input": d["input"],
+        "goal": {k: v for k, v in d["goal"].items() if v is not None},
+        "environment": d["environment"],
+        "candidate": [_raw_candidate(c) for c in d["candidates"]],
+        "tolerances": {k: _raw_distribution(v) for k, v in d["tolerances"].items()},
+        "run": {k: v for k, v in d["run"].items() if v is not None},
+        "report": d["report"],
+    }
+    return validate(raw, d.get("spec_path", "<spec>"), base_dir=base_dir, source_text=source_text)
+
+
+def _freeze(value):
+    from .dispersion import frozen
+
+    return frozen(value)

@@ -5,6 +5,8 @@ A bare number is read in the API unit (nm for wavelengths, um for lengths).
 
 from __future__ import annotations
 
+import math
+
 import re
 
 from .errors import RetolError
@@ -78,5 +80,10 @@ def length_um(value, field: str = "thickness") -> float:
     >>> length_um("17.5um")
     17.5
     """
-    um = _parse(value, field, "um") / 1e3 if not isinstance(value, int | float) else float(value)
+    if isinstance(value, int | float) and not isinstance(value, bool):
+        um = float(value)
+        if not math.isfinite(um):
+            raise RetolError(field, f"{value!r} is not finite", "give a finite length, e.g. 17.5um")
+    else:
+        um = _parse(value, field, "um") / 1e3
     return round(um, 12)

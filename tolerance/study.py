@@ -1,0 +1,303 @@
+"""The validated study: frozen, typed records that everything downstream of the spec reads.
+
+:func:`tolerance.spec.load_spec` returns a :class:`Study`; nothing after it re-parses or patches
+it.  A study serialises to the normalised JSON stored in the results grid (:meth:`Study.to_dict`)
+and a grid's JSON loads back into an equal study (:meth:`Study.from_dict`).  A changed copy for
+an engine call is made with :func:`dataclasses.replace` (e.g. another plate or other tolerances).
+"""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from types import MappingProxyType
+
+import numpy as np
+
+from .distributions import Distribution
+from .tolerances import DRIFT, SHORT
+
+
+def _proxy(d) -> Mapping:
+    return MappingProxyType(dict(d))
+
+
+@dataclass(frozen=True)
+class WavelengthGrid:
+    """The analysis grid: start, stop and step [nm] and the number of wavelengths."""
+
+    start_nm: float
+    stop_nm: float
+    step_nm: float
+    count: int
+
+    def values(self) -> np.ndarray:
+        """(count,) analysis wavelengths. [nm]"""
+        return np.round(self.start_nm + self.step_nm * np.arange(self.count), 9)
+
+    def to_dict(self) -> dict:
+        return {
+            "start_nm": self.start_nm,
+            "stop_nm": self.stop_nm,
+            "step_nm": self.step_nm,
+            "count": self.count,
+        }
+
+
+@dataclass(frozen=True)
+class Source:
+    """The source as written (``table``) and as built on the analysis grid (``spectrum``).
+
+    ``drift`` is the laser's centre drift as a distribution of offsets [nm], or None.
+    """
+
+    table: Mapping
+    spectrum: object = field(compare=False, repr=False)
+    drift: Distribution | None = None
+
+    def to_dict(self) -> dict:
+        return json.loads(json.dumps(_thaw(self.table)))
+
+
+@dataclass(frozen=True)
+class InputState:
+    """The light entering the plate: a linear state at ``azimuth_deg`` [deg]."""
+
+    azimuth_deg: float = 0.0
+
+    def to_dict(self) -> dict:
+        return {"azimuth_deg": self.azimuth_deg}
+
+
+@dataclass(frozen=True)
+class Goal:
+    """What the output must be: the state, the metric and its minimum, over band or spectrum."""
+
+    state: str
+    metric: str
+    min: float
+    over: str = "band"
+    azimuth_deg: float = 0.0
+    handedness: str | None = None
+    acceptance_limit_waves: float = 0.01
+
+    def to_dict(self) -> dict:
+        return {
+            "state": self.state,
+            "metric": self.metric,
+            "min": self.min,
+            "over": self.over,
+            "azimuth_deg": self.azimuth_deg,
+            "handedness": self.handedness,
+            "acceptance_limit_waves": self.acceptance_limit_waves,
+        }
+
+
+@dataclass(frozen=True)
+class Environment:
+    """Nominal plate temperature [°C], the range the maps cover [°C] and the largest tilt [deg]."""
+
+    temperature_c: float = 20.0
+    temperature_range: tuple[float, float] = (-10.0, 50.0)
+    tilt_max_deg: float = 20.0
+
+    def to_dict(self) -> dict:
+        return {
+            "temperature_c": self.temperature_c,
+            "temperature_range": list(self.temperature_range),
+            "tilt_max_deg": self.tilt_max_deg,
+        }
+
+
+@dataclass(frozen=True)
+class LayerSpec:
+    """One layer of a ``stack`` candidate as written: material name or path, µm, deg."""
+
+    material: str
+    thickness_um: float
+    axis_deg: float = 0.0
+
+    def to_dict(self) -> dict:
+        return {"material": self.material, "thickness_um": self.thickness_um, "axis_deg": self.axis_deg}
+
+
+@dataclass(frozen=True)
+class Candidate:
+    """One candidate plate: its construction and parameters, and its own tolerance overrides.
+
+    ``plate`` is the designed :class:`tolerance.plates.Plate` (built and checked at validation).
+    """
+
+    name: str
+    construction: str
+    material: str | None
+    waves: float
+    design_nm: float | None
+    axis_deg: float
+    order: int | None = None
+    thick_plate_um: float | None = None
+    partner: str | None = None
+    match_nm: tuple[float, float] | None = None
+    retardance_nm: float | None = None
+    layers: tuple[LayerSpec, ...] | None = None
+    tolerances: Mapping[str, Distribution] = field(default_factory=lambda: _proxy({}))
+    plate: object = field(default=None, compare=False, repr=False)
+
+    def design_keys(self) -> dict:
+        """The construction's own keywords for :func:`tolerance.plates.design_plate`."""
+        out = {}
+        for k in ("order", "thick_plate_um", "partner", "match_nm", "retardance_nm"):
+            v = getattr(self, k)
+            if v is not None:
+                out[k] = list(v) if k == "match_nm" else v
+        if self.layers is not None:
+            out["layers"] = [la.to_dict() for la in self.layers]
+        return out
+
+    def build_plate(self):
+        """Design this candidate's plate (raises RetolError naming the bad key)."""
+        from .plates import design_plate
+
+        return design_plate(
+            self.construction,
+            material=self.material,
+            waves=self.waves,
+            design_nm=self.design_nm,
+            axis_deg=self.axis_deg,
+            name=self.name,
+            **self.design_keys(),
+        )
+
+    def to_dict(self) -> dict:
+        d: dict = {"name": self.name, "construction": self.construction}
+        if self.material is not None:
+            d["material"] = self.material
+        d["waves"] = self.waves
+        d["design_nm"] = self.design_nm
+        d["axis_deg"] = self.axis_deg
+        for k, v in self.design_keys().items():
+            d[k] = v
+        if self.tolerances:
+            d["tolerances"] = {k: v.to_dict() for k, v in self.tolerances.items()}
+        return d
+
+
+@dataclass(frozen=True)
+class RunSettings:
+    """Monte Carlo settings: sample count, seed, chunking, quantiles, confidence level."""
+
+    samples: int = 20000
+    seed: int = 0
+    chunk_size: int | None = None
+    quantiles: tuple[float, ...] = (0.01, 0.05, 0.5, 0.95, 0.99)
+    confidence: float = 0.95
+    sensitivity_samples: int | None = None
+    keep_samples: bool = False
+
+    def to_dict(self) -> dict:
+        return {
+            "samples": self.samples,
+            "seed": self.seed,
+            "chunk_size": self.chunk_size,
+            "quantiles": list(self.quantiles),
+            "confidence": self.confidence,
+            "sensitivity_samples": self.sensitivity_samples,
+            "keep_samples": self.keep_samples,
+        }
+
+
+@dataclass(frozen=True)
+class ReportSettings:
+    """Figure formats of the report."""
+
+    formats: tuple[str, ...] = ("png",)
+
+    def to_dict(self) -> dict:
+        return {"formats": list(self.formats)}
+
+
+@dataclass(frozen=True)
+class Study:
+    """A validated tolerance study: everything one ``retol run`` needs.
+
+    ``spec_path`` is the file it came from (for messages), ``base_dir`` the folder relative paths
+    in it resolve against and ``source_text`` the file as written (for the report).
+    """
+
+    title: str
+    wavelength: WavelengthGrid
+    source: Source
+    input: InputState
+    goal: Goal
+    environment: Environment
+    candidates: tuple[Candidate, ...]
+    tolerances: Mapping[str, Distribution]
+    run: RunSettings
+    report: ReportSettings
+    spec_path: str = "<spec>"
+    base_dir: str | None = field(default=None, compare=False)
+    source_text: str | None = field(default=None, compare=False, repr=False)
+
+    @property
+    def file_name(self) -> str:
+        from pathlib import Path
+
+        return Path(self.spec_path).name if self.spec_path != "<spec>" else self.spec_path
+
+    def tolerances_for(self, candidate: Candidate) -> Mapping[str, Distribution]:
+        """The candidate's tolerances: the study's, overridden by its own, plus the laser drift."""
+        tol = dict(self.tolerances)
+        tol.update(candidate.tolerances)
+        if self.source.drift is not None:
+            tol[DRIFT] = self.source.drift
+        return _proxy(tol)
+
+    def candidate(self, name: str) -> Candidate:
+        from .errors import RetolError
+
+        for c in self.candidates:
+            if c.name == name:
+                return c
+        raise RetolError(
+            "candidate", f"no candidate {name!r}", f"known: {', '.join(c.name for c in self.candidates)}"
+        )
+
+    @property
+    def tolerance_order(self) -> tuple[str, ...]:
+        """Every tolerance key in the grid's order (the registry's, then drift)."""
+        return tuple(SHORT)
+
+    def to_dict(self) -> dict:
+        """The normalised JSON form stored in the grid's ``spec`` attribute."""
+        return {
+            "title": self.title,
+            "wavelength": self.wavelength.to_dict(),
+            "source": self.source.to_dict(),
+            "input": self.input.to_dict(),
+            "goal": self.goal.to_dict(),
+            "environment": self.environment.to_dict(),
+            "candidates": [c.to_dict() for c in self.candidates],
+            "tolerances": {k: v.to_dict() for k, v in self.tolerances.items()},
+            "run": self.run.to_dict(),
+            "report": self.report.to_dict(),
+            "spec_path": self.spec_path,
+        }
+
+    def to_json(self) -> str:
+        return json.dumps(self.to_dict(), sort_keys=True)
+
+    @classmethod
+    def from_dict(cls, d: Mapping, base_dir=None, source_text=None) -> Study:
+        """The study of a normalised dict (a grid's ``spec`` attribute), validated again."""
+        from .spec import from_normalised
+
+        return from_normalised(d, base_dir=base_dir, source_text=source_text)
+
+
+def _thaw(value):
+    if isinstance(value, Mapping):
+        return {k: _thaw(v) for k, v in value.items()}
+    if isinstance(value, tuple | list):
+        return [_thaw(v) for v in value]
+    return value
