@@ -34,7 +34,6 @@ import numpy as np
 import pytest
 
 import tolerance
-from tolerance.montecarlo import build_plate
 from tolerance.plates import plate_retardance
 from tolerance.spec import validate
 
@@ -103,7 +102,7 @@ def plate_of(cand: dict):
     """The Plate a spec candidate table builds (through the spec's own validation)."""
     spec = validate({"wavelength": {"start": "790nm", "stop": "810nm", "step": "10nm"},
                      "goal": {"min": 0.9}, "candidate": [cand]})
-    return build_plate(spec["candidates"][0])
+    return spec.candidates[0].build_plate()
 
 
 def retardance_derivatives(cand: dict):

@@ -41,7 +41,7 @@ def test_spec_only_writes_a_valid_starting_spec(tmp_path, monkeypatch, name):
     assert r.exit_code == 0, r.output
     path = tmp_path / f"{name}.toml"
     spec = validate(tomllib.loads(path.read_text()), str(path))
-    assert spec["candidates"]
+    assert spec.candidates
     # never overwritten without --force
     path.write_text("# mine\n")
     r = _run(["demo", name, "--spec-only"])
@@ -59,10 +59,10 @@ def test_demo_spec_has_six_constructions():
 
     text = resources.files("tolerance.examples").joinpath("sld_circular.toml").read_text()
     spec = validate(tomllib.loads(text), "sld_circular.toml")
-    kinds = {c["construction"] for c in spec["candidates"]}
+    kinds = {c.construction for c in spec.candidates}
     assert kinds == {"zero-order", "multi-order", "compound", "achromatic", "film"}
-    assert any(c.get("material") == "mgf2" for c in spec["candidates"])
-    assert len(spec["candidates"]) == 6
+    assert any(c.material == "mgf2" for c in spec.candidates)
+    assert len(spec.candidates) == 6
 
 
 def test_demo_runs_and_writes_its_report(tmp_path):

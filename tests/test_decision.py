@@ -118,18 +118,17 @@ def test_broad_source_dop_near_frequency_gaussian_estimate(broad):
     frequency-Gaussian with sigma_nu = c sigma_lambda / lambda0^2 (fractional width 2 %), so
     DOP ~ exp(-(d' sigma_nu)^2 / 2) with d' = d delta / d nu of the plate.  The asymmetry of the
     wavelength-to-frequency map and the curvature of d(nu) make this an estimate: +-0.02."""
-    from tolerance.montecarlo import build_plate
     from tolerance.plates import plate_retardance
 
     spec = tolerance.load_spec(DATA / "broad_800_circular.toml")
-    cand = next(c for c in spec["candidates"] if c["construction"] == "multi-order")
-    plate = build_plate(cand)
+    cand = next(c for c in spec.candidates if c.construction == "multi-order")
+    plate = cand.build_plate()
     nu0, h = C_NM_PER_FS / 800.0, 1e-5
     d1 = (float(plate_retardance(plate, C_NM_PER_FS / (nu0 + h)))
           - float(plate_retardance(plate, C_NM_PER_FS / (nu0 - h)))) / (2 * h)
     sigma_nu = C_NM_PER_FS * (40.0 / (2 * math.sqrt(2 * math.log(2)))) / 800.0**2
     estimate = math.exp(-0.5 * (d1 * sigma_nu) ** 2)
-    assert float(broad["nominal_dop"].sel(candidate=cand["name"])) == pytest.approx(
+    assert float(broad["nominal_dop"].sel(candidate=cand.name)) == pytest.approx(
         estimate, abs=0.02)
 
 

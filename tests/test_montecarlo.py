@@ -379,7 +379,7 @@ def _library_stokes(plate, wl, thick, axes, temp, aoi, poi, alpha):
 
 def _kernel_stokes(plate, wl, thick, axes, temp, aoi, poi, alpha):
     """Kernel inputs built by hand as documented in montecarlo.sample_inputs."""
-    optics = montecarlo._layer_optics(plate, wl)
+    optics = montecarlo.layer_optics(plate, wl)
     optic = np.array([a if la.material.negative else a + 90.0
                       for la, a in zip(plate.layers, axes, strict=True)])
     tfac = np.array([1 + la.material.retardance_temperature_coefficient
@@ -387,9 +387,10 @@ def _kernel_stokes(plate, wl, thick, axes, temp, aoi, poi, alpha):
     th = np.radians(2 * np.asarray(axes, dtype=float))
     phi = np.radians(poi - optic)
     out = np.empty((wl.size, 3))
-    stokes_one(*optics, np.asarray(thick, dtype=float), tfac, np.cos(th), np.sin(th),
-               math.sin(math.radians(aoi)) ** 2, np.cos(phi) ** 2, np.sin(phi) ** 2,
-               math.cos(math.radians(alpha)), math.sin(math.radians(alpha)), plate.signs(), out)
+    sample = (np.asarray(thick, dtype=float), tfac, np.cos(th), np.sin(th),
+              math.sin(math.radians(aoi)) ** 2, np.cos(phi) ** 2, np.sin(phi) ** 2,
+              math.cos(math.radians(alpha)), math.sin(math.radians(alpha)))
+    stokes_one(optics, sample, plate.signs(), out)
     return out
 
 
@@ -397,7 +398,7 @@ def _kernel_stokes(plate, wl, thick, axes, temp, aoi, poi, alpha):
 def test_kernel_matches_library_for_hand_set_samples(cand):
     """The fused kernel and the numpy physics (plates.plate_jones, polarization.jones_to_stokes)
     describe the same assembly; they must agree to rounding."""
-    plate = montecarlo.build_plate(validate_candidate(cand))
+    plate = validate_candidate(cand).build_plate()
     wl = np.array([650.0, 780.0, 905.0])
     rng = np.random.default_rng(2024)
     for _ in range(6):
@@ -415,7 +416,7 @@ def test_kernel_matches_library_for_hand_set_samples(cand):
 
 
 def validate_candidate(cand):
-    return make_spec([cand], {})["candidates"][0]
+    return make_spec([cand], {}).candidates[0]
 
 
 def test_engine_design_stokes_matches_library(general_spec, general_grid):
@@ -423,23 +424,23 @@ def test_engine_design_stokes_matches_library(general_spec, general_grid):
     that sample's own draws, rebuilt from the seeded streams as sample_inputs documents."""
     seed = general_grid.attrs["seed"]
     n = general_grid.sizes["sample"]
-    tol = general_spec["tolerances"]
-    t_nom = general_spec["environment"]["temperature_c"]
+    tol = general_spec.tolerances
+    t_nom = general_spec.environment.temperature_c
 
     def draws(name, index=0):
         return sampler.standard_draws(seed, name, index, 0, n)
 
-    temp = sampler.scaled(tol["temperature_c"], *draws("temperature_c"), center=t_nom)
-    clock = sampler.scaled(tol["clocking_deg"], *draws("clocking_deg"))
-    aoi = np.abs(sampler.scaled(tol["tilt_deg"], *draws("tilt_deg")))
+    temp = tol["temperature_c"].draw(*draws("temperature_c"), center=t_nom)
+    clock = tol["clocking_deg"].draw(*draws("clocking_deg"))
+    aoi = np.abs(tol["tilt_deg"].draw(*draws("tilt_deg")))
     poi = 360.0 * draws("tilt_azimuth")[1]
-    alpha = sampler.scaled(tol["input_azimuth_deg"], *draws("input_azimuth_deg"))
-    for ci, cand in enumerate(general_spec["candidates"]):
-        plate = montecarlo.build_plate(cand)
+    alpha = tol["input_azimuth_deg"].draw(*draws("input_azimuth_deg"))
+    for ci, cand in enumerate(general_spec.candidates):
+        plate = cand.build_plate()
         L = len(plate.layers)
-        thick = [la.thickness_um + sampler.scaled(tol["thickness_um"], *draws("thickness_um", j))
+        thick = [la.thickness_um + tol["thickness_um"].draw(*draws("thickness_um", j))
                  for j, la in enumerate(plate.layers)]
-        cross = [np.zeros(n)] + [sampler.scaled(tol["crossing_deg"], *draws("crossing_deg", j))
+        cross = [np.zeros(n)] + [tol["crossing_deg"].draw(*draws("crossing_deg", j))
                                  for j in range(1, L)]
         wl = general_grid["wavelength"].values
         w_design = float(wl[np.argmin(np.abs(wl - plate.design_nm))])
@@ -448,7 +449,7 @@ def test_engine_design_stokes_matches_library(general_spec, general_grid):
             lib = _library_stokes(plate, np.array([w_design]), [t[s] for t in thick], axes,
                                   temp[s], aoi[s], poi[s], alpha[s])[0]
             got = general_grid["design_stokes"].values[ci, s]
-            np.testing.assert_allclose(got, lib, atol=1e-10, rtol=0, err_msg=f"{cand['name']} {s}")
+            np.testing.assert_allclose(got, lib, atol=1e-10, rtol=0, err_msg=f"{cand.name} {s}")
 
 
 # ----------------------------------------------------------------------------- 7. sensitivity
@@ -506,7 +507,7 @@ def test_grid_follows_the_schema(general_spec, general_grid):
     assert list(ds["stokes"].values) == ["s1", "s2", "s3"]
     # over = "band": the pass test uses each sample's worst metric in band
     np.testing.assert_array_equal(ds["pass_metric"].values, ds["worst_metric"].values)
-    g = general_spec["goal"]["min"]
+    g = general_spec.goal.min
     for c in ds["candidate"].values:
         pm = ds["pass_metric"].sel(candidate=c).values
         assert float(ds["yield"].sel(candidate=c)) == np.mean(pm >= g)

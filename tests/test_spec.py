@@ -50,20 +50,21 @@ def error_of(raw, path=f"/somewhere/specs/{NAME}") -> str:
 
 def test_the_example_spec_validates_and_normalises():
     spec = tolerance.load_spec(GOOD)
-    assert spec["title"] == "780 nm diode, circular (test)"
+    assert spec.title == "780 nm diode, circular (test)"
     # 770..790 nm every 5 nm: 5 wavelengths
-    assert spec["wavelength"] == {"start_nm": 770.0, "stop_nm": 790.0, "step_nm": 5.0, "count": 5}
-    assert [c["name"] for c in spec["candidates"]] == ["quartz zero-order", "quartz compound"]
-    comp = spec["candidates"][1]
-    assert comp["thick_plate_um"] == 1000.0 and comp["design_nm"] == 780.0
-    tol = spec["tolerances"]
+    assert spec.wavelength.to_dict() == {"start_nm": 770.0, "stop_nm": 790.0, "step_nm": 5.0,
+                                         "count": 5}
+    assert [c.name for c in spec.candidates] == ["quartz zero-order", "quartz compound"]
+    comp = spec.candidates[1]
+    assert comp.thick_plate_um == 1000.0 and comp.design_nm == 780.0
+    tol = {k: v.to_dict() for k, v in spec.tolerances.items()}
     assert tol["thickness_um"] == {"kind": "normal", "sigma": 0.3}
     assert tol["clocking_deg"] == {"kind": "uniform", "half_width": 0.5}
     assert tol["temperature_c"] == {"kind": "range", "low": 15.0, "high": 35.0}
-    assert spec["run"]["samples"] == 2000 and spec["run"]["seed"] == 7
-    assert spec["goal"]["over"] == "band"
-    assert spec["base_dir"] == str(SPECS.resolve())
-    json.dumps(spec)  # stored in the grid as JSON
+    assert spec.run.samples == 2000 and spec.run.seed == 7
+    assert spec.goal.over == "band"
+    assert spec.base_dir == str(SPECS.resolve())
+    json.dumps(spec.to_dict())  # stored in the grid as JSON
 
 
 def test_units_are_converted():
@@ -72,10 +73,10 @@ def test_units_are_converted():
     raw["wavelength"] = {"start": "0.77um", "stop": "0.00079mm", "step": "5000pm"}
     raw["candidate"][1]["thick_plate"] = "1mm"
     spec = validate(raw, NAME)
-    assert spec["wavelength"]["start_nm"] == pytest.approx(770.0)
-    assert spec["wavelength"]["stop_nm"] == pytest.approx(790.0)
-    assert spec["wavelength"]["step_nm"] == pytest.approx(5.0)
-    assert spec["candidates"][1]["thick_plate_um"] == pytest.approx(1000.0)
+    assert spec.wavelength.start_nm == pytest.approx(770.0)
+    assert spec.wavelength.stop_nm == pytest.approx(790.0)
+    assert spec.wavelength.step_nm == pytest.approx(5.0)
+    assert spec.candidates[1].thick_plate_um == pytest.approx(1000.0)
 
 
 def test_tolerance_with_coverage_becomes_a_sigma():
@@ -84,9 +85,9 @@ def test_tolerance_with_coverage_becomes_a_sigma():
     raw = raw_spec()
     raw["tolerances"] = {"thickness_um": {"tolerance": 0.9}, "tilt_deg": {"tolerance": 1.0,
                                                                         "coverage": 2}}
-    tol = validate(raw, NAME)["tolerances"]
-    assert tol["thickness_um"]["sigma"] == pytest.approx(0.3)
-    assert tol["tilt_deg"]["sigma"] == pytest.approx(0.5)
+    tol = validate(raw, NAME).tolerances
+    assert tol["thickness_um"].sigma == pytest.approx(0.3)
+    assert tol["tilt_deg"].sigma == pytest.approx(0.5)
 
 
 # ----------------------------------------------------------------------------- mistakes
@@ -290,9 +291,10 @@ def test_any_valid_width_round_trips(sigma, half, angle_sigma, angle_half, key):
     raw = tomllib.loads(text)
     base["tolerances"] = raw["tolerances"]
     spec = validate(base, NAME)
-    assert spec["tolerances"][key] == {"kind": "normal", "sigma": sigma}
+    assert spec.tolerances[key].to_dict() == {"kind": "normal", "sigma": sigma}
     base["tolerances"] = tomllib.loads(_to_toml_tolerances(key, half, "uniform"))["tolerances"]
-    assert validate(base, NAME)["tolerances"][key] == {"kind": "uniform", "half_width": half}
+    assert validate(base, NAME).tolerances[key].to_dict() == {"kind": "uniform",
+                                                              "half_width": half}
     assert math.isfinite(sigma)
 
 
@@ -301,7 +303,7 @@ def test_any_ordered_range_round_trips(low, width):
     base = copy.deepcopy(_BASE)
     high = low + width
     base["tolerances"] = {"temperature_c": {"low": low, "high": high}}
-    assert validate(base, NAME)["tolerances"]["temperature_c"] == {
+    assert validate(base, NAME).tolerances["temperature_c"].to_dict() == {
         "kind": "range", "low": low, "high": high}
 
 

@@ -14,10 +14,10 @@ import difflib
 import math
 import tomllib
 import warnings
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from functools import cache
 from importlib import resources
-from collections.abc import Mapping
 from pathlib import Path
 from types import MappingProxyType
 

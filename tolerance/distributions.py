@@ -16,8 +16,6 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-import numpy as np
-
 from .errors import RetolError
 from .registry import Key, Registry
 
@@ -121,8 +119,9 @@ class Distribution:
             raise RetolError("scale", f"must be a finite number >= 0, got {factor!r}")
         if self.kind == "normal":
             lim = None if self.limit is None else self.limit * factor
-            return Distribution("normal", sigma=self.sigma * factor, limit=lim,
-                                coverage=self.coverage)
+            return Distribution(
+                "normal", sigma=self.sigma * factor, limit=lim, coverage=self.coverage
+            )
         if self.kind == "uniform":
             return Distribution("uniform", half_width=self.half_width * factor)
         c = 0.5 * (self.low + self.high)
@@ -155,19 +154,21 @@ class Distribution:
         return cls(**{k: (float(v) if k != "kind" else v) for k, v in d.items()})
 
     def describe(self, unit: str = "") -> str:
-        """A few words for reports: '±0.5 deg uniform', 'σ 0.2 um', ..."""
-        u = f" {unit}" if unit else ""
+        """In words, e.g. 'normal, σ = 0.3 µm' (``unit`` as printed after a number)."""
         if self.kind == "normal":
-            if self.limit is not None:
-                return f"±{_g(self.limit)}{u} at k = {_g(self.coverage)} (σ {_g(self.sigma)}{u})"
-            return f"σ {_g(self.sigma)}{u} (normal)"
+            extra = (
+                f" (±{_g(self.limit)}{unit} read as {_g(self.coverage)} σ)"
+                if self.limit is not None
+                else ""
+            )
+            return f"normal, σ = {_g(self.sigma)}{unit}{extra}"
         if self.kind == "uniform":
-            return f"±{_g(self.half_width)}{u} (uniform)"
-        return f"{_g(self.low)} to {_g(self.high)}{u} (uniform)"
+            return f"uniform, ±{_g(self.half_width)}{unit}"
+        return f"uniform from {_g(self.low)} to {_g(self.high)}{unit}"
 
 
 def _g(x: float) -> str:
-    return f"{x:.4g}"
+    return f"{x:.6g}"
 
 
 def _number(value, field: str, convert=None) -> float:
@@ -224,11 +225,15 @@ def parse(value, field: str, convert=None) -> Distribution:
         )
     if "coverage" in nums and "tolerance" not in nums:
         raise RetolError(
-            f"{field}.coverage", "only goes with tolerance", "e.g. { tolerance = 0.9, coverage = 3 }"
+            f"{field}.coverage",
+            "only goes with tolerance",
+            "e.g. { tolerance = 0.9, coverage = 3 }",
         )
     if has_range:
         if "low" not in nums or "high" not in nums:
-            raise RetolError(field, "a range needs both low and high", "e.g. { low = 15, high = 35 }")
+            raise RetolError(
+                field, "a range needs both low and high", "e.g. { low = 15, high = 35 }"
+            )
         if nums["low"] > nums["high"]:
             raise RetolError(
                 f"{field}.low", f"low {nums['low']:g} is above high {nums['high']:g}", "swap them"
@@ -236,7 +241,9 @@ def parse(value, field: str, convert=None) -> Distribution:
         return Distribution("range", low=nums["low"], high=nums["high"])
     k = kinds[0]
     if nums[k] < 0:
-        raise RetolError(f"{field}.{k}", f"must not be negative, got {nums[k]:g}", "give a width >= 0")
+        raise RetolError(
+            f"{field}.{k}", f"must not be negative, got {nums[k]:g}", "give a width >= 0"
+        )
     if k == "sigma":
         return Distribution("normal", sigma=nums["sigma"])
     if k == "uniform":
@@ -244,7 +251,9 @@ def parse(value, field: str, convert=None) -> Distribution:
     cov = nums.get("coverage", DEFAULT_COVERAGE)
     if cov <= 0:
         raise RetolError(f"{field}.coverage", "must be positive", "e.g. coverage = 3")
-    return Distribution("normal", sigma=nums["tolerance"] / cov, limit=nums["tolerance"], coverage=cov)
+    return Distribution(
+        "normal", sigma=nums["tolerance"] / cov, limit=nums["tolerance"], coverage=cov
+    )
 
 
 def from_drift(drift: dict) -> Distribution:
@@ -255,10 +264,12 @@ def from_drift(drift: dict) -> Distribution:
         return Distribution("normal", sigma=drift["sigma_nm"])
     if kind == "tolerance":
         return Distribution(
-            "normal", sigma=drift["sigma_nm"], limit=drift["tolerance_nm"], coverage=drift["coverage"]
+            "normal",
+            sigma=drift["sigma_nm"],
+            limit=drift["tolerance_nm"],
+            coverage=drift["coverage"],
         )
     if kind == "uniform":
         return Distribution("uniform", half_width=drift["half_width_nm"])
     lo, hi = drift["span_nm"]
     return Distribution("range", low=float(lo), high=float(hi))
-

@@ -17,16 +17,16 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
-from .version import __version__
 from .decision import rank
-from .metrics import METRICS
-from .tolerances import SHORT
 from .environment import (
     acceptance_half_angle,
     temperature_coefficient,
     temperature_error,
     tilt_error,
 )
+from .metrics import METRICS
+from .tolerances import SHORT
+from .version import __version__
 
 LASER_CAUTION = (
     "retol predicts polarization only. A change of polarization changes what reflects or "
@@ -35,6 +35,7 @@ LASER_CAUTION = (
     "ANSI Z136.1 as applies locally, your site's laser-safety rules, and your laser safety "
     "officer; wear the eyewear they specify when aligning."
 )
+
 
 @dataclass(frozen=True)
 class Var:
@@ -49,16 +50,25 @@ class Var:
     long_name: str
 
 
-_C, _W, _S, _Q = ("candidate",), ("candidate", "wavelength"), ("candidate", "sample"), ("candidate", "quantile")
+_C, _W, _S, _Q = (
+    ("candidate",),
+    ("candidate", "wavelength"),
+    ("candidate", "sample"),
+    ("candidate", "quantile"),
+)
 _CT = ("candidate", "tolerance_name")
 #: Every variable the grid may hold.  ``sample_*`` variables exist only with ``keep_samples``.
 SCHEMA: dict[str, Var] = {
-    "source_spectrum": Var(("wavelength",), "1", "relative spectral power density of the source (peak 1)"),
+    "source_spectrum": Var(
+        ("wavelength",), "1", "relative spectral power density of the source (peak 1)"
+    ),
     "source_weight": Var(("wavelength",), "1", "fraction of the source power in each grid cell"),
     "construction": Var(_C, "", "plate construction"),
     "design_wavelength": Var(_C, "nm", "design wavelength"),
     "target_waves": Var(_C, "waves", "target retardance beyond whole waves"),
-    "handedness": Var(_C, "1", "goal sense: +1 right (clockwise looking toward the source), -1 left"),
+    "handedness": Var(
+        _C, "1", "goal sense: +1 right (clockwise looking toward the source), -1 left"
+    ),
     "layer_material": Var(("candidate", "layer"), "", "layer material"),
     "layer_thickness": Var(("candidate", "layer"), "um", "layer thickness"),
     "layer_axis": Var(("candidate", "layer"), "deg", "layer fast-axis angle"),
@@ -76,8 +86,12 @@ SCHEMA: dict[str, Var] = {
         "1",
         "source-averaged normalised Stokes vector of each sample (|s| = degree of polarization)",
     ),
-    "spectral_axial_ratio": Var(_S, "1", "axial ratio b/a of the polarized part of the source-averaged output"),
-    "spectral_azimuth": Var(_S, "deg", "major-axis azimuth of the polarized part of the source-averaged output"),
+    "spectral_axial_ratio": Var(
+        _S, "1", "axial ratio b/a of the polarized part of the source-averaged output"
+    ),
+    "spectral_azimuth": Var(
+        _S, "deg", "major-axis azimuth of the polarized part of the source-averaged output"
+    ),
     "spectral_extinction": Var(
         _S,
         "dB",
@@ -88,10 +102,14 @@ SCHEMA: dict[str, Var] = {
         _C, "1", "error-free axial ratio of the polarized part of the source-averaged output"
     ),
     "nominal_spectral_azimuth": Var(
-        _C, "deg", "error-free major-axis azimuth of the polarized part of the source-averaged output"
+        _C,
+        "deg",
+        "error-free major-axis azimuth of the polarized part of the source-averaged output",
     ),
     "nominal_spectral_extinction": Var(
-        _C, "dB", "error-free extinction ratio of the source-averaged output through the goal analyzer"
+        _C,
+        "dB",
+        "error-free extinction ratio of the source-averaged output through the goal analyzer",
     ),
     "rank_yield": Var(
         _C,
@@ -101,7 +119,9 @@ SCHEMA: dict[str, Var] = {
     ),
     "spectral_dop": Var(_S, "1", "degree of polarization of the source-averaged output"),
     "pass_metric": Var(_S, "{mu}", "the {mlong} that the pass test uses"),
-    "design_stokes": Var(_S + ("stokes",), "1", "normalised output Stokes vector at the design wavelength"),
+    "design_stokes": Var(
+        _S + ("stokes",), "1", "normalised output Stokes vector at the design wavelength"
+    ),
     "nominal_worst": Var(_C, "{mu}", "error-free worst {mlong} in band"),
     "nominal_spectral_metric": Var(_C, "{mu}", "error-free source-weighted {mlong}"),
     "nominal_dop": Var(_C, "1", "degree of polarization of the error-free output over the source"),
@@ -120,7 +140,9 @@ SCHEMA: dict[str, Var] = {
     ),
     "dominant": Var(_C, "", "tolerance whose removal raises the yield most"),
     "retardance_error_temperature": Var(
-        ("candidate", "temperature"), "waves", "retardance change with temperature at the design wavelength"
+        ("candidate", "temperature"),
+        "waves",
+        "retardance change with temperature at the design wavelength",
     ),
     "retardance_error_tilt": Var(
         ("candidate", "tilt", "tilt_azimuth"),
@@ -132,7 +154,9 @@ SCHEMA: dict[str, Var] = {
         "deg",
         "largest angle of incidence keeping the retardance error within the limit at every azimuth",
     ),
-    "temperature_coefficient": Var(_C, "deg/K", "retardance change per kelvin at the design wavelength"),
+    "temperature_coefficient": Var(
+        _C, "deg/K", "retardance change per kelvin at the design wavelength"
+    ),
     "rank": Var(_C, "1", "rank of the candidate (1 = pick)"),
     "reason": Var(_C, "", "one-line reason for the rank"),
 }
@@ -144,7 +168,9 @@ KERNEL_VARS = {
     "metric": ("{mu}", "{mlong}"),
 }
 for _key, (_u, _long) in KERNEL_VARS.items():
-    SCHEMA[f"{_key}_quantile"] = Var(_Q + ("wavelength",), _u, f"quantiles over samples of the {_long}")
+    SCHEMA[f"{_key}_quantile"] = Var(
+        _Q + ("wavelength",), _u, f"quantiles over samples of the {_long}"
+    )
     SCHEMA[f"sample_{_key}"] = Var(_S + ("wavelength",), _u, f"per-sample {_long}")
 
 COORDS: dict[str, Var] = {
@@ -157,7 +183,9 @@ COORDS: dict[str, Var] = {
     "layer": Var(("layer",), "1", "layer index (light meets 0 first)"),
     "temperature": Var(("temperature",), "degC", "plate temperature"),
     "tilt": Var(("tilt",), "deg", "angle of incidence"),
-    "tilt_azimuth": Var(("tilt_azimuth",), "deg", "plane-of-incidence azimuth from the plate's fast axis"),
+    "tilt_azimuth": Var(
+        ("tilt_azimuth",), "deg", "plane-of-incidence azimuth from the plate's fast axis"
+    ),
 }
 CONVENTIONS = (
     "time dependence exp(i(kz - wt)); S3 > 0 = clockwise looking toward the "
@@ -175,7 +203,11 @@ def assemble(values: dict, coords: dict, attrs: dict, metric: str, var_attrs=Non
         return xr.DataArray(
             data,
             dims=var.dims,
-            attrs={"units": var.units.format(**fmt), "long_name": var.long_name.format(**fmt), **(extra or {})},
+            attrs={
+                "units": var.units.format(**fmt),
+                "long_name": var.long_name.format(**fmt),
+                **(extra or {}),
+            },
         )
 
     data = {k: da(SCHEMA[k], v, (var_attrs or {}).get(k)) for k, v in values.items()}
@@ -221,13 +253,19 @@ def _nominal_values(cases, results) -> dict:
         "nominal_spectral_axial_ratio": e_n["axial_ratio"],
         "nominal_spectral_azimuth": e_n["azimuth_deg"],
         "nominal_spectral_extinction": np.array(
-            [_one_metric(r.nominal.spec_stokes, c.goal, "extinction_db") for r, c in zip(results, cases, strict=True)]
+            [
+                _one_metric(r.nominal.spec_stokes, c.goal, "extinction_db")
+                for r, c in zip(results, cases, strict=True)
+            ]
         ),
         "nominal_worst": np.array([r.nominal.worst for r in results]),
         "nominal_spectral_metric": np.array([r.nominal_spectral_metric for r in results]),
         "nominal_dop": np.array([r.nominal_dop for r in results]),
         "nominal_spectral_fidelity": np.array(
-            [_one_metric(r.nominal.spec_stokes, c.goal, "fidelity") for r, c in zip(results, cases, strict=True)]
+            [
+                _one_metric(r.nominal.spec_stokes, c.goal, "fidelity")
+                for r, c in zip(results, cases, strict=True)
+            ]
         ),
     }
 
@@ -267,7 +305,10 @@ def _sample_values(cases, results, qs) -> dict:
         "spectral_axial_ratio": e_s["axial_ratio"],
         "spectral_azimuth": e_s["azimuth_deg"],
         "spectral_extinction": np.stack(
-            [spectral_metric(r.spec_stokes, c.goal, "extinction_db") for r, c in zip(results, cases, strict=True)]
+            [
+                spectral_metric(r.spec_stokes, c.goal, "extinction_db")
+                for r, c in zip(results, cases, strict=True)
+            ]
         ),
         "spectral_dop": stack("dop"),
         "pass_metric": stack("pass_metric"),
@@ -288,9 +329,9 @@ def _yield_values(results, tol_names) -> dict:
     C = len(results)
 
     def sens(attr):
-        return np.array([[getattr(r, attr).get(t, np.nan) for t in tol_names] for r in results]).reshape(
-            C, len(tol_names)
-        )
+        return np.array(
+            [[getattr(r, attr).get(t, np.nan) for t in tol_names] for r in results]
+        ).reshape(C, len(tol_names))
 
     return {
         "rank_yield": np.array([r.rank_yield for r in results]),
@@ -307,7 +348,9 @@ def _environment_values(study, cases, temps, tilts, azs) -> dict:
     env = study.environment
     limit = study.goal.acceptance_limit_waves
     return {
-        "retardance_error_temperature": np.stack([temperature_error(c.plate, temps) for c in cases]),
+        "retardance_error_temperature": np.stack(
+            [temperature_error(c.plate, temps) for c in cases]
+        ),
         "retardance_error_tilt": np.stack([tilt_error(c.plate, tilts, azs) for c in cases]),
         "acceptance_half_angle": np.array([acceptance_half_angle(c.plate, limit) for c in cases]),
         "temperature_coefficient": np.array(

@@ -39,6 +39,7 @@ METRIC_EXTINCTION = CODES["extinction_db"]
 
 EXTINCTION_FLOOR = 1e-15  # 150 dB cap, as polarization.EXTINCTION_CAP_DB
 
+
 class WavelengthOptics(NamedTuple):
     """Per wavelength: k0 = 2π/λ [1/µm] (W,) and per layer n_o², n_e², (n_e/n_o)², Δn (W, L)."""
 

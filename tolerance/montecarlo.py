@@ -385,13 +385,19 @@ class Engine:
         r = study.run
         n = samples if samples is not None else r.samples
         if isinstance(n, bool) or not isinstance(n, int | np.integer) or n < 1:
-            raise RetolError("--samples", f"must be a whole number >= 1, got {n!r}", "e.g. --samples 20000")
+            raise RetolError(
+                "--samples", f"must be a whole number >= 1, got {n!r}", "e.g. --samples 20000"
+            )
         seed = seed if seed is not None else r.seed
         if isinstance(seed, bool) or not isinstance(seed, int | np.integer) or seed < 0:
-            raise RetolError("--seed", f"must be a whole number >= 0, got {seed!r}", "e.g. --seed 7")
+            raise RetolError(
+                "--seed", f"must be a whole number >= 0, got {seed!r}", "e.g. --seed 7"
+            )
         chunk = chunk_size if chunk_size is not None else (r.chunk_size or DEFAULT_CHUNK)
         if isinstance(chunk, bool) or not isinstance(chunk, int | np.integer) or chunk < 1:
-            raise RetolError("--chunk-size", "must be a whole number >= 1", "e.g. --chunk-size 16384")
+            raise RetolError(
+                "--chunk-size", "must be a whole number >= 1", "e.g. --chunk-size 16384"
+            )
         self.study = study
         self.samples = int(n)
         self.seed = int(seed)
@@ -428,7 +434,9 @@ class Engine:
         tol = dict(self.study.tolerances_for(cand) if tolerances is None else tolerances)
         for k, f in (scale or {}).items():
             if k not in tol:
-                raise RetolError(k, "is not a tolerance of this candidate", f"known: {', '.join(tol)}")
+                raise RetolError(
+                    k, "is not a tolerance of this candidate", f"known: {', '.join(tol)}"
+                )
             tol[k] = tol[k].scaled(f)
         w_design = int(np.argmin(np.abs(self.grid - plate.design_nm)))
         goal = self.study.goal
@@ -499,8 +507,17 @@ class Engine:
         n_blocks = (n + sampler.BLOCK - 1) // sampler.BLOCK
         W = self.grid.size
         if acc is not None:
-            return Statistics(do_hist, acc.lo, acc.inv_width, acc.hist, acc.vmin, acc.vmax,
-                              np.zeros((n_blocks, W, 2)), sampler.BLOCK, ret_shift)
+            return Statistics(
+                do_hist,
+                acc.lo,
+                acc.inv_width,
+                acc.hist,
+                acc.vmin,
+                acc.vmax,
+                np.zeros((n_blocks, W, 2)),
+                sampler.BLOCK,
+                ret_shift,
+            )
         import numba
 
         T = numba.get_num_threads()
@@ -520,7 +537,9 @@ class Engine:
         """Error-free results through the same kernel arithmetic."""
         inputs, extra = sample_inputs(case, self.study, self.draws, 0, 1, active=())
         W = self.grid.size
-        worst, spec_st, des_st = self._call(case, inputs, extra, self._stats(None, 1, False, np.zeros(W)), 1)
+        worst, spec_st, des_st = self._call(
+            case, inputs, extra, self._stats(None, 1, False, np.zeros(W)), 1
+        )
         optics = self.optics(case.plate)
         one = first_sample(inputs)
         values = np.empty((N_VAR, W))
@@ -543,7 +562,9 @@ class Engine:
         ret_shift = np.zeros(self.grid.size)
         for start, stop in _chunks(n, self.chunk):
             inputs, extra = sample_inputs(case, self.study, self.draws, start, stop, active=active)
-            w, s, _ = self._call(case, inputs, extra, self._stats(None, stop - start, False, ret_shift), stop - start)
+            w, s, _ = self._call(
+                case, inputs, extra, self._stats(None, stop - start, False, ret_shift), stop - start
+            )
             worst[start:stop] = w
             sst[start:stop] = s
         return worst, sst
@@ -571,7 +592,14 @@ class Engine:
         p_stop = min(n, PILOT)
         pil_inputs, pil_extra = sample_inputs(case, self.study, self.draws, 0, p_stop)
         pil_kept = np.zeros((p_stop, N_VAR, W), dtype=np.float32)
-        self._call(case, pil_inputs, pil_extra, self._stats(None, p_stop, True, ret_shift), p_stop, pil_kept)
+        self._call(
+            case,
+            pil_inputs,
+            pil_extra,
+            self._stats(None, p_stop, True, ret_shift),
+            p_stop,
+            pil_kept,
+        )
         bins = histogram_bins(W)
         lo, iw = _ranges(pil_kept, nom.values, bins)
         acc = Accumulator(n, W, lo, iw, bins, numba.get_num_threads(), keep)
@@ -590,7 +618,9 @@ class Engine:
         return acc
 
     def sensitivity_samples(self) -> int:
-        return min(self.samples, int(self.study.run.sensitivity_samples or DEFAULT_SENSITIVITY_SAMPLES))
+        return min(
+            self.samples, int(self.study.run.sensitivity_samples or DEFAULT_SENSITIVITY_SAMPLES)
+        )
 
     def _sensitivity(self, case: Case, nom: Nominal, acc: Accumulator, progress):
         """Yield with each tolerance alone, and with all but it, on the same draws."""
@@ -606,7 +636,9 @@ class Engine:
         for name in names:
             for mode in ("alone", "without"):
                 # a fixed value (a range with low == high) is a condition, not a tolerance
-                subset = ([name] if mode == "alone" else [k for k in active if k != name]) + list(case.fixed)
+                subset = ([name] if mode == "alone" else [k for k in active if k != name]) + list(
+                    case.fixed
+                )
                 if name not in active:
                     y = nominal_pass if mode == "alone" else full
                 elif mode == "alone" and len(active) == 1:
@@ -627,8 +659,17 @@ def tolerance_names(cases) -> tuple[str, ...]:
     return tuple(k for k in SHORT if k in act)
 
 
-def _finish(eng: Engine, case: Case, acc: Accumulator, nom: Nominal, alone, without, yield_sens,
-            nominal_pass, n_sens) -> CandidateResult:
+def _finish(
+    eng: Engine,
+    case: Case,
+    acc: Accumulator,
+    nom: Nominal,
+    alone,
+    without,
+    yield_sens,
+    nominal_pass,
+    n_sens,
+) -> CandidateResult:
     goal = eng.study.goal
     conf = eng.study.run.confidence
     hist = acc.hist.sum(axis=0)
@@ -674,7 +715,9 @@ def _finish(eng: Engine, case: Case, acc: Accumulator, nom: Nominal, alone, with
         rank_yield_low=rank_lo,
         rank_yield_high=rank_hi,
         nominal=nom,
-        nominal_spectral_metric=float(spectral_metric(nom.spec_stokes[None, :], case.goal, goal.metric)[0]),
+        nominal_spectral_metric=float(
+            spectral_metric(nom.spec_stokes[None, :], case.goal, goal.metric)[0]
+        ),
         nominal_dop=min(1.0, nom_dop),
         sens_alone=MappingProxyType(alone),
         sens_without=MappingProxyType(without),
@@ -720,8 +763,11 @@ def run(study: Study, samples=None, seed=None, chunk_size=None, progress=None, k
         The results grid; see :mod:`tolerance.grid`.
     """
     if not isinstance(study, Study):
-        raise RetolError("study", f"must be a Study from load_spec, got {type(study).__name__}",
-                         "call tolerance.load_spec(path) first")
+        raise RetolError(
+            "study",
+            f"must be a Study from load_spec, got {type(study).__name__}",
+            "call tolerance.load_spec(path) first",
+        )
     eng = Engine(study, samples, seed, chunk_size)
     keep = study.run.keep_samples if keep_samples is None else bool(keep_samples)
     n, W = eng.samples, eng.grid.size

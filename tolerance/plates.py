@@ -13,8 +13,8 @@ import numpy as np
 
 from .dispersion import Material, birefringence, get_material
 from .errors import RetolError
-from .registry import Key, Registry
 from .polarization import retarder_jones
+from .registry import Key, Registry
 from .retardance import layer_retardance
 
 
@@ -294,6 +294,7 @@ def design_plate(
     17.49
     """
     entry = CONSTRUCTIONS.lookup(construction, "construction")
+    keys = {k: v for k, v in keys.items() if v is not None}  # None means "not given"
     known = tuple(entry.extra["params"].values())
     for k in keys:
         if k not in known:

@@ -57,10 +57,10 @@ class Registry(Mapping):
     ...     return width
     >>> shapes["box"].payload(3)
     3
-    >>> shapes.lookup("bx", "[source].shape")
+    >>> shapes.lookup("bx", "[source].shape")  # doctest: +ELLIPSIS
     Traceback (most recent call last):
     ...
-    tolerance.errors.RetolError: [source].shape: unknown shape 'bx' (did you mean 'box'?)
+    tolerance.errors.RetolError: [source].shape: unknown shape 'bx' (did you mean 'box'? ...)
     """
 
     def __init__(self, what: str):
@@ -93,7 +93,7 @@ class Registry(Mapping):
         return len(self._entries)
 
     def lookup(self, name, field: str) -> Entry:
-        """The entry called ``name``, or a :class:`RetolError` on ``field`` naming the known ones."""
+        """The entry called ``name``, or a :class:`RetolError` on ``field`` naming the others."""
         if isinstance(name, str) and name in self._entries:
             return self._entries[name]
         if not isinstance(name, str):
@@ -101,8 +101,10 @@ class Registry(Mapping):
                 field, f"must be a name, got {name!r}", f"use one of {', '.join(self)}"
             )
         close = difflib.get_close_matches(name, list(self), n=1)
-        fix = f"did you mean {close[0]!r}?" if close else f"use one of {', '.join(self)}"
-        raise RetolError(field, f"unknown {self.what} {name!r}", fix)
+        hint = f"did you mean {close[0]!r}? " if close else ""
+        raise RetolError(
+            field, f"unknown {self.what} {name!r}", f"{hint}use one of {', '.join(self)}"
+        )
 
     def table(self) -> list[tuple[str, str, str]]:
         """(name, keys with units, help) rows, for README tables and ``--help`` texts."""

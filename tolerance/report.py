@@ -561,19 +561,14 @@ _TOL_WORDS = {
 
 def _distribution_words(d, key: str) -> str:
     """A tolerance distribution in words, e.g. 'normal, σ = 0.3 µm'."""
-    if not isinstance(d, dict) or "kind" not in d:
+    from .distributions import Distribution
+
+    try:
+        dist = Distribution.from_dict(d)
+    except (TypeError, ValueError, AttributeError):
         return _describe(d)
     unit = {"um": " µm", "deg": "°", "_c": " °C"}
-    u = next((v for k, v in unit.items() if key.endswith(k)), "")
-    k = d["kind"]
-    if k == "normal":
-        extra = f" (±{_s(d['limit'])}{u} read as {_s(d['coverage'])} σ)" if "limit" in d else ""
-        return f"normal, σ = {_s(d['sigma'])}{u}{extra}"
-    if k == "uniform":
-        return f"uniform, ±{_s(d['half_width'])}{u}"
-    if k == "range":
-        return f"uniform from {_s(d['low'])} to {_s(d['high'])}{u}"
-    return _describe(d)
+    return dist.describe(next((v for k, v in unit.items() if key.endswith(k)), ""))
 
 
 def assumptions(grid) -> list[str]:

@@ -61,21 +61,3 @@ def standard_draws(seed: int, name: str, index: int, start: int, stop: int):
         z[a:e] = zb[a - lo : e - lo]
         u[a:e] = ub[a - lo : e - lo]
     return z, u
-
-
-def scaled(dist: dict | None, z, u, center: float = 0.0):
-    """Values of a normalised distribution (see :mod:`tolerance.spec`) from standard draws.
-
-    ``normal``: center + σ·z; ``uniform``: center + h·(2u − 1); ``range``: low + (high − low)·u
-    (absolute, ``center`` ignored).  None gives ``center`` exactly.
-    """
-    if dist is None:
-        return np.full_like(z, center)
-    k = dist["kind"]
-    if k == "normal":
-        return center + dist["sigma"] * z
-    if k == "uniform":
-        return center + dist["half_width"] * (2.0 * u - 1.0)
-    if k == "range":
-        return dist["low"] + (dist["high"] - dist["low"]) * u
-    raise ValueError(f"unknown distribution kind {k!r}")  # pragma: no cover

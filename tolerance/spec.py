@@ -123,7 +123,9 @@ class _Ctx:
         """A string choice (refuses lists, tables, dates and numbers)."""
         v = d.get(key, default)
         if not isinstance(v, str):
-            raise self.err(f"{where}{key}", f"must be a name, got {v!r}", f"use one of {', '.join(choices)}")
+            raise self.err(
+                f"{where}{key}", f"must be a name, got {v!r}", f"use one of {', '.join(choices)}"
+            )
         if v not in choices:
             close = difflib.get_close_matches(v, list(choices), n=1)
             fix = f"did you mean {close[0]!r}?" if close else f"use one of {', '.join(choices)}"
@@ -216,7 +218,9 @@ def _layers(ctx: _Ctx, layers, where: str) -> tuple[LayerSpec, ...]:
         if not th > 0:
             raise ctx.err(f"{w}thickness", "must be positive", 'e.g. "17.5um"')
         if th > 1e6:
-            raise ctx.err(f"{w}thickness", f"{th:g} um is over a metre", "give the thickness in um or mm")
+            raise ctx.err(
+                f"{w}thickness", f"{th:g} um is over a metre", "give the thickness in um or mm"
+            )
         axis = float(ctx.number(la, "axis_deg", w, default=0.0))
         out.append(LayerSpec(mat, th, axis))
     return tuple(out)
@@ -226,20 +230,28 @@ def _construction_params(ctx: _Ctx, c: dict, cons: str, where: str) -> dict:
     """The construction's own keys, read and checked."""
     out: dict = {}
     if cons == "multi-order":
-        out["order"] = ctx.number(c, "order", where, required=True, minimum=0, integer=True, maximum=100000)
+        out["order"] = ctx.number(
+            c, "order", where, required=True, minimum=0, integer=True, maximum=100000
+        )
     if cons == "compound":
         if "thick_plate" not in c:
-            raise ctx.err(f"{where}thick_plate", "a compound plate needs it", 'add thick_plate = "1000um"')
+            raise ctx.err(
+                f"{where}thick_plate", "a compound plate needs it", 'add thick_plate = "1000um"'
+            )
         t = length_um(c["thick_plate"], f"{ctx.path}: {where}thick_plate")
         if not 0 < t <= 1e6:
-            raise ctx.err(f"{where}thick_plate", "must be positive and below a metre", 'e.g. "1000um"')
+            raise ctx.err(
+                f"{where}thick_plate", "must be positive and below a metre", 'e.g. "1000um"'
+            )
         out["thick_plate_um"] = t
     if cons == "achromatic":
         out["partner"] = ctx.text(c, "partner", where, '"mgf2"')
         if "match" in c:
             m = c["match"]
             if not isinstance(m, list) or len(m) != 2:
-                raise ctx.err(f"{where}match", "must list two wavelengths", 'e.g. match = ["450nm", "650nm"]')
+                raise ctx.err(
+                    f"{where}match", "must list two wavelengths", 'e.g. match = ["450nm", "650nm"]'
+                )
             out["match_nm"] = tuple(wavelength_nm(x, f"{ctx.path}: {where}match") for x in m)
     if cons == "film" and "retardance" in c:
         r = interval_nm(c["retardance"], f"{ctx.path}: {where}retardance")
@@ -266,13 +278,19 @@ def _candidate(ctx: _Ctx, c, i: int, default_design) -> Candidate:
     own = CONSTRUCTIONS[cons].key_names
     for k in c:
         if k in CONSTRUCTION_KEYS and k not in own:
-            raise ctx.err(f"{where}{k}", f"does not apply to a {cons} plate", "remove it, or change construction")
+            raise ctx.err(
+                f"{where}{k}",
+                f"does not apply to a {cons} plate",
+                "remove it, or change construction",
+            )
     material = None
     if cons != "stack":
         material = ctx.text(c, "material", where, '"quartz"')
     elif "material" in c:
         material = ctx.text(c, "material", where, '"quartz"')
-    waves = float(ctx.number(c, "waves", where, default=0.25, minimum=0, strict_min=True, maximum=1e5))
+    waves = float(
+        ctx.number(c, "waves", where, default=0.25, minimum=0, strict_min=True, maximum=1e5)
+    )
     if "design" in c:
         design = ctx.wl(c, "design", where)
     elif cons != "stack" and default_design is None:
@@ -319,7 +337,9 @@ def _wavelength(ctx: _Ctx, raw: dict) -> WavelengthGrid:
         raise ctx.err("[wavelength].stop", f"{stop:g} nm is below start {start:g} nm", "swap them")
     n = int(math.floor((stop - start) / step + 1e-9)) + 1
     if n > MAX_WAVELENGTHS:
-        raise ctx.err("[wavelength].step", f"gives {n} wavelengths", f"use at most {MAX_WAVELENGTHS}")
+        raise ctx.err(
+            "[wavelength].step", f"gives {n} wavelengths", f"use at most {MAX_WAVELENGTHS}"
+        )
     return WavelengthGrid(start, stop, step, n)
 
 
@@ -330,10 +350,14 @@ def _source(ctx: _Ctx, raw: dict, grid: WavelengthGrid, base_dir) -> Source:
     try:
         json.dumps(src)
     except TypeError:
-        raise ctx.err("[source]", "holds a value that is not a number, string or table (a date?)",
-                      "write wavelengths as strings such as \"780nm\"") from None
-    spectrum = build_spectrum(src, grid.values(), Path(base_dir) if base_dir else None,
-                              field=f"{ctx.path}: [source]")
+        raise ctx.err(
+            "[source]",
+            "holds a value that is not a number, string or table (a date?)",
+            'write wavelengths as strings such as "780nm"',
+        ) from None
+    spectrum = build_spectrum(
+        src, grid.values(), Path(base_dir) if base_dir else None, field=f"{ctx.path}: [source]"
+    )
     drift = distributions.from_drift(spectrum.drift) if spectrum.drift else None
     return Source(table=_freeze(src), spectrum=spectrum, drift=drift)
 
@@ -344,7 +368,11 @@ def _goal(ctx: _Ctx, raw: dict) -> Goal:
     ctx.check_keys(g, GOAL_KEYS, "[goal].")
     state = ctx.name(g, "state", "[goal].", GOAL_STATES, default="circular")
     metric = ctx.name(
-        g, "metric", "[goal].", list(metrics), default="axial_ratio" if state == "circular" else "extinction_db"
+        g,
+        "metric",
+        "[goal].",
+        list(metrics),
+        default="axial_ratio" if state == "circular" else "extinction_db",
     )
     entry = metrics[metric]
     if state not in entry.extra["states"]:
@@ -364,7 +392,11 @@ def _goal(ctx: _Ctx, raw: dict) -> Goal:
         )
     hand = g.get("handedness")
     if hand is not None and hand not in ("right", "left"):
-        raise ctx.err("[goal].handedness", f"unknown {hand!r}", "use right (clockwise looking toward the source) or left")
+        raise ctx.err(
+            "[goal].handedness",
+            f"unknown {hand!r}",
+            "use right (clockwise looking toward the source) or left",
+        )
     return Goal(
         state=state,
         metric=metric,
@@ -373,7 +405,9 @@ def _goal(ctx: _Ctx, raw: dict) -> Goal:
         azimuth_deg=float(ctx.number(g, "azimuth_deg", "[goal].", default=0.0)),
         handedness=hand,
         acceptance_limit_waves=float(
-            ctx.number(g, "acceptance_limit_waves", "[goal].", default=0.01, minimum=0, strict_min=True)
+            ctx.number(
+                g, "acceptance_limit_waves", "[goal].", default=0.01, minimum=0, strict_min=True
+            )
         ),
     )
 
@@ -386,15 +420,25 @@ def _environment(ctx: _Ctx, raw: dict) -> Environment:
     if (
         not isinstance(tr, list)
         or len(tr) != 2
-        or not all(isinstance(x, int | float) and not isinstance(x, bool) and math.isfinite(x) for x in tr)
+        or not all(
+            isinstance(x, int | float) and not isinstance(x, bool) and math.isfinite(x) for x in tr
+        )
         or tr[0] >= tr[1]
     ):
-        raise ctx.err("[environment].temperature_range", "must be [low, high] finite with low < high", "e.g. [-10, 50]")
+        raise ctx.err(
+            "[environment].temperature_range",
+            "must be [low, high] finite with low < high",
+            "e.g. [-10, 50]",
+        )
     if tr[0] < -273.15:
         raise ctx.err("[environment].temperature_range", "is below absolute zero", "give deg C")
-    tilt = float(ctx.number(env, "tilt_max_deg", "[environment].", default=20.0, minimum=0, strict_min=True))
+    tilt = float(
+        ctx.number(env, "tilt_max_deg", "[environment].", default=20.0, minimum=0, strict_min=True)
+    )
     if tilt >= 90:
-        raise ctx.err("[environment].tilt_max_deg", "must be below 90 deg", "e.g. tilt_max_deg = 15")
+        raise ctx.err(
+            "[environment].tilt_max_deg", "must be below 90 deg", "e.g. tilt_max_deg = 15"
+        )
     return Environment(t_nom, (float(tr[0]), float(tr[1])), tilt)
 
 
@@ -406,9 +450,13 @@ def _run(ctx: _Ctx, raw: dict) -> RunSettings:
     if (
         not isinstance(q, list)
         or not q
-        or not all(isinstance(x, int | float) and not isinstance(x, bool) and 0 <= x <= 1 for x in q)
+        or not all(
+            isinstance(x, int | float) and not isinstance(x, bool) and 0 <= x <= 1 for x in q
+        )
     ):
-        raise ctx.err("[run].quantiles", "must be a list of numbers in [0, 1]", "e.g. [0.05, 0.5, 0.95]")
+        raise ctx.err(
+            "[run].quantiles", "must be a list of numbers in [0, 1]", "e.g. [0.05, 0.5, 0.95]"
+        )
     conf = ctx.number(r, "confidence", "[run].", default=0.95)
     if not 0 < conf < 1:
         raise ctx.err("[run].confidence", "must lie between 0 and 1", "e.g. 0.95")
@@ -418,7 +466,9 @@ def _run(ctx: _Ctx, raw: dict) -> RunSettings:
         chunk_size=ctx.number(r, "chunk_size", "[run].", default=None, integer=True, minimum=1),
         quantiles=tuple(sorted(float(x) for x in q)),
         confidence=float(conf),
-        sensitivity_samples=ctx.number(r, "sensitivity_samples", "[run].", default=None, integer=True, minimum=1),
+        sensitivity_samples=ctx.number(
+            r, "sensitivity_samples", "[run].", default=None, integer=True, minimum=1
+        ),
         keep_samples=ctx.flag(r, "keep_samples", "[run]."),
     )
 
@@ -427,8 +477,16 @@ def _report(ctx: _Ctx, raw: dict) -> ReportSettings:
     rep = ctx.table(raw, "report")
     ctx.check_keys(rep, REPORT_KEYS, "[report].")
     formats = rep.get("formats", ["png"])
-    if not isinstance(formats, list) or not formats or any(f not in ("png", "svg", "pdf") for f in formats):
-        raise ctx.err("[report].formats", f"must list png, svg or pdf, got {formats!r}", 'e.g. formats = ["png", "svg"]')
+    if (
+        not isinstance(formats, list)
+        or not formats
+        or any(f not in ("png", "svg", "pdf") for f in formats)
+    ):
+        raise ctx.err(
+            "[report].formats",
+            f"must list png, svg or pdf, got {formats!r}",
+            'e.g. formats = ["png", "svg"]',
+        )
     return ReportSettings(tuple(formats))
 
 
@@ -472,7 +530,11 @@ def validate(raw: dict, path: str = "<spec>", base_dir=None, source_text=None) -
     names = [c.name for c in candidates]
     dup = {x for x in names if names.count(x) > 1}
     if dup:
-        raise ctx.err("[[candidate]].name", f"duplicated name {sorted(dup)[0]!r}", "give each candidate its own name")
+        raise ctx.err(
+            "[[candidate]].name",
+            f"duplicated name {sorted(dup)[0]!r}",
+            "give each candidate its own name",
+        )
     study = Study(
         title=title,
         wavelength=grid,
@@ -504,7 +566,9 @@ def _check_ranges(study: Study) -> None:
     for c in study.candidates:
         for la in c.plate.layers:
             try:
-                check_range(la.material, grid, field=f"{fname}: [wavelength] for candidate {c.name!r}")
+                check_range(
+                    la.material, grid, field=f"{fname}: [wavelength] for candidate {c.name!r}"
+                )
                 if spectrum.lines_nm.size:
                     lines = np.asarray(spectrum.lines_nm, dtype=float)
                     span = (spectrum.drift or {}).get("span_nm")
@@ -512,7 +576,9 @@ def _check_ranges(study: Study) -> None:
                         lines = np.concatenate([lines + float(span[0]), lines + float(span[1])])
                     check_range(la.material, lines, field=f"{fname}: [source] (with its drift)")
             except RetolError as exc:
-                raise RetolError(exc.field, exc.problem, "choose a [wavelength] grid and source inside it") from None
+                raise RetolError(
+                    exc.field, exc.problem, "choose a [wavelength] grid and source inside it"
+                ) from None
 
 
 def load_spec(path) -> Study:
@@ -563,13 +629,22 @@ def _raw_candidate(c: dict) -> dict:
     out = {k: c[k] for k in ("name", "construction", "material", "waves", "axis_deg") if k in c}
     if c.get("design_nm") is not None:
         out["design"] = c["design_nm"]
-    for norm, key in (("order", "order"), ("thick_plate_um", "thick_plate"), ("partner", "partner"),
-                      ("match_nm", "match"), ("retardance_nm", "retardance")):
+    for norm, key in (
+        ("order", "order"),
+        ("thick_plate_um", "thick_plate"),
+        ("partner", "partner"),
+        ("match_nm", "match"),
+        ("retardance_nm", "retardance"),
+    ):
         if norm in c:
             out[key] = c[norm]
     if "layers" in c:
         out["layers"] = [
-            {"material": la["material"], "thickness": la["thickness_um"], "axis_deg": la["axis_deg"]}
+            {
+                "material": la["material"],
+                "thickness": la["thickness_um"],
+                "axis_deg": la["axis_deg"],
+            }
             for la in c["layers"]
         ]
     if "tolerances" in c:

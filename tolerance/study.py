@@ -119,7 +119,11 @@ class LayerSpec:
     axis_deg: float = 0.0
 
     def to_dict(self) -> dict:
-        return {"material": self.material, "thickness_um": self.thickness_um, "axis_deg": self.axis_deg}
+        return {
+            "material": self.material,
+            "thickness_um": self.thickness_um,
+            "axis_deg": self.axis_deg,
+        }
 
 
 @dataclass(frozen=True)
@@ -260,7 +264,9 @@ class Study:
             if c.name == name:
                 return c
         raise RetolError(
-            "candidate", f"no candidate {name!r}", f"known: {', '.join(c.name for c in self.candidates)}"
+            "candidate",
+            f"no candidate {name!r}",
+            f"known: {', '.join(c.name for c in self.candidates)}",
         )
 
     @property

@@ -15,28 +15,58 @@ from .registry import Registry
 
 TOLERANCES = Registry("tolerance")
 TOLERANCES.add(
-    "thickness_um", "each plate's thickness, independently", unit="um", short="thickness",
-    per_layer=True, max_reach=None, unit_kind="length",
+    "thickness_um",
+    "each plate's thickness, independently",
+    unit="um",
+    short="thickness",
+    per_layer=True,
+    max_reach=None,
+    unit_kind="length",
 )
 TOLERANCES.add(
-    "clocking_deg", "the whole plate's fast-axis angle in its mount", unit="deg",
-    short="clocking", per_layer=False, max_reach=45.0, unit_kind=None,
+    "clocking_deg",
+    "the whole plate's fast-axis angle in its mount",
+    unit="deg",
+    short="clocking",
+    per_layer=False,
+    max_reach=45.0,
+    unit_kind=None,
 )
 TOLERANCES.add(
-    "crossing_deg", "each later plate's axis relative to the first", unit="deg",
-    short="crossing", per_layer=True, max_reach=45.0, unit_kind=None,
+    "crossing_deg",
+    "each later plate's axis relative to the first",
+    unit="deg",
+    short="crossing",
+    per_layer=True,
+    max_reach=45.0,
+    unit_kind=None,
 )
 TOLERANCES.add(
-    "tilt_deg", "angle of incidence; plane-of-incidence azimuth uniform", unit="deg",
-    short="tilt", per_layer=False, max_reach=89.0, unit_kind=None,
+    "tilt_deg",
+    "angle of incidence; plane-of-incidence azimuth uniform",
+    unit="deg",
+    short="tilt",
+    per_layer=False,
+    max_reach=89.0,
+    unit_kind=None,
 )
 TOLERANCES.add(
-    "temperature_c", "plate temperature", unit="degC", short="temperature", per_layer=False,
-    max_reach=None, unit_kind=None,
+    "temperature_c",
+    "plate temperature",
+    unit="degC",
+    short="temperature",
+    per_layer=False,
+    max_reach=None,
+    unit_kind=None,
 )
 TOLERANCES.add(
-    "input_azimuth_deg", "azimuth of the linear input", unit="deg", short="input_azimuth",
-    per_layer=False, max_reach=45.0, unit_kind=None,
+    "input_azimuth_deg",
+    "azimuth of the linear input",
+    unit="deg",
+    short="input_azimuth",
+    per_layer=False,
+    max_reach=45.0,
+    unit_kind=None,
 )
 #: The laser's centre drift is given in ``[source]`` but acts as a tolerance.
 DRIFT = "drift"
@@ -56,7 +86,9 @@ def check_bounds(key: str, dist: Distribution, field: str) -> Distribution:
             "tilts are a few degrees; give a smaller width",
         )
     if reach is not None and key != "tilt_deg" and dist.reach > reach:
-        raise RetolError(field, f"reaches more than {reach:g} deg", "angle errors are small; check the unit")
+        raise RetolError(
+            field, f"reaches more than {reach:g} deg", "angle errors are small; check the unit"
+        )
     if key == "temperature_c" and dist.kind == "range" and dist.low < -273.15:
         raise RetolError(f"{field}.low", "is below absolute zero", "give a temperature in deg C")
     return dist

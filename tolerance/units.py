@@ -6,7 +6,6 @@ A bare number is read in the API unit (nm for wavelengths, um for lengths).
 from __future__ import annotations
 
 import math
-
 import re
 
 from .errors import RetolError

@@ -88,15 +88,11 @@ def demo(name, list_, spec_only, out, force, samples, formats, as_json):
             ) from None
         click.echo(f"wrote {target}; run it with: retol run {target}")
         return
-    from ..spec import validate
+    from ..spec import loads
     from .run import _check_formats, execute
 
     _check_formats(formats)
-    import tomllib
-
-    spec = validate(tomllib.loads(text), f"{name}.toml")
-    spec["base_dir"] = str(Path(str(resources.files("tolerance.examples"))))
-    spec["source_text"] = text
+    spec = loads(text, f"{name}.toml", base_dir=Path(str(resources.files("tolerance.examples"))))
     # the default example writes to reports/demo/, the others to reports/<name>/
     folder = Path(out) if out else Path("reports") / ("demo" if name == DEFAULT else name)
     argv = ["retol", "demo", name] + (["--samples", str(samples)] if samples else [])

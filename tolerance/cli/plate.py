@@ -79,7 +79,7 @@ def build_plate(
     retardance_nm,
 ):
     from ..errors import RetolError
-    from ..plates import design_plate
+    from ..plates import CONSTRUCTIONS, design_plate
 
     given = {
         "--order": order,
@@ -88,11 +88,9 @@ def build_plate(
         "--match": match or None,
         "--retardance": retardance_nm,
     }
+    # the options of a construction are its registry keys, written as options
     applies = {
-        "multi-order": ("--order",),
-        "compound": ("--thick-plate",),
-        "achromatic": ("--partner", "--match"),
-        "film": ("--retardance",),
+        n: tuple("--" + k.replace("_", "-") for k in e.key_names) for n, e in CONSTRUCTIONS.items()
     }
     for opt, value in given.items():
         if value is not None and opt not in applies.get(construction, ()):

@@ -332,17 +332,19 @@ def run(
 
     _check_formats(formats)
     spec = load_spec(spec_file)
-    formats = tuple(formats) or tuple(spec["report"]["formats"]) or ("png",)
+    formats = tuple(formats) or tuple(spec.report.formats) or ("png",)
     if keep_samples:
-        spec["run"]["keep_samples"] = True
+        import dataclasses
+
+        spec = dataclasses.replace(spec, run=dataclasses.replace(spec.run, keep_samples=True))
     argv = [
         "retol",
         "run",
         str(spec_file),
         "--samples",
-        str(samples if samples is not None else spec["run"]["samples"]),
+        str(samples if samples is not None else spec.run.samples),
         "--seed",
-        str(seed if seed is not None else spec["run"]["seed"]),
+        str(seed if seed is not None else spec.run.seed),
     ]
     if out is not None:
         argv += ["--out", str(out)]

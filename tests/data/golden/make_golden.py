@@ -21,7 +21,9 @@ HERE = Path(__file__).resolve().parent
 
 def example_paths():
     root = resources.files("tolerance.examples")
-    return sorted(Path(str(root.joinpath(e.name))) for e in root.iterdir() if e.name.endswith(".toml"))
+    return sorted(
+        Path(str(root.joinpath(e.name))) for e in root.iterdir() if e.name.endswith(".toml")
+    )
 
 
 if __name__ == "__main__":
