@@ -528,7 +528,7 @@ def test_temperature_map_marks_the_nominal_temperature(grid):
                  if len(set(np.atleast_1d(ln.get_xdata()))) == 1
                  and float(np.atleast_1d(ln.get_xdata())[0]) == grid.attrs["nominal_temperature_c"]]
     assert verticals
-    assert "reference temperature" in plots.FIGURES["environment"][1]
+    assert "reference temperature" in plots.FIGURES["environment"].help
 
 
 def test_polar_colour_bars_have_few_compact_ticks(grid):

@@ -18,6 +18,7 @@ from pathlib import Path
 import numpy as np
 
 from .errors import RetolError
+from .registry import Registry
 
 #: Figure file formats that ``save_figures`` writes.
 FORMATS = ("png", "svg", "pdf")
@@ -1185,47 +1186,67 @@ def environment_maps(grid):
 
 # ----------------------------------------------------------------------------- saving
 
-#: name -> (function, caption); the report shows them in this order.
-FIGURES = {
-    "metric_bands": (
-        metric_bands,
-        "Goal metric across the band: nominal plate, median, "
-        "5–95 % and 1–99 % of the Monte Carlo samples, goal threshold, and the "
-        "source spectrum behind.",
-    ),
-    "p05_overlay": (
-        p05_overlay,
-        "5th-percentile goal metric of every candidate; the shaded area is below the goal.",
-    ),
-    "retardance_bands": (
-        retardance_bands,
-        "Retardance across the band: nominal plate and "
-        "5–95 % of samples, with the target retardance.",
-    ),
-    "yield": (
-        yield_chart,
-        "Yield (fraction of sampled builds meeting the goal) with its confidence interval.",
-    ),
-    "sensitivity": (
-        sensitivity_chart,
-        "Yield with each tolerance alone and with all but it; "
-        "the top row is the tolerance whose removal helps most.",
-    ),
-    "poincare": (
-        poincare_views,
-        "Sampled output states at the design wavelength on two "
-        "orthographic views of the Poincaré sphere, and (right) a zoom on the plane tangent "
-        "to the sphere at the goal state, scaled to the spread of the samples; the dashed "
-        "circle there is where a pure state at one wavelength just meets the goal.",
-    ),
-    "environment": (
-        environment_maps,
-        "Retardance change of the error-free plate at the design wavelength vs plate "
-        "temperature (from its value at the materials' reference temperature, where the plates "
-        "are cut) and vs angle of incidence and its azimuth from the fast axis (from normal "
-        "incidence); the dotted vertical line marks the spec's nominal temperature.",
-    ),
-}
+#: Figure registry: each entry draws one figure (payload), its caption is the help text and
+#: ``requires`` names the variables it cannot do without; the report shows them in this order.
+FIGURES = Registry("figure")
+
+FIGURES.add(
+    "metric_bands",
+    "Goal metric across the band: nominal plate, median, "
+    "5–95 % and 1–99 % of the Monte Carlo samples, goal threshold, and the "
+    "source spectrum behind.",
+    payload=metric_bands,
+    requires=("nominal_metric",),
+)
+
+FIGURES.add(
+    "p05_overlay",
+    "5th-percentile goal metric of every candidate; the shaded area is below the goal.",
+    payload=p05_overlay,
+    requires=("metric_quantile",),
+)
+
+FIGURES.add(
+    "retardance_bands",
+    "Retardance across the band: nominal plate and 5–95 % of samples, with the target retardance.",
+    payload=retardance_bands,
+    requires=("nominal_retardance",),
+)
+
+FIGURES.add(
+    "yield",
+    "Yield (fraction of sampled builds meeting the goal) with its confidence interval.",
+    payload=yield_chart,
+    requires=("yield",),
+)
+
+FIGURES.add(
+    "sensitivity",
+    "Yield with each tolerance alone and with all but it; "
+    "the top row is the tolerance whose removal helps most.",
+    payload=sensitivity_chart,
+    requires=("yield",),
+)
+
+FIGURES.add(
+    "poincare",
+    "Sampled output states at the design wavelength on two "
+    "orthographic views of the Poincaré sphere, and (right) a zoom on the plane tangent "
+    "to the sphere at the goal state, scaled to the spread of the samples; the dashed "
+    "circle there is where a pure state at one wavelength just meets the goal.",
+    payload=poincare_views,
+    requires=("design_stokes",),
+)
+
+FIGURES.add(
+    "environment",
+    "Retardance change of the error-free plate at the design wavelength vs plate "
+    "temperature (from its value at the materials' reference temperature, where the plates "
+    "are cut) and vs angle of incidence and its azimuth from the fast axis (from normal "
+    "incidence); the dotted vertical line marks the spec's nominal temperature.",
+    payload=environment_maps,
+    requires=(),
+)
 
 
 def check_formats(formats) -> tuple[str, ...]:
@@ -1244,16 +1265,8 @@ def check_formats(formats) -> tuple[str, ...]:
     return tuple(out)
 
 
-#: Variables each figure cannot do without.
-REQUIRES = {
-    "metric_bands": ("nominal_metric",),
-    "p05_overlay": ("metric_quantile",),
-    "retardance_bands": ("nominal_retardance",),
-    "yield": ("yield",),
-    "sensitivity": ("yield",),
-    "poincare": ("design_stokes",),
-    "environment": (),
-}
+#: Variables each figure cannot do without (read from the registry).
+REQUIRES = {n: e.extra["requires"] for n, e in FIGURES.items()}
 
 
 def figure_names(grid) -> list[str]:
@@ -1299,7 +1312,7 @@ def save_figures(grid, folder, formats=("png",)) -> dict[str, list[Path]]:
     folder.mkdir(parents=True, exist_ok=True)
     written: dict[str, list[Path]] = {}
     for name in figure_names(grid):
-        fig = FIGURES[name][0](grid)
+        fig = FIGURES[name].payload(grid)
         written[name] = []
         for fmt in formats:
             path = folder / f"{name}.{fmt}"

@@ -839,7 +839,7 @@ def _render_all(grid, folder: Path, formats):
     embedded = []
     folder.mkdir()
     for name in figure_names(grid):
-        func, caption = FIGURES[name]
+        func, caption = FIGURES[name].payload, FIGURES[name].help
         fig = func(grid)
         buf = io.BytesIO()
         render(fig, buf, "png")

@@ -41,7 +41,6 @@ import math
 import pathlib
 import re
 import warnings
-from collections.abc import Callable
 from dataclasses import dataclass, replace
 from dataclasses import field as _dc_field
 
@@ -49,6 +48,7 @@ import numpy as np
 from scipy import special
 
 from .errors import RetolError
+from .registry import Key, Registry
 from .units import interval_nm, wavelength_nm
 
 #: Speed of light in vacuum [nm/fs] (exact SI value 299 792 458 m/s).
@@ -577,7 +577,8 @@ class _Part:
 
 #: Registry of shapes: name -> builder(table, context) -> _Part.  Each builder carries
 #: ``required`` and ``optional`` key tuples.
-SHAPES: dict[str, Callable] = {}
+#: Source-shape registry: each entry declares its keys (units, help, required or not).
+SHAPES = Registry("shape")
 
 _KEY_EXAMPLES = {
     "center": 'center = "840nm"',
@@ -588,16 +589,25 @@ _KEY_EXAMPLES = {
     "parts": 'parts = [{shape = "gaussian", center = "450nm", fwhm = "20nm", power = 1}]',
     "power": "power = 1",
 }
+#: key -> (unit, help) for the registry's key records
+_KEY_INFO = {
+    "center": ("nm", "centre wavelength"),
+    "drift": ("nm", "distribution of the centre's drift (sigma, uniform, low/high, tolerance)"),
+    "fwhm": ("nm", "full width at half maximum, in wavelength"),
+    "duration": ("fs", "pulse duration (FWHM of intensity), transform limited"),
+    "start": ("nm", "short end of the band (default: the grid's)"),
+    "stop": ("nm", "long end of the band (default: the grid's)"),
+    "lines": ("", "list of { at, power }"),
+    "path": ("", "CSV of wavelength [nm] and relative power"),
+    "parts": ("", "list of source tables, each with a power"),
+}
 
 
-def _shape(name: str, required=(), optional=()):
-    def register(builder):
-        builder.required = tuple(required)
-        builder.optional = tuple(optional)
-        SHAPES[name] = builder
-        return builder
-
-    return register
+def _shape(name: str, help: str, required=(), optional=()):
+    keys = tuple(Key(k, *_KEY_INFO[k], required=True) for k in required) + tuple(
+        Key(k, *_KEY_INFO[k]) for k in optional
+    )
+    return SHAPES.register(name, help, keys)
 
 
 def _continuous(ctx: _Context, cells, pdf, description: str, field: str) -> _Part:
@@ -636,7 +646,7 @@ def _discrete(ctx: _Context, at, power, description, field, drift=None) -> _Part
     )
 
 
-@_shape("laser", required=("center",), optional=("drift",))
+@_shape("laser", "a single line, optionally drifting", required=("center",), optional=("drift",))
 def _laser(table, ctx):
     c = wavelength_nm(table["center"], ctx.f("center"))
     drift = None
@@ -655,7 +665,7 @@ def _laser(table, ctx):
     return _discrete(ctx, [c], [1.0], text, ctx.f("center"), drift)
 
 
-@_shape("gaussian", required=("center", "fwhm"))
+@_shape("gaussian", "Gaussian in wavelength", required=("center", "fwhm"))
 def _gaussian(table, ctx):
     c = wavelength_nm(table["center"], ctx.f("center"))
     w = _positive_width(table["fwhm"], ctx.f("fwhm"))
@@ -668,7 +678,7 @@ def _gaussian(table, ctx):
     )
 
 
-@_shape("lorentzian", required=("center", "fwhm"))
+@_shape("lorentzian", "Lorentzian in wavelength", required=("center", "fwhm"))
 def _lorentzian(table, ctx):
     c = wavelength_nm(table["center"], ctx.f("center"))
     w = _positive_width(table["fwhm"], ctx.f("fwhm"))
@@ -681,7 +691,9 @@ def _lorentzian(table, ctx):
     )
 
 
-@_shape("sech2", required=("center", "duration"))
+@_shape(
+    "sech2", "transform-limited sech² pulse, defined in frequency", required=("center", "duration")
+)
 def _sech2(table, ctx):
     c = wavelength_nm(table["center"], ctx.f("center"))
     dt = parse_duration_fs(table["duration"], ctx.f("duration"))
@@ -701,7 +713,7 @@ def _sech2(table, ctx):
     )
 
 
-@_shape("flat", optional=("start", "stop"))
+@_shape("flat", "flat in wavelength over a band", optional=("start", "stop"))
 def _flat(table, ctx):
     start = wavelength_nm(table["start"], ctx.f("start")) if "start" in table else ctx.grid[0]
     stop = wavelength_nm(table["stop"], ctx.f("stop")) if "stop" in table else ctx.grid[-1]
@@ -718,7 +730,7 @@ def _flat(table, ctx):
     )
 
 
-@_shape("lines", required=("lines",))
+@_shape("lines", "discrete lines with powers", required=("lines",))
 def _lines(table, ctx):
     field = ctx.f("lines")
     items = table["lines"]
@@ -827,7 +839,7 @@ def read_spectrum_csv(path: pathlib.Path, field: str) -> tuple[np.ndarray, np.nd
     return x, p
 
 
-@_shape("file", required=("path",))
+@_shape("file", "a measured spectrum from a CSV file", required=("path",))
 def _file(table, ctx):
     field = ctx.f("path")
     value = table["path"]
@@ -855,7 +867,7 @@ def _file(table, ctx):
     )
 
 
-@_shape("mixture", required=("parts",))
+@_shape("mixture", "a power-weighted sum of other shapes", required=("parts",))
 def _mixture(table, ctx):
     field = ctx.f("parts")
     items = table["parts"]
@@ -906,16 +918,16 @@ def _build_part(table, ctx: _Context, extra_required=()) -> _Part:
         close = difflib.get_close_matches(str(shape).lower(), list(SHAPES), n=1, cutoff=0.5)
         hint = f"did you mean {close[0]!r}? " if close else ""
         raise RetolError(ctx.f("shape"), f"unknown shape {shape!r}", f"{hint}known shapes: {known}")
-    builder = SHAPES[key]
-    required = tuple(getattr(builder, "required", ())) + tuple(extra_required)
-    optional = tuple(getattr(builder, "optional", ()))
+    entry = SHAPES[key]
+    required = entry.required + tuple(extra_required)
+    optional = tuple(k for k in entry.key_names if k not in entry.required)
     _check_keys(table, ("shape", *required, *optional), ctx.prefix, f"shape {key!r}")
     for k in required:
         if k not in table:
             raise RetolError(
                 ctx.f(k), f"missing for shape {key!r}", f"add {_KEY_EXAMPLES.get(k, k + ' = ...')}"
             )
-    return builder(table, ctx)
+    return entry.payload(table, ctx)
 
 
 # --------------------------------------------------------------------------------------------
