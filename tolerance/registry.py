@@ -111,5 +111,38 @@ class Registry(Mapping):
         rows = []
         for e in self._entries.values():
             keys = ", ".join(f"{k.name} [{k.unit}]" if k.unit else k.name for k in e.keys)
+            if not keys and e.extra.get("unit"):
+                keys = f"[{e.extra['unit']}]"
             rows.append((e.name, keys, e.help))
         return rows
+
+
+def markdown_table(registry: Registry) -> str:
+    """The registry as a Markdown table (name, keys with units, meaning), as README shows it."""
+    head = f"| {registry.what} | keys [unit] | meaning |\n| --- | --- | --- |\n"
+    rows = "".join(f"| `{n}` | {k or '—'} | {h} |\n" for n, k, h in registry.table())
+    return head + rows
+
+
+def registries() -> dict[str, Registry]:
+    """Every registry of the package, by the name README's tables use."""
+    from .distributions import FORMS
+    from .metrics import METRICS
+    from .plates import CONSTRUCTIONS
+    from .plots import FIGURES
+    from .sources import SHAPES
+    from .tolerances import TOLERANCES
+
+    return {
+        "construction": CONSTRUCTIONS,
+        "shape": SHAPES,
+        "tolerance": TOLERANCES,
+        "distribution": FORMS,
+        "metric": METRICS,
+        "figure": FIGURES,
+    }
+
+
+if __name__ == "__main__":  # python -m tolerance.registry: README's reference tables
+    for _name, _reg in registries().items():
+        print(f"<!-- registry:{_name} -->\n{markdown_table(_reg)}<!-- /registry -->\n")
