@@ -32,7 +32,7 @@ import subprocess
 from pathlib import Path
 
 import pytest
-from gridfactory import synthetic_grid
+from gridfactory import engine_grid as synthetic_grid
 
 from tolerance.plots import figure_names
 from tolerance.report import write_report
