@@ -528,6 +528,106 @@ def stokes_one(optics, sample, proj, out):
         out[w, 2] = work[_YR, w]
 
 
+@nb.njit(inline="always", **_OPTS)
+def _band_summary(m, st1, st2, st3, grid_weight):
+    """Worst metric over the band and the source-weighted Stokes sums of one sample."""
+    wmin = np.inf
+    a1 = 0.0
+    a2 = 0.0
+    a3 = 0.0
+    for w in range(m.shape[0]):
+        mw = m[w]
+        if mw < wmin:
+            wmin = mw
+        gw = grid_weight[w]
+        if gw != 0.0:
+            a1 += gw * st1[w]
+            a2 += gw * st2[w]
+            a3 += gw * st3[w]
+    return wmin, a1, a2, a3
+
+
+@nb.njit(inline="always", **_OPTS)
+def _fold_sample(work, ret_shift, bs0, bs1, vmin, vmax, lo, inv_width, jrow, B):
+    """Fold one sample's rows into the block sums, the exact extremes and its bin indices."""
+    W = work.shape[1]
+    rw = work[_RW]
+    m = work[_M]
+    for w in range(W):
+        d = rw[w] - ret_shift[w]
+        bs0[w] += d
+        bs1[w] += d * d
+    for v in range(N_VAR):
+        row = work[_RW + v] if v < 3 else m
+        mn = vmin[v]
+        mx = vmax[v]
+        lov = lo[v]
+        iwv = inv_width[v]
+        jv = jrow[v]
+        for w in range(W):
+            x = row[w]
+            mn[w] = x if x < mn[w] else mn[w]
+            mx[w] = x if x > mx[w] else mx[w]
+            j = int((x - lov[w]) * iwv[w])
+            j = 0 if j < 0 else j
+            j = B - 1 if j >= B else j
+            jv[w] = j
+
+
+@nb.njit(inline="always", **_OPTS)
+def _keep_sample(work, kept_s):
+    """Copy one sample's observable rows into the kept values (N_VAR, W)."""
+    m = work[_M]
+    for v in range(N_VAR):
+        row = work[_RW + v] if v < 3 else m
+        for w in range(work.shape[1]):
+            kept_s[v, w] = row[w]
+
+
+@nb.njit(inline="always", **_OPTS)
+def _lines_average(lines, s, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, L):
+    """Power-weighted Stokes sums of one sample over the discrete source lines."""
+    lk0, lno2, lne2, lrat, ldn, line_weight = lines
+    ss = s if lk0.shape[0] > 1 else 0
+    a1 = 0.0
+    a2 = 0.0
+    a3 = 0.0
+    for k in range(line_weight.shape[0]):
+        l1, l2, l3, _ = _propagate(
+            lk0[ss, k],
+            lno2[ss, k],
+            lne2[ss, k],
+            lrat[ss, k],
+            ldn[ss, k],
+            thick,
+            tfac,
+            c2,
+            s2,
+            sin2i,
+            cphi2,
+            sphi2,
+            ca,
+            sa,
+            proj,
+            L,
+        )
+        lw = line_weight[k]
+        a1 += lw * l1
+        a2 += lw * l2
+        a3 += lw * l3
+    return a1, a2, a3
+
+
+@nb.njit(inline="always", **_OPTS)
+def _scatter_block(hist_t, jbuf, n):
+    """Add one block's bin indices into the thread's histograms, row by row."""
+    for v in range(hist_t.shape[0]):
+        for w in range(hist_t.shape[1]):
+            hvw = hist_t[v, w]
+            for i in range(n):
+                hvw[jbuf[i, v, w]] += 1
+
+
 @nb.njit(parallel=True, **_OPTS)
 def chunk_pass(optics, grid_weight, lines, samples, target, stats, outs):
     """Process one chunk; see the module docstring.
@@ -543,14 +643,12 @@ def chunk_pass(optics, grid_weight, lines, samples, target, stats, outs):
     depend on T.
     """
     k0, no2, ne2, rat, dn = optics
-    lk0, lno2, lne2, lrat, ldn, line_weight = lines
     thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa = samples
     proj, goal, metric_kind, w_design = target
     do_hist, lo, inv_width, hist, vmin, vmax, block_sums, block_size, ret_shift = stats
     worst, spec_stokes, design_stokes, keep, kept = outs
     S = thick.shape[0]
     W = k0.shape[0]
-    K = line_weight.shape[0]
     B = hist.shape[3]
     T = hist.shape[0]
     L = thick.shape[1]
@@ -601,85 +699,52 @@ def chunk_pass(optics, grid_weight, lines, samples, target, stats, outs):
                     work,
                 )
                 _metric_row(work, g1, g2, g3, metric_kind)
-                wmin = np.inf
-                a1 = 0.0
-                a2 = 0.0
-                a3 = 0.0
-                for w in range(W):
-                    mw = m[w]
-                    if mw < wmin:
-                        wmin = mw
-                    gw = grid_weight[w]
-                    if gw != 0.0:
-                        a1 += gw * st1[w]
-                        a2 += gw * st2[w]
-                        a3 += gw * st3[w]
+                wmin, a1, a2, a3 = _band_summary(m, st1, st2, st3, grid_weight)
                 if w_design >= 0 and w_design < W:
                     design_stokes[s, 0] = st1[w_design]
                     design_stokes[s, 1] = st2[w_design]
                     design_stokes[s, 2] = st3[w_design]
                 if do_hist:
                     _observable_rows(work)
-                    rw = work[_RW]
-                    for w in range(W):
-                        d = rw[w] - ret_shift[w]
-                        bs0[w] += d
-                        bs1[w] += d * d
-                    for v in range(N_VAR):
-                        row = work[_RW + v] if v < 3 else m
-                        mn = vmin[t, v]
-                        mx = vmax[t, v]
-                        lov = lo[v]
-                        iwv = inv_width[v]
-                        jv = jbuf[s - s_lo, v]
-                        for w in range(W):
-                            x = row[w]
-                            mn[w] = x if x < mn[w] else mn[w]
-                            mx[w] = x if x > mx[w] else mx[w]
-                            j = int((x - lov[w]) * iwv[w])
-                            j = 0 if j < 0 else j
-                            j = B - 1 if j >= B else j
-                            jv[w] = j
-                    if keep:
-                        for v in range(N_VAR):
-                            row = work[_RW + v] if v < 3 else m
-                            for w in range(W):
-                                kept[s, v, w] = row[w]
-                # discrete lines (laser, line sources), possibly drifting per sample
-                for k in range(K):
-                    ss = s if lk0.shape[0] > 1 else 0
-                    l1, l2, l3, _ = _propagate(
-                        lk0[ss, k],
-                        lno2[ss, k],
-                        lne2[ss, k],
-                        lrat[ss, k],
-                        ldn[ss, k],
-                        thick[s],
-                        tfac[s],
-                        c2[s],
-                        s2[s],
-                        sin2i[s],
-                        cphi2[s],
-                        sphi2[s],
-                        ca[s],
-                        sa[s],
-                        proj,
-                        L,
+                    _fold_sample(
+                        work,
+                        ret_shift,
+                        bs0,
+                        bs1,
+                        vmin[t],
+                        vmax[t],
+                        lo,
+                        inv_width,
+                        jbuf[s - s_lo],
+                        B,
                     )
-                    lw = line_weight[k]
-                    a1 += lw * l1
-                    a2 += lw * l2
-                    a3 += lw * l3
+                    if keep:
+                        _keep_sample(work, kept[s])
+                # discrete lines (laser, line sources), possibly drifting per sample
+                l1, l2, l3 = _lines_average(
+                    lines,
+                    s,
+                    thick[s],
+                    tfac[s],
+                    c2[s],
+                    s2[s],
+                    sin2i[s],
+                    cphi2[s],
+                    sphi2[s],
+                    ca[s],
+                    sa[s],
+                    proj,
+                    L,
+                )
+                a1 += l1
+                a2 += l2
+                a3 += l3
                 worst[s] = wmin
                 spec_stokes[s, 0] = a1
                 spec_stokes[s, 1] = a2
                 spec_stokes[s, 2] = a3
             if do_hist:
-                for v in range(N_VAR):
-                    for w in range(W):
-                        hvw = hist[t, v, w]
-                        for i in range(s_hi - s_lo):
-                            hvw[jbuf[i, v, w]] += 1
+                _scatter_block(hist[t], jbuf, s_hi - s_lo)
 
 
 def spectral_metric(spec_stokes: np.ndarray, goal: np.ndarray, metric: str):

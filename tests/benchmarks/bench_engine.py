@@ -53,7 +53,7 @@ TARGETS = {
 }
 
 
-def make_spec(samples: int, seed: int = 7) -> dict:
+def make_spec(samples: int, seed: int = 7):
     """The benchmark scenario as a validated spec (built in code, no file)."""
     from tolerance.spec import validate
 
@@ -78,7 +78,7 @@ def make_spec(samples: int, seed: int = 7) -> dict:
         "run": {"samples": int(samples), "seed": int(seed)},
     }
     spec = validate(raw, "<benchmark>")
-    assert spec["wavelength"]["count"] == W_EXPECTED, spec["wavelength"]
+    assert spec.wavelength.count == W_EXPECTED, spec.wavelength
     return spec
 
 
@@ -89,57 +89,54 @@ def _verdict(ok: bool) -> str:
 # ----------------------------------------------------------------------------- (a) the engine
 
 
-def engine_main_pass(spec: dict, n: int, chunk: int | None = None) -> dict:
+def engine_main_pass(spec, n: int, chunk: int | None = None) -> dict:
     """Time the main pass (draws + kernel, all chunks) for the spec's one candidate.
 
-    Mirrors the chunk loop of :func:`tolerance.montecarlo.run` (pilot and statistics set-up
-    excluded from the timing, reported separately).
+    Mirrors :meth:`tolerance.montecarlo.Engine._main_pass` (pilot and statistics set-up excluded
+    from the timing, reported separately).  Draws are made afresh (a new Engine), as in one run.
     """
     import numba
 
     from tolerance import montecarlo as mc
     from tolerance.kernel import N_VAR
 
-    chunk = chunk or mc.DEFAULT_CHUNK
-    grid, spectrum, cases = mc.prepare(spec)
-    case = cases[0]
-    W = grid.size
+    eng = mc.Engine(spec, samples=n, chunk_size=chunk or mc.DEFAULT_CHUNK)
+    case = eng.cases[0]
+    W = eng.grid.size
     T = numba.get_num_threads()
-    optics = mc._layer_optics(case.plate, grid)
-    nom = mc.nominal(case, spec, optics, spectrum)
-    ret_shift = nom["values"][0].copy()
+    optics = eng.optics(case.plate)
+    nom = eng.nominal(case)
+    ret_shift = nom.values[0].copy()
     t0 = time.perf_counter()
     p_stop = min(n, mc.PILOT)
-    pil = mc.sample_inputs(case, spec, spec["run"]["seed"], 0, p_stop)
+    pil, extra = mc.sample_inputs(case, spec, eng.draws, 0, p_stop)
     kept = np.zeros((p_stop, N_VAR, W), dtype=np.float32)
-    mc._kernel_call(case, spec, optics, spectrum, pil, None, 0, p_stop, True, ret_shift,
-                    keep_out=kept)
-    bins = int(min(mc.BINS, max(64, 2 ** int(np.log2(max(1, 150_000_000
-                                                         // (T * N_VAR * W * 8)))))))
-    lo, iw = mc._ranges(kept, nom["values"], bins)
+    eng._call(case, pil, extra, eng._stats(None, p_stop, True, ret_shift), p_stop, kept)
+    bins = mc.histogram_bins(W)
+    lo, iw = mc._ranges(kept, nom.values, bins)
     t_pilot = time.perf_counter() - t0
     acc = mc.Accumulator(n, W, lo, iw, bins, T, False)
     t_draw = 0.0
     t_kern = 0.0
     t0 = time.perf_counter()
-    for start, stop in mc._chunks(n, chunk):
+    for start, stop in mc._chunks(n, eng.chunk):
         ta = time.perf_counter()
-        inputs = mc.sample_inputs(case, spec, spec["run"]["seed"], start, stop)
+        inputs, extra = mc.sample_inputs(case, spec, eng.draws, start, stop)
         tb = time.perf_counter()
-        worst, sst, dst, bsum = mc._kernel_call(case, spec, optics, spectrum, inputs, acc, start,
-                                                stop, True, ret_shift)
+        stats = eng._stats(acc, stop - start, True, ret_shift)
+        worst, sst, dst = eng._call(case, inputs, extra, stats, stop - start)
         tc = time.perf_counter()
         acc.worst[start:stop] = worst
         acc.spec_stokes[start:stop] = sst
         acc.design_stokes[start:stop] = dst
-        acc.sums += bsum.sum(axis=0)
+        acc.sums += stats.block_sums.sum(axis=0)
         t_draw += tb - ta
         t_kern += tc - tb
     t_pass = time.perf_counter() - t0
     return {"n": n, "W": W, "threads": T, "pass_s": t_pass, "kernel_s": t_kern,
             "draw_s": t_draw, "pilot_s": t_pilot, "rate": n * W / t_pass,
             "kernel_rate": n * W / t_kern, "worst": acc.worst, "case": case, "optics": optics,
-            "spec": spec}
+            "spec": spec, "engine": eng}
 
 
 # ----------------------------------------------------------------------------- (b) reference
@@ -163,20 +160,20 @@ def reference_pass(case, spec, optics, inputs, n: int, batch: int = 4000):
     for b0 in range(0, n, batch):
         t_batch = time.perf_counter()
         sl = slice(b0, min(n, b0 + batch))
-        sin2i = inputs["sin2i"][sl, None]
+        sin2i = inputs.sin2i[sl, None]
         J = None
         ret = 0.0
         for layer in range(L):
             n_o = np.sqrt(no2[None, :, layer] - sin2i)
-            n_e = np.sqrt(ne2[None, :, layer] - sin2i * inputs["sphi2"][sl, layer, None]
-                          - rat[None, :, layer] * sin2i * inputs["cphi2"][sl, layer, None])
-            delta = (k0[None, :] * inputs["thick"][sl, layer, None] * np.abs(n_e - n_o)
-                     * inputs["tfac"][sl, layer, None])
+            n_e = np.sqrt(ne2[None, :, layer] - sin2i * inputs.sphi2[sl, layer, None]
+                          - rat[None, :, layer] * sin2i * inputs.cphi2[sl, layer, None])
+            delta = (k0[None, :] * inputs.thick[sl, layer, None] * np.abs(n_e - n_o)
+                     * inputs.tfac[sl, layer, None])
             ret = ret + proj[layer] * delta
             e = np.exp(-0.5j * delta)
             ec = np.conj(e)
-            c2 = inputs["c2"][sl, layer, None]
-            s2 = inputs["s2"][sl, layer, None]
+            c2 = inputs.c2[sl, layer, None]
+            s2 = inputs.s2[sl, layer, None]
             cc = 0.5 * (1.0 + c2)
             ss = 0.5 * (1.0 - c2)
             cs = 0.5 * s2
@@ -186,7 +183,7 @@ def reference_pass(case, spec, optics, inputs, n: int, batch: int = 4000):
             Jl[..., 1, 0] = Jl[..., 0, 1]
             Jl[..., 1, 1] = ss * e + cc * ec
             J = Jl if J is None else np.matmul(Jl, J)
-        E_in = np.stack([inputs["ca"][sl], inputs["sa"][sl]], axis=-1).astype(complex)
+        E_in = np.stack([inputs.ca[sl], inputs.sa[sl]], axis=-1).astype(complex)
         E = np.matmul(J, E_in[:, None, :, None])[..., 0]
         ex, ey = E[..., 0], E[..., 1]
         cross = ex * np.conj(ey)
@@ -317,7 +314,7 @@ def main(argv=None) -> int:
 
     nb_ = min(args.ref_samples, na)
     case, spec = a["case"], a["spec"]
-    inputs = mc.sample_inputs(case, spec, spec["run"]["seed"], 0, nb_)
+    inputs, _ = mc.sample_inputs(case, spec, a["engine"].draws, 0, nb_)
     t = time.perf_counter()
     ref_worst, _, ref_best = reference_pass(case, spec, a["optics"], inputs, nb_)
     t_ref = time.perf_counter() - t

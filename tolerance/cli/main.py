@@ -7,7 +7,7 @@ import sys
 
 import click
 
-from .. import __version__
+from ..version import __version__
 
 #: subcommand name -> (module, attribute, one-line help)
 SUBCOMMANDS = {
