@@ -234,6 +234,8 @@ def aim(
     Example: retol aim --input 10 --target-azimuth 30 --target-axial-ratio 0.5 --handedness right
     --plates hwp+qwp.  Angles are fast-axis angles modulo 180 deg.
     """
+    import numpy as np
+
     from ..aiming import PLATE_SETS, band_states, plate_mounts
     from ..aiming import aim as aim_states
     from ..errors import RetolError
@@ -267,20 +269,23 @@ def aim(
         from .plate import build_plate
 
         design = at if design is None else design
-        build_plate(
-            material, construction, 0.25, design, 0.0, order, thick_plate, partner, match, None
-        )  # checks the options once, with their names
+        where = {"design": "--design", "material": "--material", "partner": "--partner"}
 
         def design_fn(waves):
-            return build_plate(
-                material, construction, waves, design, 0.0, order, thick_plate, partner, match, None
+            return _renamed(
+                build_plate,
+                where,
+                *(material, construction, waves, design, 0.0),
+                *(order, thick_plate, partner, match, None),
             )
+
+        design_fn(0.25)  # checks the options once, before any work
 
         wl = design if at is None else at
     mounts = plate_mounts(plates, design_fn, extrapolate) if design_fn else None
-    import numpy as np
 
-    result = aim_states(S_in, t, plates, mounts, wl)
+    names = {"input": "--input-dop", "wavelength": "--at", "design": "--at"}
+    result = _renamed(aim_states, names, S_in, t, plates, mounts, wl)
     used = mounts or plate_mounts(plates)
     solutions = []
     for s in result.solutions:
@@ -290,7 +295,9 @@ def aim(
             "sphere_angle_deg": s.sphere_angle_deg,
         }
         if band is not None:
-            b = band_states(S_in, used, s.angles_deg, band, t)
+            b = _renamed(
+                band_states, {"wavelength": "--from/--to"}, S_in, used, s.angles_deg, band, t
+            )
             row["band"] = [
                 {"wavelength_nm": float(w), **_state(S, t)}
                 for w, S in zip(b["wavelength_nm"], b["stokes"], strict=True)
