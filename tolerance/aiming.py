@@ -239,10 +239,15 @@ def _closed_form_single(s, t):
     return [th, th + 90.0]
 
 
-def _grid_minima(f, n):
-    """Local minima of f over [0, 180) on an n-point grid, refined with Brent's method."""
+def _grid_minima(residual, n):
+    """Local minima of |residual(θ)|² over [0, 180) on an n-point grid, then polished.
+
+    Each grid minimum is refined with Brent's method (``scipy.optimize.minimize_scalar``) and
+    polished by ``scipy.optimize.least_squares`` on the residual vector, which is linear in θ
+    near a solution and so finds it to round-off (the squared norm alone only to √ε).
+    """
     grid = np.arange(n) * (180.0 / n)
-    vals = f(grid)
+    vals = np.sum(residual(grid[:, None]) ** 2, axis=-1)
     if np.ptp(vals) < 1e-24:  # the output does not depend on the angle
         return list(grid[:1]), True
     lo = (vals <= np.roll(vals, 1)) & (vals <= np.roll(vals, -1))
@@ -250,12 +255,20 @@ def _grid_minima(f, n):
     found = []
     for g in grid[lo]:
         r = optimize.minimize_scalar(
-            lambda x: float(f(np.array([x]))[0]),
+            lambda x: float(np.sum(residual(np.array([[x]])) ** 2)),
             bounds=(g - step, g + step),
             method="bounded",
-            options={"xatol": 1e-12},
+            options={"xatol": 1e-10},
         )
-        found.append(float(r.x))
+        p = optimize.least_squares(
+            lambda x: residual(x[None, :])[0],
+            [r.x],
+            method="lm",
+            xtol=1e-15,
+            ftol=1e-15,
+            gtol=1e-15,
+        )
+        found.append(float(p.x[0]))
     return found, False
 
 
@@ -275,7 +288,7 @@ def _collect(stokes_in, mounts, t, candidates, wavelength_nm):
         a = cand[i]
         if any(_same_angles(a, s.angles_deg) for s in sols):
             continue
-        a = np.where(180.0 - a < SAME_ANGLE_DEG / 10, 0.0, a) + 0.0
+        a = np.where(a >= 180.0, a - 180.0, a) + 0.0  # np.mod(-tiny, 180) rounds to 180
         sols.append(Solution(tuple(float(x) for x in a), S[i], float(ang[i])))
     sols.sort(key=lambda s: (round(s.sphere_angle_deg, 9), s.angles_deg))
     return tuple(sols), reachable
@@ -310,8 +323,9 @@ def aim_plate(stokes_in, target, mount: Mount, wavelength_nm=None) -> Aim:
     A linear retarder keeps the state's component along its axis (cos 2θ, sin 2θ, 0), so the
     candidates are the two angles with (cos 2θ, sin 2θ)·(s − t)₁₂ = 0 [1]; each is verified by
     the forward product.  A grid of 360 angles, refined with Brent's method
-    (``scipy.optimize.minimize_scalar``) on |ŝ_out − t|², finds the closest state when none
-    reaches the target, and the solutions of an elliptical retarder (a general stack).
+    (``scipy.optimize.minimize_scalar``) on |ŝ_out − t|² and polished by least squares on
+    ŝ_out − t, finds the closest state when none reaches the target, and the solutions of an
+    elliptical retarder (a general stack).
 
     References
     ----------
@@ -322,11 +336,10 @@ def aim_plate(stokes_in, target, mount: Mount, wavelength_nm=None) -> Aim:
     s, t = polarized_direction(S_in), np.asarray(target, dtype=float)
     _check_polarized(S_in)
 
-    def chord2(th):
-        out = polarized_direction(output_stokes(S_in, [mount], th[:, None], wavelength_nm))
-        return np.sum((out - t) ** 2, axis=-1)
+    def residual(th):
+        return polarized_direction(output_stokes(S_in, [mount], th, wavelength_nm)) - t
 
-    grid, flat = _grid_minima(chord2, 360)
+    grid, flat = _grid_minima(residual, 360)
     sols, reachable = _collect(S_in, [mount], t, _closed_form_single(s, t) + grid, wavelength_nm)
     family = None
     if flat:

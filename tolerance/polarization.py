@@ -646,7 +646,9 @@ def sphere_angle_deg(a, b):
     """
     u, v = np.broadcast_arrays(polarized_direction(a), polarized_direction(b))
     cross = np.linalg.norm(np.cross(u, v), axis=-1)
-    return np.degrees(np.arctan2(cross, np.sum(u * v, axis=-1)))
+    theta = np.degrees(np.arctan2(cross, np.sum(u * v, axis=-1)))
+    none = (np.sum(u * u, axis=-1) == 0) | (np.sum(v * v, axis=-1) == 0)
+    return np.where(none, 90.0, theta)
 
 
 def _azimuth_and_chi(v):
