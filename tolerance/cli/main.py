@@ -14,6 +14,7 @@ SUBCOMMANDS = {
     "materials": ("tolerance.cli.materials", "materials", "List materials or show their indices."),
     "plate": ("tolerance.cli.plate", "plate", "Design a plate and tabulate its retardance."),
     "state": ("tolerance.cli.state", "state", "Push one polarization state through a plate."),
+    "aim": ("tolerance.cli.aim", "aim", "Find the mount angles that reach a target state."),
     "run": ("tolerance.cli.run", "run", "Run a spec's Monte Carlo tolerance analysis."),
     "demo": ("tolerance.cli.demo", "demo", "Run a built-in example and write its report."),
     "report": ("tolerance.cli.report", "report", "Write the report of a saved results grid."),
