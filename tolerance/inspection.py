@@ -1483,7 +1483,7 @@ def fit_figure(fit: PlateFit):
         ax.set_title(
             f"{m.name}: order {fit.order}, {th} um{eps}, reduced chi2 {fit.chi2_reduced:.2f}"
         )
-        ax.legend(loc="upper right")
+        ax.legend(loc="upper right", frameon=True, framealpha=0.9)
         axr.axhline(0.0, color=INK, lw=0.8)
         axr.plot(wl, fit.residuals, ".", ms=3, color="#c2562f")
         if m.sigma is not None:
@@ -1521,11 +1521,20 @@ def lot_figure(rows, plate: Plate, tolerances: dict):
 
 
 def _hist(ax, vals, dist, ink):
+    """Histogram zoomed on the drawing limits; plates far outside are counted in a note."""
     vals = np.asarray(vals, float)
-    if vals.size:
-        ax.hist(vals, bins=max(5, int(np.sqrt(vals.size)) + 3), color="#1d6a80", alpha=0.8)
+    note = ""
     if dist is not None:
         lo, hi, how = tolerance_limits(dist)
+        span = hi - lo if hi > lo else 1.0
+        a, b = lo - span, hi + span
+        far = (vals < a) | (vals > b)
+        if np.any(far):
+            note = f"; {int(far.sum())} far outside (not shown)"
+        vals = vals[~far]
         for x in (lo, hi):
             ax.axvline(x, color=ink, ls="--", lw=1.0)
-        ax.text(0.02, 0.98, f"limits: {how}", transform=ax.transAxes, va="top", fontsize=7)
+        ax.set_xlim(a, b)
+        ax.text(0.02, 0.98, f"limits: {how}{note}", transform=ax.transAxes, va="top", fontsize=7)
+    if vals.size:
+        ax.hist(vals, bins=max(5, int(np.sqrt(vals.size)) + 3), color="#1d6a80", alpha=0.8)
