@@ -18,6 +18,11 @@ SUBCOMMANDS = {
     "run": ("tolerance.cli.run", "run", "Run a spec's Monte Carlo tolerance analysis."),
     "demo": ("tolerance.cli.demo", "demo", "Run a built-in example and write its report."),
     "report": ("tolerance.cli.report", "report", "Write the report of a saved results grid."),
+    "inspect": (
+        "tolerance.cli.inspect",
+        "inspect",
+        "Identify a delivered plate from its measured spectrum; accept or reject it.",
+    ),
 }
 
 
