@@ -147,6 +147,16 @@ class Distribution:
             return {"kind": "uniform", "half_width": self.half_width}
         return {"kind": "range", "low": self.low, "high": self.high}
 
+    def to_spec(self) -> dict:
+        """The table as a spec writes it, e.g. ``{"sigma": 0.3}`` (loads back equal)."""
+        if self.form == "tolerance":
+            return {"tolerance": self.limit, "coverage": self.coverage}
+        if self.form == "sigma":
+            return {"sigma": self.sigma}
+        if self.form == "uniform":
+            return {"uniform": self.half_width}
+        return {"low": self.low, "high": self.high}
+
     @classmethod
     def from_dict(cls, d) -> Distribution:
         if isinstance(d, Distribution):

@@ -949,25 +949,23 @@ def _bootstrap(model, x, resid, n, seed, bounds, even) -> np.ndarray:
 # ----------------------------------------------------------------------------- verdict
 
 
-def tolerance_limits(dist: dict) -> tuple[float, float, str]:
+def tolerance_limits(dist) -> tuple[float, float, str]:
     """Lower and upper deviation limits a spec tolerance sets, and how they were read.
 
     ``{tolerance = x, coverage = k}`` → ±x; ``{uniform = h}`` → ±h; ``{low, high}`` → [low, high];
     ``{sigma = s}`` → ±3s (a normal tolerance has no limit of its own: 3 sigma is common
-    practice).
+    practice).  ``dist`` is a :class:`~tolerance.distributions.Distribution` (or its dict form).
     """
-    kind = dist["kind"]
-    if kind == "normal" and "limit" in dist:
-        return (
-            -dist["limit"],
-            dist["limit"],
-            (f"tolerance = {dist['limit']:g} (coverage {dist['coverage']:g})"),
-        )
-    if kind == "normal":
-        return -3 * dist["sigma"], 3 * dist["sigma"], f"sigma = {dist['sigma']:g}, read as ±3 sigma"
-    if kind == "uniform":
-        return -dist["half_width"], dist["half_width"], f"uniform = {dist['half_width']:g}"
-    return dist["low"], dist["high"], f"low = {dist['low']:g}, high = {dist['high']:g}"
+    from .distributions import Distribution
+
+    d = Distribution.from_dict(dist)
+    if d.form == "tolerance":
+        return -d.limit, d.limit, f"tolerance = {d.limit:g} (coverage {d.coverage:g})"
+    if d.form == "sigma":
+        return -3 * d.sigma, 3 * d.sigma, f"sigma = {d.sigma:g}, read as ±3 sigma"
+    if d.form == "uniform":
+        return -d.half_width, d.half_width, f"uniform = {d.half_width:g}"
+    return d.low, d.high, f"low = {d.low:g}, high = {d.high:g}"
 
 
 def decide(deviation, u, low, high, k=GUARD_K) -> dict:
@@ -1147,7 +1145,13 @@ def as_built_toml(fit: PlateFit, name: str, candidate_tolerances: dict | None = 
         )
     if "note" in fit.combos:
         lines.append("# Note: layer sum not determined by the spectrum; nominal sum kept.")
-    tol = {k: v for k, v in (candidate_tolerances or {}).items() if k != "thickness_um"}
+    from .distributions import Distribution
+
+    tol = {
+        k: Distribution.from_dict(v).to_spec()
+        for k, v in (candidate_tolerances or {}).items()
+        if k != "thickness_um"
+    }
     tol["thickness_um"] = {"sigma": 0.0}
     cand = {
         "name": name,
@@ -1175,32 +1179,25 @@ def as_built_toml(fit: PlateFit, name: str, candidate_tolerances: dict | None = 
 
 
 def _candidate_plate(spec, name: str | None) -> tuple[Plate, dict]:
-    """The nominal plate and tolerances of a spec's candidate.
-
-    The one place that reads the validated spec (today a dict from
-    :func:`tolerance.spec.load_spec`); update here when it becomes a typed record.
-    """
-    from .montecarlo import build_plate, tolerances_for
-
-    cands = spec["candidates"]
-    names = [c["name"] for c in cands]
+    """The nominal plate and tolerances (spec keys to Distributions) of a study's candidate."""
+    names = [c.name for c in spec.candidates]
     if name is None:
-        if len(cands) == 1:
+        if len(names) == 1:
             name = names[0]
         else:
             raise RetolError(
                 "--candidate", "the spec has several candidates", f"name one of: {', '.join(names)}"
             )
-    for c in cands:
-        if c["name"] == name:
-            tol = dict(tolerances_for(spec, c))
-            tol.pop("drift", None)
-            return build_plate(c), tol
-    close = difflib.get_close_matches(name, names, n=1)
-    hint = f"did you mean {close[0]!r}? " if close else ""
-    raise RetolError(
-        "--candidate", f"no candidate {name!r} in the spec", f"{hint}known: {', '.join(names)}"
-    )
+    if name not in names:
+        close = difflib.get_close_matches(name, names, n=1)
+        hint = f"did you mean {close[0]!r}? " if close else ""
+        raise RetolError(
+            "--candidate", f"no candidate {name!r} in the spec", f"{hint}known: {', '.join(names)}"
+        )
+    cand = spec.candidate(name)
+    tol = dict(spec.tolerances_for(cand))
+    tol.pop("drift", None)
+    return cand.plate, tol
 
 
 def _raw_spec(spec_path) -> dict:

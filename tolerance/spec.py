@@ -615,14 +615,7 @@ def loads(text: str, path: str = "<spec>", base_dir=None) -> Study:
 
 
 def _raw_distribution(d: dict) -> dict:
-    dist = distributions.Distribution.from_dict(d)
-    if dist.kind == "normal":
-        if dist.limit is not None:
-            return {"tolerance": dist.limit, "coverage": dist.coverage}
-        return {"sigma": dist.sigma}
-    if dist.kind == "uniform":
-        return {"uniform": dist.half_width}
-    return {"low": dist.low, "high": dist.high}
+    return distributions.Distribution.from_dict(d).to_spec()
 
 
 def _raw_candidate(c: dict) -> dict:
