@@ -9,6 +9,7 @@ and its materials checked against the grid, so nothing downstream re-parses or p
 
 from __future__ import annotations
 
+import dataclasses
 import difflib
 import json
 import math
@@ -319,8 +320,7 @@ def _candidate(ctx: _Ctx, c, i: int, default_design) -> Candidate:
         plate = cand.build_plate()
     except RetolError as exc:
         raise RetolError(f"{ctx.path}: {where}{exc.field}", exc.problem, exc.fix) from None
-    object.__setattr__(cand, "plate", plate)
-    return cand
+    return dataclasses.replace(cand, plate=plate)
 
 
 def _wavelength(ctx: _Ctx, raw: dict) -> WavelengthGrid:
