@@ -19,11 +19,11 @@ from dataclasses import dataclass, field
 from functools import cache
 from importlib import resources
 from pathlib import Path
-from types import MappingProxyType
 
 import numpy as np
 
 from .errors import OutOfRangeError, RetolError
+from .frozen import frozen
 
 FORMULA_TYPES = ("ghosh", "sellmeier", "oscillator-birefringence", "table")
 KINDS = ("positive uniaxial", "negative uniaxial", "film")
@@ -61,15 +61,6 @@ class Material:
         """n_e - n_o at the reference temperature; see :func:`birefringence`."""
         n_o, n_e = indices(self, wavelength_nm, extrapolate=extrapolate)
         return n_e - n_o
-
-
-def frozen(value):
-    """A read-only copy: tables become mapping proxies, lists tuples (materials are immutable)."""
-    if isinstance(value, dict):
-        return MappingProxyType({k: frozen(v) for k, v in value.items()})
-    if isinstance(value, list | tuple):
-        return tuple(frozen(v) for v in value)
-    return value
 
 
 def _ghosh(lam_um, c):

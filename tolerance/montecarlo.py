@@ -18,7 +18,6 @@ import dataclasses
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass
-from types import MappingProxyType
 
 import numpy as np
 
@@ -26,6 +25,7 @@ from . import sampler
 from .dispersion import indices
 from .distributions import Distribution
 from .errors import RetolError
+from .frozen import ReadOnlyMapping
 from .kernel import (
     METRICS,
     N_VAR,
@@ -449,7 +449,7 @@ class Engine:
         else:
             hand = 1
             gvec = goal_vector("linear", goal.azimuth_deg)
-        return Case(cand, plate, MappingProxyType(tol), gvec, hand, w_design)
+        return Case(cand, plate, ReadOnlyMapping(tol), gvec, hand, w_design)
 
     def _nominal_handedness(self, plate: Plate) -> int:
         """Sense of the error-free output at the design wavelength (+1 clockwise)."""
@@ -719,8 +719,8 @@ def _finish(
             spectral_metric(nom.spec_stokes[None, :], case.goal, goal.metric)[0]
         ),
         nominal_dop=min(1.0, nom_dop),
-        sens_alone=MappingProxyType(alone),
-        sens_without=MappingProxyType(without),
+        sens_alone=ReadOnlyMapping(alone),
+        sens_without=ReadOnlyMapping(without),
         dominant=dominant_tolerance(alone, without, yield_sens, nominal_pass),
         sensitivity_samples=n_sens,
     )
@@ -798,4 +798,4 @@ def replace_tolerances(study: Study, **tolerances) -> Study:
     """A copy of the study with some ``[tolerances]`` replaced (Distribution values)."""
     tol = dict(study.tolerances)
     tol.update(tolerances)
-    return dataclasses.replace(study, tolerances=MappingProxyType(tol))
+    return dataclasses.replace(study, tolerances=ReadOnlyMapping(tol))

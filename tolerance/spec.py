@@ -665,6 +665,6 @@ def from_normalised(d, base_dir=None, source_text=None) -> Study:
 
 
 def _freeze(value):
-    from .dispersion import frozen
+    from .frozen import frozen
 
     return frozen(value)

@@ -11,16 +11,16 @@ from __future__ import annotations
 import json
 from collections.abc import Mapping
 from dataclasses import dataclass, field
-from types import MappingProxyType
 
 import numpy as np
 
 from .distributions import Distribution
+from .frozen import ReadOnlyMapping
 from .tolerances import DRIFT, SHORT
 
 
 def _proxy(d) -> Mapping:
-    return MappingProxyType(dict(d))
+    return ReadOnlyMapping(dict(d))
 
 
 @dataclass(frozen=True)
