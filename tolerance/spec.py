@@ -16,6 +16,7 @@ import tomllib
 from pathlib import Path
 
 from .errors import RetolError
+from .limits import check_spec_text
 from .units import interval_nm, length_um, wavelength_nm
 
 TOP_KEYS = (
@@ -556,6 +557,7 @@ def load_spec(path) -> dict:
         raise RetolError(str(p), "no such spec file", "check the path")
     try:
         text = p.read_bytes().decode("utf-8")
+        check_spec_text(text, p.name)  # size and nesting limits before tomllib parses it
         raw = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise RetolError(p.name, f"is not valid TOML ({exc})", "fix the syntax") from None

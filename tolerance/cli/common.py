@@ -103,8 +103,10 @@ def user_errors(func):
             return func(*args, **kwargs)
         except RetolError as exc:
             fail(str(exc))
-        except KeyboardInterrupt:
-            fail("interrupted; nothing was written", code=130)
+        except KeyboardInterrupt as exc:  # Ctrl-C, or SIGTERM / SIGHUP (tolerance.publish)
+            from ..publish import interrupt_message
+
+            fail(*interrupt_message(exc))
         finally:
             warnings.showwarning = old
 
