@@ -248,15 +248,33 @@ def terminate_as_interrupt():
 
 @contextlib.contextmanager
 def _signals_held():
-    """Hold SIGINT, SIGTERM and SIGHUP back for a few renames; they arrive afterwards."""
+    """Hold SIGINT, SIGTERM and SIGHUP back for a few renames; they take effect afterwards.
+
+    Python runs signal handlers in the main thread whichever thread the signal reached (numba's
+    worker threads included), so swapping the handlers defers them; a thread signal mask would
+    not, since the kernel may deliver the signal to another thread.
+    """
     if threading.current_thread() is not threading.main_thread():
         yield
         return
-    old = signal.pthread_sigmask(signal.SIG_BLOCK, _HELD)
+    pending = []
+
+    def defer(signum, frame):
+        pending.append(signum)
+
+    old = {s: signal.signal(s, defer) for s in _HELD}
     try:
         yield
     finally:
-        signal.pthread_sigmask(signal.SIG_SETMASK, old)
+        for s, h in old.items():
+            signal.signal(s, h)
+        if pending:
+            signum = pending[0]
+            handler = old[signum]
+            if callable(handler):
+                handler(signum, None)
+            elif handler == signal.SIG_DFL:
+                signal.raise_signal(signum)
 
 
 # ----------------------------------------------------------------------------- moves
