@@ -13,6 +13,8 @@ settings.register_profile(
     max_examples=60,
     suppress_health_check=[HealthCheck.too_slow],
 )
+# a long fuzzing run: pytest tests/test_spec_fuzz.py --hypothesis-profile=soak
+settings.register_profile("soak", parent=settings.get_profile("retol"), max_examples=20_000)
 settings.load_profile("retol")
 
 

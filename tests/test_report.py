@@ -285,8 +285,9 @@ def test_folder_holding_only_the_run_grid_is_accepted(small, tmp_path, fast_figu
     (out / "grid.nc").write_bytes(b"grid")
     check_writable(out)
     write_report(small, out)
-    assert sorted(p.name for p in out.iterdir()) == ["figures", "grid.nc", "report.html",
-                                                    "summary.csv"]
+    # .retol-manifest.json lists the files retol wrote (tolerance.publish)
+    assert sorted(p.name for p in out.iterdir()) == [".retol-manifest.json", "figures", "grid.nc",
+                                                    "report.html", "summary.csv"]
     assert (out / "grid.nc").read_bytes() == b"grid"
 
 

@@ -317,26 +317,38 @@ def material_from_dict(d: dict, path: str = "<dict>") -> Material:
 
 def load_material_file(path) -> Material:
     """Read a material from a TOML file of the shipped form, or from a measured CSV table."""
+    from .limits import check_spec_text, read_data_file
+
     p = Path(path)
-    if not p.is_file():
+    if not p.exists():
         raise RetolError("material", f"no such material file {str(p)!r}", "check the path")
-    if p.suffix.lower() == ".csv":
-        return _load_table(p)
+    # a regular file of bounded size (a pipe or /dev/zero would hang or read without end)
+    data = read_data_file(p, "material", what="material .toml or .csv file")
     try:
-        with p.open("rb") as f:
-            d = tomllib.load(f)
+        text = data.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        raise RetolError(
+            p.name, f"is not UTF-8 text (byte {exc.start})", "save the file as UTF-8"
+        ) from None
+    if p.suffix.lower() == ".csv":
+        return _load_table(p, text)
+    check_spec_text(text, p.name)
+    try:
+        d = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise RetolError(p.name, f"is not valid TOML ({exc})", "fix the file's syntax") from None
     return material_from_dict(d, str(p))
 
 
-def _load_table(p: Path) -> Material:
+def _load_table(p: Path, text: str) -> Material:
     """A measured table: columns wavelength_nm and n_o, n_e, or birefringence."""
-    try:
-        with p.open(newline="") as f:
-            rows = [r for r in csv.reader(f) if r and not r[0].lstrip().startswith("#")]
-    except (OSError, UnicodeDecodeError) as exc:
-        raise RetolError(p.name, f"cannot be read ({exc})", "give a UTF-8 CSV file") from None
+    import io
+
+    rows = [
+        r
+        for r in csv.reader(io.StringIO(text, newline=""))
+        if r and not r[0].lstrip().startswith("#")
+    ]
     if len(rows) < 3:
         raise RetolError(p.name, "needs a header and at least two rows", "add measured rows")
     header = [h.strip().lower() for h in rows[0]]
@@ -352,6 +364,12 @@ def _load_table(p: Path) -> Material:
         raise RetolError(p.name, "has NaN or infinite values", "remove them")
     col = {h: data[:, i] for i, h in enumerate(header)}
     wl = col["wavelength_nm"]
+    if np.any(wl <= 0):
+        raise RetolError(
+            f"{p.name}: wavelength_nm",
+            f"has a wavelength <= 0 ({wl[wl <= 0][0]:g})",
+            "give vacuum wavelengths in nm, all positive",
+        )
     order = np.argsort(wl)
     wl = wl[order]
     if np.any(np.diff(wl) <= 0):

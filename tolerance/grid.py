@@ -465,13 +465,26 @@ def to_dataset(eng, results, tol_keys) -> xr.Dataset:
 
 
 def save_grid(ds: xr.Dataset, path) -> Path:
-    """Write the grid as NetCDF (h5netcdf), atomically: a temporary file then a rename."""
+    """Write the grid as NetCDF (h5netcdf), atomically: a temporary file then a rename.
+
+    The NetCDF image is built in memory and written with plain writes, because HDF5 that meets
+    a full disk or a file-size limit mid-file prints errors and may crash the process; here a
+    full disk is an ``OSError`` (ENOSPC, EFBIG) and the temporary file is removed.
+
+    Raises
+    ------
+    OSError
+        The file cannot be written (no space, file-size limit, permissions).
+    """
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
+    image = ds.to_netcdf(engine="h5netcdf", invalid_netcdf=False)
     fd, tmp = tempfile.mkstemp(prefix=".grid-", suffix=".nc.part", dir=path.parent)
-    os.close(fd)
     try:
-        ds.to_netcdf(tmp, engine="h5netcdf", invalid_netcdf=False)
+        with os.fdopen(fd, "wb") as f:
+            f.write(image)
+            f.flush()
+            os.fsync(f.fileno())
         os.replace(tmp, path)
     except BaseException:
         Path(tmp).unlink(missing_ok=True)

@@ -60,6 +60,8 @@ STYLE = {
     "savefig.facecolor": "white",
     "svg.fonttype": "path",
     "pdf.fonttype": 42,
+    # every text is plain: a candidate named "a $x^$ plate" is drawn as typed, not as mathtext
+    "text.parse_math": False,
 }
 
 #: Quantile levels the band figures use.

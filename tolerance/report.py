@@ -7,21 +7,17 @@
 - ``summary.csv``: one row per candidate;
 - ``figures/``: every figure in each requested format (png, svg, pdf).
 
-Writing is all-or-nothing: the files are built in a temporary folder next to the destination
-(same parent, so the final moves are renames on one file system) and only then moved in.
+Writing is all-or-nothing, one writer at a time, and only retol's own files are ever replaced:
+see :mod:`tolerance.publish`.
 """
 
 from __future__ import annotations
 
 import base64
-import contextlib
 import csv
 import html
 import io
 import json
-import os
-import shutil
-import tempfile
 from pathlib import Path
 
 import numpy as np
@@ -73,17 +69,13 @@ LASER_CAUTION = (
 # ----------------------------------------------------------------------------- folder checks
 
 
-def _holds_report(folder: Path) -> bool:
-    return any((folder / n).exists() for n in (REPORT_FILE, SUMMARY_FILE, FIGURE_DIR))
-
-
 def check_writable(out_dir, force: bool = False) -> Path:
     """Check that a report may be written into ``out_dir``; return it as an absolute path.
 
     Call this before a long run so that a bad ``--out`` fails at once.  A folder that does not
-    exist yet, or exists and holds no report (e.g. only the ``grid.nc`` the current run just
-    wrote), is fine; one that holds a previous report (``report.html``, ``summary.csv`` or
-    ``figures/``) is refused unless ``force``.
+    exist yet, or holds no report retol wrote (e.g. only a grid.nc, or only files of the
+    user's), is fine; one that holds a previous report (``report.html``, ``summary.csv`` or
+    figures retol drew) is refused unless ``force``.  See :mod:`tolerance.publish`.
 
     Raises
     ------
@@ -91,24 +83,9 @@ def check_writable(out_dir, force: bool = False) -> Path:
         Field "--out": the path is a file, holds a report (fix: use --force or another folder),
         or its nearest existing ancestor is not a writable folder.
     """
-    out = Path(out_dir).expanduser().absolute()
-    if out.exists() and not out.is_dir():
-        raise RetolError("--out", f"{out} is a file, not a folder", "give a folder path")
-    if out.is_dir() and _holds_report(out) and not force:
-        raise RetolError("--out", f"{out} already holds a report", "use --force or another folder")
-    ancestor = out.parent
-    while not ancestor.exists() and ancestor != ancestor.parent:
-        ancestor = ancestor.parent
-    if not ancestor.is_dir():
-        raise RetolError(
-            "--out", f"cannot create {out}: {ancestor} is not a folder", "choose another folder"
-        )
-    for folder in (ancestor, out) if out.is_dir() else (ancestor,):
-        if not os.access(folder, os.W_OK | os.X_OK):
-            raise RetolError(
-                "--out", f"cannot write in {folder}", "choose a folder you can write to"
-            )
-    return out
+    from .publish import REPORT, check_target
+
+    return check_target(out_dir, force, REPORT)
 
 
 def check_grid(grid) -> None:
@@ -855,6 +832,23 @@ def _render_all(grid, folder: Path, formats):
     return embedded
 
 
+def render_report(grid, folder, formats=("png",), command=None) -> Path:
+    """Write report.html, summary.csv and figures/ into the existing folder ``folder``.
+
+    No checks of the folder and no publishing: :func:`write_report` (and ``retol run``) call
+    this on a part folder that :class:`tolerance.publish.Output` then moves into place.
+    """
+    from .plots import check_formats
+
+    formats = check_formats(formats)
+    check_grid(grid)
+    folder = Path(folder)
+    figures = _render_all(grid, folder / FIGURE_DIR, formats)
+    write_summary_csv(grid, folder / SUMMARY_FILE)
+    (folder / REPORT_FILE).write_text(build_html(grid, figures, command), encoding="utf-8")
+    return folder / REPORT_FILE
+
+
 def write_report(grid, out_dir, formats=("png",), force: bool = False, command=None) -> Path:
     """Write report.html, summary.csv and figures/ for ``grid`` into ``out_dir``.
 
@@ -869,7 +863,7 @@ def write_report(grid, out_dir, formats=("png",), force: bool = False, command=N
         Figure file formats for figures/: any of "png", "svg", "pdf".  The HTML always embeds
         PNG.
     force : bool
-        Replace a previous report in ``out_dir``.
+        Replace a previous report in ``out_dir`` (only the files retol wrote).
     command : str, optional
         The command line that wrote this report, shown in it.
 
@@ -880,58 +874,26 @@ def write_report(grid, out_dir, formats=("png",), force: bool = False, command=N
 
     Notes
     -----
-    Everything is built in a temporary folder in ``out_dir``'s parent; if anything fails it is
-    removed and ``out_dir`` is untouched.  Then, if ``out_dir`` does not exist, the temporary
-    folder is renamed to it (one atomic step); otherwise figures/ is swapped in and the two
-    files are moved in with ``os.replace``, report.html last, so that a report.html on disk
-    always belongs to a complete report.  Callers that run a long job first should call
+    Everything is built in a part folder on the destination's file system and published all
+    or nothing by :class:`tolerance.publish.Output`; if anything fails the part folder is
+    removed and ``out_dir`` is untouched.  Callers that run a long job first should call
     :func:`check_writable` before the job.
 
     Raises
     ------
     RetolError
-        Unknown format ("--format"); a bad, unwritable or already-reported-in ``out_dir``
+        Unknown format ("--format"); a bad, unwritable, busy or already-reported-in ``out_dir``
         ("--out"); a Dataset that is not a results grid ("grid").
     """
     from .plots import check_formats
+    from .publish import REPORT, Output, write_error
 
     formats = check_formats(formats)
     check_grid(grid)
-    out = check_writable(out_dir, force)
-    parent = out.parent
-    try:
-        parent.mkdir(parents=True, exist_ok=True)
-        tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.partial-", dir=parent))
-        umask = os.umask(0)
-        os.umask(umask)
-        tmp.chmod(0o777 & ~umask)  # mkdtemp makes it private; the report folder should not be
-    except OSError as exc:
-        raise RetolError(
-            "--out",
-            f"cannot write in {parent}: {exc.strerror or exc}",
-            "choose a folder you can write to",
-        ) from None
-    try:
-        figures = _render_all(grid, tmp / FIGURE_DIR, formats)
-        write_summary_csv(grid, tmp / SUMMARY_FILE)
-        (tmp / REPORT_FILE).write_text(build_html(grid, figures, command), encoding="utf-8")
-        if not out.exists():
-            os.replace(tmp, out)
-            return out / REPORT_FILE
-        old = out / FIGURE_DIR
-        if old.exists():
-            os.replace(old, tmp / ".previous-figures")
-        os.replace(tmp / FIGURE_DIR, old)
-        for name in (SUMMARY_FILE, REPORT_FILE):
-            os.replace(tmp / name, out / name)
-    except OSError as exc:
-        raise RetolError(
-            "--out",
-            f"cannot write the report into {out}: {exc.strerror or exc}",
-            "choose a folder you can write to",
-        ) from None
-    finally:
-        with contextlib.suppress(OSError):
-            if tmp.exists():
-                shutil.rmtree(tmp)
-    return out / REPORT_FILE
+    with Output(out_dir, force=force, replaces=REPORT, command=command) as out:
+        try:
+            render_report(grid, out.part, formats, command)
+        except OSError as exc:
+            raise write_error(exc, "--out", f"cannot write the report for {out.target}") from None
+        target = out.publish()
+    return target / REPORT_FILE

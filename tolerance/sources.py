@@ -767,16 +767,19 @@ def read_spectrum_csv(path: pathlib.Path, field: str) -> tuple[np.ndarray, np.nd
     Raises
     ------
     RetolError
-        Naming ``field`` when the file is missing or unreadable, a value is not a finite number,
+        Naming ``field`` when the file is missing, unreadable, not a regular file (a pipe or
+        device) or larger than :data:`tolerance.limits.MAX_DATA_BYTES`, a value is not a finite
+        number,
         a wavelength is not positive or repeated, a power is negative or all powers are zero, or
         there are fewer than 2 rows.
     """
+    from .limits import read_data_file
+
     name = path.name
+    data = read_data_file(path, field, what="spectrum CSV file")  # a regular file, size capped
     try:
-        text = path.read_text(encoding="utf-8-sig")
-    except FileNotFoundError:
-        raise RetolError(field, f"no such file {str(path)!r}", "check the path") from None
-    except (OSError, UnicodeDecodeError) as exc:
+        text = data.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
         raise RetolError(field, f"cannot read {name} ({exc})", "give a UTF-8 CSV file") from None
     rows = []
     first = True

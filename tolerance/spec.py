@@ -18,6 +18,7 @@ from pathlib import Path
 
 from . import distributions
 from .errors import RetolError
+from .limits import check_spec_text
 from .plates import CONSTRUCTION_KEYS, CONSTRUCTIONS
 from .study import (
     Candidate,
@@ -335,6 +336,11 @@ def _wavelength(ctx: _Ctx, raw: dict) -> WavelengthGrid:
         raise ctx.err("[wavelength].step", f"must be positive, got {w['step']!r}", 'e.g. "0.5nm"')
     if stop < start:
         raise ctx.err("[wavelength].stop", f"{stop:g} nm is below start {start:g} nm", "swap them")
+    count = (stop - start) / step + 1.0
+    if not count <= MAX_WAVELENGTHS:
+        raise ctx.err(
+            "[wavelength].step", f"gives {count:.3g} wavelengths", f"use at most {MAX_WAVELENGTHS}"
+        )
     n = int(math.floor((stop - start) / step + 1e-9)) + 1
     if n > MAX_WAVELENGTHS:
         raise ctx.err(
@@ -602,6 +608,7 @@ def load_spec(path) -> Study:
 def loads(text: str, path: str = "<spec>", base_dir=None) -> Study:
     """Validate a spec given as TOML text (e.g. a built-in example)."""
     name = Path(path).name
+    check_spec_text(text, name)  # size and nesting limits before tomllib parses it
     try:
         raw = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:

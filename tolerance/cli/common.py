@@ -73,7 +73,37 @@ class FiniteFloat(click.ParamType):
         return v
 
 
+class BoundedFloat(FiniteFloat):
+    """A finite number inside physical bounds (strict where ``strict``), with the fix to show."""
+
+    def __init__(self, name, low=None, high=None, strict=(False, False), fix=""):
+        self.name, self.low, self.high, self.strict, self.fix = name, low, high, strict, fix
+
+    def convert(self, value, param, ctx):
+        v = super().convert(value, param, ctx)
+        below = self.low is not None and (v <= self.low if self.strict[0] else v < self.low)
+        above = self.high is not None and (v >= self.high if self.strict[1] else v > self.high)
+        if below or above:
+            self.fail(f"{_label(param)}: {v:g} is out of range ({self.fix})", param, ctx)
+        return v
+
+
 FLOAT = FiniteFloat()
+#: A temperature [C]: above absolute zero (-273.15 C).
+TEMPERATURE = BoundedFloat(
+    "temperature",
+    low=-273.15,
+    strict=(True, False),
+    fix="a temperature in C above absolute zero, -273.15 C",
+)
+#: An angle of incidence [deg]: light must enter the plate, so |tilt| < 90 deg.
+TILT = BoundedFloat(
+    "angle",
+    low=-90.0,
+    high=90.0,
+    strict=(True, True),
+    fix="an angle of incidence in degrees, between -90 and 90 exclusive",
+)
 WAVELENGTH = WavelengthType()
 LENGTH = LengthType()
 
@@ -103,8 +133,10 @@ def user_errors(func):
             return func(*args, **kwargs)
         except RetolError as exc:
             fail(str(exc))
-        except KeyboardInterrupt:
-            fail("interrupted; nothing was written", code=130)
+        except KeyboardInterrupt as exc:  # Ctrl-C, or SIGTERM / SIGHUP (tolerance.publish)
+            from ..publish import interrupt_message
+
+            fail(*interrupt_message(exc))
         finally:
             warnings.showwarning = old
 

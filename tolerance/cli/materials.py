@@ -5,7 +5,7 @@ from __future__ import annotations
 import click
 
 from .common import (
-    FLOAT,
+    TEMPERATURE,
     WAVELENGTH,
     echo_json,
     extrapolate_option,
@@ -58,7 +58,7 @@ def materials(ctx, as_json):
 )
 @click.option(
     "--temperature",
-    type=FLOAT,
+    type=TEMPERATURE,
     default=None,
     help="Temperature [C]; default the material's reference temperature.",
 )

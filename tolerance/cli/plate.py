@@ -7,6 +7,7 @@ import click
 from .common import (
     FLOAT,
     LENGTH,
+    TEMPERATURE,
     WAVELENGTH,
     echo_json,
     extrapolate_option,
@@ -129,7 +130,7 @@ def build_plate(
 @click.option("--from", "start", type=WAVELENGTH, help="Band start for the table.")
 @click.option("--to", "stop", type=WAVELENGTH, help="Band end for the table.")
 @click.option("--step", type=WAVELENGTH, default=10.0, show_default=True, help="Band step.")
-@click.option("--temperature", type=FLOAT, default=None, help="Plate temperature [C].")
+@click.option("--temperature", type=TEMPERATURE, default=None, help="Plate temperature [C].")
 @extrapolate_option
 @json_option
 @user_errors

@@ -5,98 +5,39 @@ from __future__ import annotations
 import shlex
 import shutil
 import sys
-import tempfile
 from pathlib import Path
 
 import click
 
-from .common import echo_json, table, user_errors
+from .common import echo_json, fail, table, user_errors
 
-#: What a run writes into its output folder; nothing else there is ever touched.
-OUTPUTS = ("grid.nc", "summary.csv", "figures", "report.html")
-
-
-def output_folder(out, spec_path: Path, force: bool) -> Path:
-    """The run's output folder; refuse one that holds a result unless --force.
-
-    Other files in the folder are left alone, with or without --force.
-    """
-    import os
-
-    from ..errors import RetolError
-
-    folder = Path(out) if out else Path("reports") / spec_path.stem
-    if folder.exists() and not folder.is_dir():
-        raise RetolError("--out", f"{str(folder)!r} is a file", "give a folder")
-    if folder.is_dir() and not force:
-        held = [name for name in OUTPUTS if (folder / name).exists()]
-        if held:
-            raise RetolError(
-                "--out",
-                f"{str(folder)!r} already holds results ({', '.join(held)})",
-                "pass --force to replace them, or choose another --out",
-            )
-    probe = folder.resolve()
-    while not probe.exists():
-        probe = probe.parent
-    if not probe.is_dir():
-        raise RetolError("--out", f"{str(probe)!r} is a file, not a folder", "choose another --out")
-    if not os.access(probe, os.W_OK | os.X_OK):
-        raise RetolError("--out", f"cannot write into {str(probe)!r}", "choose a writable folder")
-    return folder
+#: Exit status when the results grid was written but the report was not.
+REPORT_FAILED = 3
 
 
-def _umask() -> int:
-    import os
+def run_size(spec, samples, keep_samples) -> tuple[int, int, int, bool]:
+    """Candidates, wavelengths, samples and keep_samples of the run about to start."""
+    n = int(samples if samples is not None else spec.run.samples)
+    keep = bool(spec.run.keep_samples if keep_samples is None else keep_samples)
+    return len(spec.candidates), int(spec.wavelength.count), n, keep
 
-    mask = os.umask(0)
-    os.umask(mask)
-    return mask
 
+def check_run_memory(spec, samples, chunk_size, keep_samples=None) -> None:
+    """Refuse, before any work, a run whose memory estimate exceeds the available memory."""
+    from ..limits import check_memory, run_memory_bytes
 
-def publish(tmp: Path, folder: Path):
-    """Move a finished temporary folder's outputs into place.
-
-    A new folder arrives in one rename.  Into an existing folder each output is moved with an
-    atomic replace (``report.html`` last), our outputs from an earlier run that this run did not
-    make are removed, and every other file is left as it was.
-    """
-    import os
-
-    mask = _umask()
-    os.chmod(tmp, 0o777 & ~mask)
-    for p in tmp.rglob("*"):
-        os.chmod(p, (0o777 if p.is_dir() else 0o666) & ~mask)
-    folder.parent.mkdir(parents=True, exist_ok=True)
-    if not folder.exists():
-        try:
-            tmp.rename(folder)
-            return
-        except OSError:
-            pass
-    folder.mkdir(parents=True, exist_ok=True)
-    made = {p.name for p in tmp.iterdir()}
-    order = [n for n in OUTPUTS if n in made] + sorted(made - set(OUTPUTS))
-    for name in order:
-        src, dst = tmp / name, folder / name
-        if src.is_dir():
-            old = None
-            if dst.exists():
-                old = folder / f".{name}.old-{next(tempfile._get_candidate_names())}"
-                dst.rename(old)
-            src.rename(dst)
-            if old is not None:
-                shutil.rmtree(old, ignore_errors=True)
-        else:
-            os.replace(src, dst)
-    for name in OUTPUTS:
-        stale = folder / name
-        if name not in made and stale.exists():
-            if stale.is_dir():
-                shutil.rmtree(stale, ignore_errors=True)
-            else:
-                stale.unlink()
-    shutil.rmtree(tmp, ignore_errors=True)
+    candidates, wavelengths, n, keep = run_size(spec, samples, keep_samples)
+    if n < 1:
+        return  # the engine names the bad --samples
+    need = run_memory_bytes(candidates, wavelengths, n, keep, int(chunk_size or 16384))
+    what = f"{n:,} samples x {candidates} candidates" + (
+        f" x {wavelengths} wavelengths kept" if keep else ""
+    )
+    check_memory(
+        need,
+        "--samples",
+        f"{what}; use fewer samples" + (" or drop keep_samples" if keep else ""),
+    )
 
 
 def summary_rows(ds):
@@ -227,22 +168,19 @@ def execute(
     argv=None,
     quiet=False,
 ):
-    """Run a spec end to end: Monte Carlo, grid, report, all written atomically into --out."""
-    from ..errors import RetolError
+    """Run a spec end to end: Monte Carlo, grid, report, published all or nothing into --out.
+
+    The output folder is checked, locked and its part folder made before the Monte Carlo (see
+    :mod:`tolerance.publish`).  If the report fails after the run, the grid is still published
+    and the command ends with one line naming what failed and exit status 3.
+    """
     from ..grid import save_grid
     from ..montecarlo import run as mc_run
+    from ..publish import RUN, Output, write_error
 
-    folder = output_folder(out, spec_path, force).resolve()
-    # make the temporary folder first, so that an unwritable place fails before the long run
-    try:
-        folder.parent.mkdir(parents=True, exist_ok=True)
-        tmp = Path(tempfile.mkdtemp(prefix=f".{folder.name}.part-", dir=folder.parent))
-    except OSError as exc:
-        raise RetolError(
-            "--out",
-            f"cannot write into {str(folder.parent)!r} ({exc.strerror or exc})",
-            "choose a folder you can write to",
-        ) from None
+    folder = Path(out) if out else Path("reports") / spec_path.stem
+    command = " ".join(shlex.quote(a) for a in (argv or ["retol"] + sys.argv[1:]))
+    check_run_memory(spec, samples, chunk_size)
     bar = None
     state = {"last": 0}
 
@@ -258,29 +196,21 @@ def execute(
         bar.update(done - state["last"])
         state["last"] = done
 
-    try:
+    report_error = None
+    with Output(folder, force=force, replaces=RUN, command=command) as target:
         try:
             ds = mc_run(spec, samples=samples, seed=seed, chunk_size=chunk_size, progress=progress)
         finally:
             if bar is not None:
                 bar.__exit__(None, None, None)
-        ds.attrs["command"] = " ".join(shlex.quote(a) for a in (argv or ["retol"] + sys.argv[1:]))
-        save_grid(ds, tmp / "grid.nc")
+        ds.attrs["command"] = command
+        try:
+            save_grid(ds, target.part / "grid.nc")
+        except OSError as exc:
+            raise write_error(exc, "--out", f"cannot write grid.nc for {target.target}") from None
         if write_report:
-            from ..report import write_report as _write
-
-            _write(ds, tmp, formats=formats, force=True, command=ds.attrs["command"])
-        publish(tmp, folder)
-    except OSError as exc:
-        shutil.rmtree(tmp, ignore_errors=True)
-        raise RetolError(
-            "--out",
-            f"cannot write the results into {str(folder)!r} ({exc.strerror or exc})",
-            "choose a folder you can write to",
-        ) from None
-    except BaseException:
-        shutil.rmtree(tmp, ignore_errors=True)
-        raise
+            report_error = _report_into(ds, target.part, formats, command)
+        folder = target.publish()
     rows = summary_rows(ds)
     if as_json:
         echo_json({"candidates": rows, "output": str(folder)})
@@ -290,7 +220,29 @@ def execute(
             f"\nwrote {folder / 'grid.nc'}"
             + (f", {folder / 'report.html'}, summary.csv and figures/" if write_report else "")
         )
+    if report_error is not None:
+        grid = shlex.quote(str(folder / "grid.nc"))
+        fail(
+            f"report: not written ({report_error}); the results grid was kept in "
+            f"{folder / 'grid.nc'} (write the report later with: retol report {grid})",
+            code=REPORT_FAILED,
+        )
     return ds, folder
+
+
+def _report_into(ds, part: Path, formats, command) -> str | None:
+    """Write the report into the part folder; on failure remove its pieces and say why."""
+    from ..report import FIGURE_DIR, REPORT_FILE, SUMMARY_FILE, render_report
+
+    try:
+        render_report(ds, part, formats=formats, command=command)
+        return None
+    except Exception as exc:  # a finished grid is never lost to a failing report
+        shutil.rmtree(part / FIGURE_DIR, ignore_errors=True)
+        for name in (REPORT_FILE, SUMMARY_FILE):
+            (part / name).unlink(missing_ok=True)
+        detail = " ".join(str(exc).split())[:200]
+        return f"{type(exc).__name__}: {detail}" if detail else type(exc).__name__
 
 
 @click.command()

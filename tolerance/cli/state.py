@@ -4,7 +4,16 @@ from __future__ import annotations
 
 import click
 
-from .common import FLOAT, WAVELENGTH, echo_json, extrapolate_option, json_option, user_errors
+from .common import (
+    FLOAT,
+    TEMPERATURE,
+    TILT,
+    WAVELENGTH,
+    echo_json,
+    extrapolate_option,
+    json_option,
+    user_errors,
+)
 from .plate import build_plate, plate_options
 
 
@@ -25,9 +34,7 @@ from .plate import build_plate, plate_options
 )
 @plate_options
 @click.option("--at", "at", type=WAVELENGTH, help="Wavelength for a real plate (default: design).")
-@click.option(
-    "--tilt", type=FLOAT, default=0.0, show_default=True, help="Angle of incidence [deg]."
-)
+@click.option("--tilt", type=TILT, default=0.0, show_default=True, help="Angle of incidence [deg].")
 @click.option(
     "--tilt-azimuth",
     "tilt_azimuth",
@@ -36,7 +43,7 @@ from .plate import build_plate, plate_options
     show_default=True,
     help="Azimuth of the plane of incidence from x [deg].",
 )
-@click.option("--temperature", type=FLOAT, default=None, help="Plate temperature [C].")
+@click.option("--temperature", type=TEMPERATURE, default=None, help="Plate temperature [C].")
 @click.option(
     "--target",
     default=None,
@@ -142,6 +149,8 @@ def state(
     if analyzer is not None:
         out["extinction_db"] = float(analyzer_extinction_db(S, analyzer))
     if target is not None:
+        import math
+
         from ..polarization import fidelity, goal_vector
 
         t = target.strip().lower()
@@ -149,7 +158,10 @@ def state(
             g = goal_vector("circular", handedness=1 if t == "right" else -1)
         else:
             try:
-                g = goal_vector("linear", float(t))
+                azimuth = float(t)
+                if not math.isfinite(azimuth):
+                    raise ValueError(t)
+                g = goal_vector("linear", azimuth)
             except ValueError:
                 raise RetolError(
                     "--target", f"cannot read {target!r}", "use right, left or an angle in degrees"
