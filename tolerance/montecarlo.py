@@ -381,7 +381,7 @@ class Engine:
         y = eng.pass_rate(case)
     """
 
-    def __init__(self, study: Study, samples=None, seed=None, chunk_size=None):
+    def __init__(self, study: Study, samples=None, seed=None, chunk_size=None, client=None):
         r = study.run
         n = samples if samples is not None else r.samples
         if isinstance(n, bool) or not isinstance(n, int | np.integer) or n < 1:
@@ -406,8 +406,16 @@ class Engine:
         self.spectrum = study.source.spectrum
         self.draws = Draws(self.seed)
         self.metric_code = METRICS[study.goal.metric]
-        self.cases = tuple(self.case(i) for i in range(len(study.candidates)))
         self._optics: dict = {}
+        self.cases = tuple(self.case(i) for i in range(len(study.candidates)))
+        #: a dask.distributed client (see :mod:`tolerance.cluster`), or None to run here
+        self.client = client
+
+    def __getstate__(self):
+        # what travels to a worker: no client, no cached draws or optics (made again there)
+        state = dict(self.__dict__)
+        state.update(client=None, draws=Draws(self.seed), _optics={})
+        return state
 
     # ------------------------------------------------------------------ cases
     def case(self, candidate, tolerances=None, scale=None, plate=None) -> Case:
@@ -571,6 +579,13 @@ class Engine:
 
     def pass_rate(self, case: Case, n: int | None = None, active=None) -> float:
         """The share of the first ``n`` samples that meet the goal (same draws every call)."""
+        if self.client is not None:
+            from .cluster import map_ordered, task_ranges
+
+            n = self.samples if n is None else int(n)
+            ranges = task_ranges(n, sampler.BLOCK)
+            passes = sum(map_ordered(self.client, _pass_task, ranges, self, case, active))
+            return passes / n
         worst, sst = self.pass_values(case, n, active)
         pm = self.pass_metric(worst, sst, case.goal)
         return float(np.mean(pm >= self.study.goal.min))
@@ -602,6 +617,8 @@ class Engine:
         )
         bins = histogram_bins(W)
         lo, iw = _ranges(pil_kept, nom.values, bins)
+        if self.client is not None:
+            return self._main_pass_cluster(case, lo, iw, bins, ret_shift, keep, progress)
         acc = Accumulator(n, W, lo, iw, bins, numba.get_num_threads(), keep)
         for start, stop in _chunks(n, self.chunk):
             inputs, extra = sample_inputs(case, self.study, self.draws, start, stop)
@@ -613,6 +630,32 @@ class Engine:
             acc.design_stokes[start:stop] = dst
             for b in range(stats.block_sums.shape[0]):
                 acc.sums += stats.block_sums[b]
+            if progress:
+                progress(stop - start)
+        return acc
+
+    def _main_pass_cluster(self, case, lo, iw, bins, ret_shift, keep, progress) -> Accumulator:
+        """The main pass as dask tasks of whole blocks, combined in block order."""
+        from .cluster import map_ordered, task_ranges
+
+        n, W = self.samples, self.grid.size
+        acc = Accumulator(n, W, lo, iw, bins, 1, keep)
+        acc.hist = np.zeros((1,) + acc.hist.shape[1:], dtype=np.int64)
+        ranges = task_ranges(n, sampler.BLOCK)
+        parts = map_ordered(
+            self.client, _main_task, ranges, self, case, (lo, iw, bins, ret_shift, keep)
+        )
+        for (start, stop), part in zip(ranges, parts, strict=True):
+            acc.hist[0] += part["hist"]
+            np.minimum(acc.vmin[0], part["vmin"], out=acc.vmin[0])
+            np.maximum(acc.vmax[0], part["vmax"], out=acc.vmax[0])
+            for b in range(part["block_sums"].shape[0]):
+                acc.sums += part["block_sums"][b]
+            acc.worst[start:stop] = part["worst"]
+            acc.spec_stokes[start:stop] = part["spec_stokes"]
+            acc.design_stokes[start:stop] = part["design_stokes"]
+            if keep:
+                acc.kept[start:stop] = part["kept"]
             if progress:
                 progress(stop - start)
         return acc
@@ -651,6 +694,58 @@ class Engine:
                 if progress:
                     progress(n_sens)
         return alone, without, full, nominal_pass, n_sens
+
+
+def _main_task(sample_range, eng: Engine, case: Case, setup) -> dict:
+    """One dask task of the main pass: samples [start, stop) of whole blocks, chunk by chunk
+    exactly as :meth:`Engine._main_pass` does them, with this range's own statistics."""
+    import numba
+
+    from .cluster import cap_threads
+
+    cap_threads()
+    start, stop = sample_range
+    lo, iw, bins, ret_shift, keep = setup
+    W = eng.grid.size
+    acc = Accumulator(stop - start, W, lo, iw, bins, numba.get_num_threads(), keep)
+    sums = []
+    for a, b in _chunks(stop - start, eng.chunk):
+        inputs, extra = sample_inputs(case, eng.study, eng.draws, start + a, start + b)
+        stats = eng._stats(acc, b - a, True, ret_shift)
+        kept_view = acc.kept[a:b] if keep else None
+        worst, sst, dst = eng._call(case, inputs, extra, stats, b - a, kept_view)
+        acc.worst[a:b] = worst
+        acc.spec_stokes[a:b] = sst
+        acc.design_stokes[a:b] = dst
+        sums.append(stats.block_sums)
+    return {
+        "hist": acc.hist.sum(axis=0),
+        "vmin": acc.vmin.min(axis=0),
+        "vmax": acc.vmax.max(axis=0),
+        "block_sums": np.concatenate(sums),
+        "worst": acc.worst,
+        "spec_stokes": acc.spec_stokes,
+        "design_stokes": acc.design_stokes,
+        "kept": acc.kept,
+    }
+
+
+def _pass_task(sample_range, eng: Engine, case: Case, active) -> int:
+    """One dask task of a pass-rate count: how many of samples [start, stop) pass."""
+    from .cluster import cap_threads
+
+    cap_threads()
+    start, stop = sample_range
+    worst = np.empty(stop - start)
+    sst = np.empty((stop - start, 3))
+    ret_shift = np.zeros(eng.grid.size)
+    for a, b in _chunks(stop - start, eng.chunk):
+        inputs, extra = sample_inputs(case, eng.study, eng.draws, start + a, start + b, active)
+        w, st, _ = eng._call(case, inputs, extra, eng._stats(None, b - a, False, ret_shift), b - a)
+        worst[a:b] = w
+        sst[a:b] = st
+    pm = eng.pass_metric(worst, sst, case.goal)
+    return int(np.sum(pm >= eng.study.goal.min))
 
 
 def tolerance_names(cases) -> tuple[str, ...]:
@@ -742,7 +837,15 @@ def dominant_tolerance(alone, without, yield_sens, nominal_pass) -> str:
     return "none"
 
 
-def run(study: Study, samples=None, seed=None, chunk_size=None, progress=None, keep_samples=None):
+def run(
+    study: Study,
+    samples=None,
+    seed=None,
+    chunk_size=None,
+    progress=None,
+    keep_samples=None,
+    client=None,
+):
     """Run the Monte Carlo of a validated study and return the results grid.
 
     Parameters
@@ -756,6 +859,9 @@ def run(study: Study, samples=None, seed=None, chunk_size=None, progress=None, k
         Called after every chunk with sample counts summed over candidates and passes.
     keep_samples : bool, optional
         Keep per-sample values at every wavelength (memory grows with samples × wavelengths).
+    client : distributed.Client, optional
+        Run the samples as tasks on a dask cluster (see :mod:`tolerance.cluster`); the grid is
+        bit-identical to a local run with the same seed.
 
     Returns
     -------
@@ -768,7 +874,7 @@ def run(study: Study, samples=None, seed=None, chunk_size=None, progress=None, k
             f"must be a Study from load_spec, got {type(study).__name__}",
             "call tolerance.load_spec(path) first",
         )
-    eng = Engine(study, samples, seed, chunk_size)
+    eng = Engine(study, samples, seed, chunk_size, client=client)
     keep = study.run.keep_samples if keep_samples is None else bool(keep_samples)
     n, W = eng.samples, eng.grid.size
     if keep and n * W * N_VAR * len(eng.cases) > KEEP_LIMIT:

@@ -10,6 +10,7 @@ from pathlib import Path
 import click
 
 from .common import echo_json, fail, table, user_errors
+from .sweep import cluster_options
 
 #: Exit status when the results grid was written but the report was not.
 REPORT_FAILED = 3
@@ -167,6 +168,8 @@ def execute(
     write_report=True,
     argv=None,
     quiet=False,
+    workers=None,
+    scheduler=None,
 ):
     """Run a spec end to end: Monte Carlo, grid, report, published all or nothing into --out.
 
@@ -199,7 +202,17 @@ def execute(
     report_error = None
     with Output(folder, force=force, replaces=RUN, command=command) as target:
         try:
-            ds = mc_run(spec, samples=samples, seed=seed, chunk_size=chunk_size, progress=progress)
+            from ..cluster import client
+
+            with client(workers, scheduler) as c:
+                ds = mc_run(
+                    spec,
+                    samples=samples,
+                    seed=seed,
+                    chunk_size=chunk_size,
+                    progress=progress,
+                    client=c,
+                )
         finally:
             if bar is not None:
                 bar.__exit__(None, None, None)
@@ -274,15 +287,29 @@ def _report_into(ds, part: Path, formats, command) -> str | None:
     is_flag=True,
     help="Also keep every sample's values at every wavelength in the grid.",
 )
+@cluster_options
 @click.option("--json", "as_json", is_flag=True, help="Print JSON for scripts.")
 @user_errors
 def run(
-    spec_file, samples, seed, chunk_size, out, force, formats, no_report, keep_samples, as_json
+    spec_file,
+    samples,
+    seed,
+    chunk_size,
+    out,
+    force,
+    formats,
+    no_report,
+    keep_samples,
+    workers,
+    scheduler,
+    as_json,
 ):
     """Monte Carlo tolerance analysis of SPEC_FILE: yield, spread and dominant tolerance."""
+    from ..cluster import check_options
     from ..spec import load_spec
 
     _check_formats(formats)
+    check_options(workers, scheduler)
     spec = load_spec(spec_file)
     formats = tuple(formats) or tuple(spec.report.formats) or ("png",)
     if keep_samples:
@@ -319,6 +346,8 @@ def run(
         formats,
         write_report=not no_report,
         argv=argv,
+        workers=workers,
+        scheduler=scheduler,
     )
 
 
