@@ -17,6 +17,11 @@ SUBCOMMANDS = {
     "aim": ("tolerance.cli.aim", "aim", "Find the mount angles that reach a target state."),
     "run": ("tolerance.cli.run", "run", "Run a spec's Monte Carlo tolerance analysis."),
     "demo": ("tolerance.cli.demo", "demo", "Run a built-in example and write its report."),
+    "design": (
+        "tolerance.cli.design",
+        "design",
+        "Design a candidate's thicknesses, angles, materials or order for a spec.",
+    ),
     "report": ("tolerance.cli.report", "report", "Write the report of a saved results grid."),
     "inspect": (
         "tolerance.cli.inspect",
