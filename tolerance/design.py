@@ -319,15 +319,23 @@ def _stack_variants(cand, free, bounds) -> list[Variant]:
 
 
 def athermal_pair(
-    m1: Material, m2: Material, waves: float, design_nm: float, axis_deg: float = 0.0, name=""
+    m1: Material,
+    m2: Material,
+    waves: float,
+    design_nm: float,
+    axis_deg: float = 0.0,
+    name="",
+    temperature_c: float = 20.0,
 ) -> Plate:
     """Two crystals whose retardance does not change with temperature.
 
     Notes
     -----
-    With signed retardances xᵢ [waves at the design wavelength] (negative: axis crossed) and
-    each material's relative temperature coefficient γᵢ, δ(T) = Σ xᵢ·(1 + γᵢ·(T − Tᵢ)), so
-    x₁ + x₂ = W and γ₁·x₁ + γ₂·x₂ = 0 give dδ/dT = 0: x₁ = W·γ₂/(γ₂ − γ₁), x₂ = −W·γ₁/(γ₂ − γ₁).
+    With signed retardances xᵢ [waves at the design wavelength and each material's reference
+    temperature Tᵢ] (negative: axis crossed) and each material's relative temperature
+    coefficient γᵢ, δ(T) = Σ xᵢ·(1 + γᵢ·(T − Tᵢ)).  γ₁·x₁ + γ₂·x₂ = 0 makes dδ/dT = 0, and
+    Σ xᵢ·(1 + γᵢ·(T₀ − Tᵢ)) = W puts the target at the working temperature T₀ (and so at every
+    temperature).
 
     References
     ----------
@@ -341,8 +349,8 @@ def athermal_pair(
             f"{m1.name} and {m2.name} have the same temperature coefficient",
             "choose materials whose coefficients differ",
         )
-    x1 = waves * g2 / (g2 - g1)
-    x2 = -waves * g1 / (g2 - g1)
+    a = [1.0 + g * (temperature_c - m.reference_temperature_c) for g, m in ((g1, m1), (g2, m2))]
+    x1, x2 = np.linalg.solve(np.array([a, [g1, g2]]), [waves, 0.0])
     layers = (
         _signed_layer(m1, x1, design_nm, axis_deg),
         _signed_layer(m2, x2, design_nm, axis_deg),
@@ -419,7 +427,8 @@ def _pair_variants(cand, study, kind, materials=None) -> list[Variant]:
     for m1, m2 in itertools.combinations(_crystals(materials), 2):
         try:
             if kind == "athermal":
-                q = athermal_pair(m1, m2, w, p.design_nm, p.axis_deg, p.name)
+                t0 = study.environment.temperature_c
+                q = athermal_pair(m1, m2, w, p.design_nm, p.axis_deg, p.name, t0)
             else:
                 tilt = min(study.environment.tilt_max_deg, 10.0)
                 q = wide_field_pair(m1, m2, w, p.design_nm, p.axis_deg, tilt, p.name)
@@ -673,11 +682,18 @@ def _polish_lsq(v: Variant, cond: Conditions, x0):
 
 
 def _polish(v, cond, kind, x0):
-    f = _polish_minimax if kind == "band-error" else _polish_lsq
-    x1 = f(v, cond, x0)
-    e0 = nominal_error(v.make(x0), cond, kind)
-    e1 = nominal_error(v.make(x1), cond, kind)
-    return x1 if e1 <= e0 else x0
+    """Local polish of the global result; the best of the tries by the objective itself.
+
+    For ``band-error`` the minimax (SLSQP) polish is followed by a least-squares one from its
+    result: where the residuals can all vanish (as many conditions as parameters) the latter
+    converges to machine precision.
+    """
+    tries = [x0]
+    if kind == "band-error":
+        tries.append(_polish_minimax(v, cond, x0))
+    tries.append(_polish_lsq(v, cond, tries[-1]))
+    errs = [nominal_error(v.make(x), cond, kind) for x in tries]
+    return tries[int(np.argmin(errs))]
 
 
 class _Yield:
