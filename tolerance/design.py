@@ -26,10 +26,11 @@ tolerances, common random numbers) that meet the spec's goal.
 Yield is piecewise constant in the parameters, so it is not optimised directly: the global
 search (:func:`scipy.optimize.differential_evolution`, fixed seed) minimises the nominal error
 that matches the goal (``band-error`` for a goal over the band, ``spectrum-error`` for one over
-the spectrum), then a local polish (Nelder–Mead) maximises a smooth surrogate, the mean over the
-same samples of a logistic function of each sample's pass margin; the yield reported is the real
-one, and the best design is the one with the highest real yield among the start, the global
-result and the polished one.
+the spectrum); then a local polish (Nelder–Mead, from the global result and from the start)
+maximises a smooth surrogate: the mean, over the same samples, of a logistic function of each
+sample's pass margin, its scale half the interquartile range of the margins where the polish
+starts.  The yield reported is the real one, and the best design is the one with the highest
+real yield among the start, the global result and the polished ones.
 
 References
 ----------
@@ -836,7 +837,8 @@ def design(
         best_plate, best_params, best_value = best or (start_plate, start_params, start_value)
         method = (
             f"differential evolution (seed {seed_de}) on the nominal {kind}, then Nelder-Mead on "
-            "the mean logistic pass margin (common random numbers); best real yield kept"
+            "the mean logistic pass margin (common random numbers), from the global result "
+            "and from the start; best real yield kept"
         )
     else:
         e, v, x = found[0]
@@ -905,7 +907,9 @@ def _best_yield(found, ev: _Yield, start_plate: Plate, say):
         tries = [x]
         if v.keys:
             say(f"yield polish {dict(v.label) or ''}")
-            tries.append(_polish_yield(v, ev, x, maxfev=40 * len(v.keys)))
+            # from the global result and from the start: the surrogate has local optima
+            for x0 in (x, v.start):
+                tries.append(_polish_yield(v, ev, x0, maxfev=40 * len(v.keys)))
         for xx in tries:
             plate = v.make(xx)
             y = ev.rate(plate)[0]
