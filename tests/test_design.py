@@ -443,3 +443,26 @@ def test_cli_goal_not_met_says_so(tmp_path):
     assert r.exit_code == 0
     assert "does not meet the goal" in r.stderr
     assert "paste into the spec" in r.stdout
+
+
+def test_wide_field_pair_cancels_the_tilt_term():
+    """Beckers (1972): a positive and a negative crystal, retardances adding, with
+    δ₁/n₁ ≈ δ₂/n₂, cancel the first-order (cos 2φ) tilt term that limits a single plate.
+
+    Checked with the exact oblique-incidence retardance (Veiras et al., Appl. Opt. 49, 2769
+    (2010)): the pair's field of view (|Δδ| ≤ 0.01 wave) is at least twice a zero-order quartz
+    plate's, and its retardance at normal incidence is the target.
+    """
+    from tolerance.environment import acceptance_half_angle
+
+    study = loads(COMPOUND, "compound.toml")
+    d = design(
+        study, "cz", objective="band-error", free="wide_field", materials=["quartz", "sapphire"]
+    )
+    p = d.plate
+    assert float(plate_retardance(p, 632.8, temperature_c=20.0)) / (2 * np.pi) == pytest.approx(
+        0.25, abs=1e-3
+    )
+    assert len({round(la.axis_deg % 180, 9) for la in p.layers}) == 1  # fast axes parallel
+    zero = study.candidate("zo").plate
+    assert acceptance_half_angle(p) >= 2 * acceptance_half_angle(zero)
