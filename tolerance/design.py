@@ -819,41 +819,20 @@ def design(
         else ("band-error" if study.goal.over == "band" else "spectrum-error")
     )
     seed_de = DE_SEED if seed is None else int(seed)
-    found = []  # (nominal error, variant, x)
-    for v in vs:
-        if not v.keys:
-            found.append((nominal_error(v.make(v.start), cond, kind), v, v.start))
-            continue
-        say(f"global search {dict(v.label) or ''} over {', '.join(v.keys)}")
-        xg = _global(v, lambda p: nominal_error(p, cond, kind), seed_de)
-        xp = _polish(v, cond, kind, xg)
-        found.append((nominal_error(v.make(xp), cond, kind), v, xp))
-    found.sort(key=lambda t: t[0])
+    found = _search(vs, cond, kind, seed_de, say)
     start_plate = cand.plate
     start_params = _start_parameters(cand, keys, vs)
     if objective == "yield":
         start_value = ev.rate(start_plate)[0]
         best = _best_yield(found, ev, start_plate, say)
         best_plate, best_params, best_value = best or (start_plate, start_params, start_value)
-        method = (
-            f"differential evolution (seed {seed_de}) on the nominal {kind}, then Nelder-Mead on "
-            "the mean logistic pass margin (common random numbers), from the global result "
-            "and from the start; best real yield kept"
-        )
     else:
         e, v, x = found[0]
         best_plate, best_params, best_value = v.make(x), v.parameters(x), e
         start_value = nominal_error(start_plate, cond, kind)
-        method = (
-            f"differential evolution (seed {seed_de}) then "
-            + ("SLSQP minimax" if kind == "band-error" else "least-squares")
-            + " polish"
-            + (", over every discrete choice" if len(vs) > 1 else "")
-        )
-        if not any(v.keys for v in vs):
-            method = "every discrete choice evaluated"
         if start_value < best_value:  # never report a design worse than the start
             best_plate, best_params, best_value = start_plate, start_params, start_value
+    method = _method(objective, kind, seed_de, vs)
     y, ylo, yhi = ev.rate(best_plate)
     met = ev.nominal_pass(best_plate) and (objective != "yield" or y > 0)
     block = candidate_toml(study, cand, best_plate)
@@ -874,6 +853,38 @@ def design(
         method=method,
         unit="1" if objective == "yield" else "waves",
     )
+
+
+def _search(vs, cond: Conditions, kind: str, seed_de: int, say) -> list:
+    """Each variant's best design by the nominal error: [(error, variant, x)], best first."""
+    found = []
+    for v in vs:
+        if not v.keys:
+            found.append((nominal_error(v.make(v.start), cond, kind), v, v.start))
+            continue
+        say(f"global search {dict(v.label) or ''} over {', '.join(v.keys)}")
+        xg = _global(v, lambda p: nominal_error(p, cond, kind), seed_de)
+        xp = _polish(v, cond, kind, xg)
+        found.append((nominal_error(v.make(xp), cond, kind), v, xp))
+    found.sort(key=lambda t: t[0])
+    return found
+
+
+def _method(objective: str, kind: str, seed_de: int, vs) -> str:
+    """How the optimum was searched, in one line."""
+    if not any(v.keys for v in vs):
+        return "every discrete choice evaluated" + (
+            " for its real yield" if objective == "yield" else ""
+        )
+    if objective == "yield":
+        return (
+            f"differential evolution (seed {seed_de}) on the nominal {kind}, then Nelder-Mead on "
+            "the mean logistic pass margin (common random numbers), from the global result "
+            "and from the start; best real yield kept"
+        )
+    polish = "SLSQP minimax and least-squares" if kind == "band-error" else "least-squares"
+    many = ", over every discrete choice" if len(vs) > 1 else ""
+    return f"differential evolution (seed {seed_de}) then {polish} polish{many}"
 
 
 def _start_parameters(cand: Candidate, keys, vs) -> dict:
