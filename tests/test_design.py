@@ -416,6 +416,7 @@ def test_cli_yield_default_with_bounds(compound_spec):
     [
         (["--free", "bogus"], "--free"),
         (["--free", "thick_plate=9:1"], "--free"),
+        (["--free", "thick_plate=1:10"], "--free thick_plate: [1, 10] um lies below"),
         (["--samples", "0"], "--samples"),
         (["--candidate", "nope"], "candidate"),
         (["--objective", "nope"], "objective"),

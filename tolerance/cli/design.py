@@ -149,16 +149,24 @@ def design(spec_file, candidate, objective, free, samples, seed, out, force, as_
         if not as_json and sys.stderr.isatty():
             click.echo(line, err=True)
 
-    d = run_design(
-        spec,
-        candidate,
-        objective=objective,
-        free=keys,
-        samples=samples,
-        seed=seed,
-        bounds=bounds,
-        progress=progress,
-    )
+    from ..errors import RetolError
+
+    try:
+        d = run_design(
+            spec,
+            candidate,
+            objective=objective,
+            free=keys,
+            samples=samples,
+            seed=seed,
+            bounds=bounds,
+            progress=progress,
+        )
+    except RetolError as exc:
+        if exc.field.startswith("bounds."):  # bounds come in through --free KEY=LOW:HIGH
+            key = exc.field.split(".", 1)[1]
+            raise RetolError(f"--free {key}", exc.problem, exc.fix) from None
+        raise
     if folder is not None:
         _write(d, folder)
     if as_json:
