@@ -18,6 +18,11 @@ SUBCOMMANDS = {
     "run": ("tolerance.cli.run", "run", "Run a spec's Monte Carlo tolerance analysis."),
     "sweep": ("tolerance.cli.sweep", "sweep", "Run a spec at every combination of swept values."),
     "demo": ("tolerance.cli.demo", "demo", "Run a built-in example and write its report."),
+    "design": (
+        "tolerance.cli.design",
+        "design",
+        "Design a candidate's thicknesses, angles, materials or order for a spec.",
+    ),
     "report": ("tolerance.cli.report", "report", "Write the report of a saved results grid."),
     "inspect": (
         "tolerance.cli.inspect",
