@@ -16,6 +16,11 @@ SUBCOMMANDS = {
     "state": ("tolerance.cli.state", "state", "Push one polarization state through a plate."),
     "aim": ("tolerance.cli.aim", "aim", "Find the mount angles that reach a target state."),
     "run": ("tolerance.cli.run", "run", "Run a spec's Monte Carlo tolerance analysis."),
+    "allocate": (
+        "tolerance.cli.allocate",
+        "allocate",
+        "Allocate tolerances to a yield target: alone, balanced, cheapest.",
+    ),
     "demo": ("tolerance.cli.demo", "demo", "Run a built-in example and write its report."),
     "report": ("tolerance.cli.report", "report", "Write the report of a saved results grid."),
     "inspect": (

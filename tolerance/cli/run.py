@@ -13,7 +13,7 @@ import click
 from .common import echo_json, table, user_errors
 
 #: What a run writes into its output folder; nothing else there is ever touched.
-OUTPUTS = ("grid.nc", "summary.csv", "figures", "report.html")
+OUTPUTS = ("grid.nc", "summary.csv", "drawing.csv", "figures", "report.html")
 
 
 def output_folder(out, spec_path: Path, force: bool) -> Path:
@@ -134,6 +134,12 @@ def summary_rows(ds):
                 "p05_pass": float(np.quantile(ds["pass_metric"].sel(candidate=c), 0.05)),
                 "rank_yield": float(ds["rank_yield"].sel(candidate=c)),
                 "dominant": str(ds["dominant"].sel(candidate=c).values),
+                "margin_p05": float(ds["margin_p05"].sel(candidate=c)),
+                "margin_gain": {
+                    str(t): float(ds["margin_gain"].sel(candidate=c, tolerance_name=t))
+                    for t in ds["tolerance_name"].values
+                },
+                "margin_dominant": str(ds["margin_dominant"].sel(candidate=c).values),
                 "nominal_dop": float(ds["nominal_dop"].sel(candidate=c)),
                 "nominal_spectral_metric": float(ds["nominal_spectral_metric"].sel(candidate=c)),
                 "temperature_coefficient_deg_per_k": float(
@@ -266,6 +272,10 @@ def execute(
                 bar.__exit__(None, None, None)
         ds.attrs["command"] = " ".join(shlex.quote(a) for a in (argv or ["retol"] + sys.argv[1:]))
         save_grid(ds, tmp / "grid.nc")
+        from ..allocation import drawing_rows_for_grid, write_drawing_csv
+
+        drawing = drawing_rows_for_grid(ds)
+        write_drawing_csv(drawing, tmp / "drawing.csv")
         if write_report:
             from ..report import write_report as _write
 
@@ -283,7 +293,7 @@ def execute(
         raise
     rows = summary_rows(ds)
     if as_json:
-        echo_json({"candidates": rows, "output": str(folder)})
+        echo_json({"candidates": rows, "drawing": drawing, "output": str(folder)})
     else:
         print_summary(ds, rows)
         click.echo(
