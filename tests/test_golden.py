@@ -38,6 +38,10 @@ def test_every_variable_bit_identical(pair):
     for name, da in old.data_vars.items():
         assert name in new.data_vars, f"{name} is missing"
         a, b = da.values, new[name].values
+        if name == "dominant":
+            # issue 11: where no yield moved ("none"), dominant now names the tolerance that
+            # uses up most margin; everywhere else it must be unchanged
+            a = np.where(a == "none", new["margin_dominant"].values, a)
         if a.dtype.kind in "fc":
             np.testing.assert_array_equal(a, b, err_msg=name, strict=False)
         else:

@@ -138,7 +138,14 @@ SCHEMA: dict[str, Var] = {
     "sensitivity_without": Var(
         _CT, "1", "yield with every tolerance but this one (what holding it exactly would buy)"
     ),
-    "dominant": Var(_C, "", "tolerance whose removal raises the yield most"),
+    "dominant": Var(
+        _C, "", "tolerance whose removal raises the yield most (else uses up most margin)"
+    ),
+    "margin_p05": Var(_C, "{mu}", "5th percentile of the pass-test {mlong}"),
+    "margin_gain": Var(
+        _CT, "{mu}", "rise of the 5th-percentile {mlong} when this tolerance is removed"
+    ),
+    "margin_dominant": Var(_C, "", "tolerance that uses up most margin"),
     "retardance_error_temperature": Var(
         ("candidate", "temperature"),
         "waves",
@@ -341,6 +348,21 @@ def _yield_values(results, tol_names) -> dict:
         "sensitivity_alone": sens("sens_alone"),
         "sensitivity_without": sens("sens_without"),
         "dominant": np.array([SHORT.get(r.dominant, r.dominant) for r in results], dtype=object),
+        **_margin_values(results, tol_names),
+    }
+
+
+def _margin_values(results, tol_names) -> dict:
+    """Margin-based sensitivity: the 5th-percentile metric and its rise per removed tolerance."""
+    C = len(results)
+    return {
+        "margin_p05": np.array([r.margin_p05 for r in results]),
+        "margin_gain": np.array(
+            [[r.margin_gain.get(t, np.nan) for t in tol_names] for r in results]
+        ).reshape(C, len(tol_names)),
+        "margin_dominant": np.array(
+            [SHORT.get(r.margin_dominant, r.margin_dominant) for r in results], dtype=object
+        ),
     }
 
 
@@ -428,6 +450,7 @@ def to_dataset(eng, results, tol_keys) -> xr.Dataset:
             r,
             sens_alone={SHORT[k]: v for k, v in r.sens_alone.items()},
             sens_without={SHORT[k]: v for k, v in r.sens_without.items()},
+            margin_gain={SHORT[k]: v for k, v in r.margin_gain.items()},
         )
         for r in results
     ]

@@ -121,6 +121,11 @@ class CandidateResult:
     sens_without: Mapping[str, float]
     dominant: str  # spec key or "none"
     sensitivity_samples: int
+    margin_p05: float = float("nan")  # 5th percentile of the pass metric (sensitivity samples)
+    margin_gain: Mapping[str, float] = dataclasses.field(
+        default_factory=lambda: ReadOnlyMapping({})
+    )
+    margin_dominant: str = "none"  # the key that uses up most margin
 
 
 # ----------------------------------------------------------------------------- plate optics
@@ -213,11 +218,16 @@ def sample_inputs(case: Case, study: Study, draws: Draws, start: int, stop: int,
     t_nom = study.environment.temperature_c
     temp = value("temperature_c", center=t_nom) if "temperature_c" in tol else np.full(n, t_nom)
     clock = value("clocking_deg") if "clocking_deg" in tol else np.zeros(n)
+    scale = (
+        retardance_scale(case, study, value("retardance_waves"))
+        if "retardance_waves" in tol
+        else 1.0
+    )
     for j, la in enumerate(plate.layers):
         if "thickness_um" in tol:
-            thick[:, j] = la.thickness_um + value("thickness_um", j)
+            thick[:, j] = la.thickness_um * scale + value("thickness_um", j)
         else:
-            thick[:, j] = la.thickness_um
+            thick[:, j] = la.thickness_um * scale
         cross = value("crossing_deg", j) if j > 0 and "crossing_deg" in tol else 0.0
         axis[:, j] = la.axis_deg + clock + cross
         optic[:, j] = la.optic_axis_deg + clock + cross
@@ -252,6 +262,32 @@ def sample_inputs(case: Case, study: Study, draws: Draws, start: int, stop: int,
         c(np.sin(alpha)),
     )
     return inputs, {"drift": drift, "temperature": temp, "aoi": aoi}
+
+
+def nominal_retardance_waves(plate: Plate, at_nm: float) -> float:
+    """The error-free plate's retardance along its fast axis at ``at_nm``. [waves]
+
+    Σ cos 2(θᵢ − θ)·δᵢ / 2π at the materials' reference temperature
+    (:func:`tolerance.plates.plate_retardance`), the order kept (a multi-order plate's 6.25
+    waves, not 0.25), since a common scale on the thicknesses scales the whole of it.
+    """
+    from .plates import plate_retardance
+
+    return float(plate_retardance(plate, at_nm, extrapolate=True)) / (2.0 * np.pi)
+
+
+def retardance_scale(case: Case, study: Study, error_waves):
+    """The common thickness scale factor that errs the retardance at ``at`` by ``error_waves``.
+
+    Notes
+    -----
+    At a fixed wavelength each layer's retardance δᵢ = 2π Δnᵢ(λ) tᵢ / λ is proportional to its
+    thickness, so scaling every tᵢ by s scales the plate's retardance R = Σ cos 2(θᵢ − θ) δᵢ/2π
+    by s as well: R(s) = s R.  R(s) = R + e gives s = 1 + e / R.  A compound or achromatic
+    plate keeps its thickness ratios (its design), as a vendor's "λ/300 at 632.8 nm" implies.
+    """
+    r = nominal_retardance_waves(case.plate, study.retardance_at(case.candidate))
+    return 1.0 + np.asarray(error_waves) / r
 
 
 def first_sample(inputs: SampleInputs) -> tuple:
@@ -676,6 +712,10 @@ class Engine:
         pm_nom = self.pass_metric(np.array([nom.worst]), nom.spec_stokes[None, :], case.goal)
         nominal_pass = float(pm_nom[0] >= goal_min)
         alone, without = {}, {}
+        # margin: the 5th percentile of the pass metric, and how much removing each tolerance
+        # raises it (says something even when every yield is 0 or 1)
+        p05_full = float(np.quantile(pm_full, 0.05))
+        margin: dict = {}
         for name in names:
             for mode in ("alone", "without"):
                 # a fixed value (a range with low == high) is a condition, not a tolerance
@@ -684,16 +724,23 @@ class Engine:
                 )
                 if name not in active:
                     y = nominal_pass if mode == "alone" else full
+                    if mode == "without":
+                        margin[name] = 0.0
                 elif mode == "alone" and len(active) == 1:
                     y = full
                 elif not [k for k in subset if k in active]:
                     y = nominal_pass
+                    if mode == "without":
+                        margin[name] = float(pm_nom[0]) - p05_full
                 else:
-                    y = self.pass_rate(case, n_sens, active=subset)
+                    pm = self.pass_metric(*self.pass_values(case, n_sens, subset), case.goal)
+                    y = float(np.mean(pm >= goal_min))
+                    if mode == "without":
+                        margin[name] = float(np.quantile(pm, 0.05)) - p05_full
                 (alone if mode == "alone" else without)[name] = y
                 if progress:
                     progress(n_sens)
-        return alone, without, full, nominal_pass, n_sens
+        return alone, without, full, nominal_pass, n_sens, p05_full, margin
 
 
 def _main_task(sample_range, eng: Engine, case: Case, setup) -> dict:
@@ -764,6 +811,8 @@ def _finish(
     yield_sens,
     nominal_pass,
     n_sens,
+    p05_full=float("nan"),
+    margin=None,
 ) -> CandidateResult:
     goal = eng.study.goal
     conf = eng.study.run.confidence
@@ -816,13 +865,25 @@ def _finish(
         nominal_dop=min(1.0, nom_dop),
         sens_alone=ReadOnlyMapping(alone),
         sens_without=ReadOnlyMapping(without),
-        dominant=dominant_tolerance(alone, without, yield_sens, nominal_pass),
+        dominant=dominant_tolerance(alone, without, yield_sens, nominal_pass, margin),
         sensitivity_samples=n_sens,
+        margin_p05=p05_full,
+        margin_gain=ReadOnlyMapping(dict(margin or {})),
+        margin_dominant=margin_dominant(margin or {}),
     )
 
 
-def dominant_tolerance(alone, without, yield_sens, nominal_pass) -> str:
-    """The tolerance whose removal helps most; if none helps, the one that alone harms most."""
+def margin_dominant(margin: Mapping[str, float]) -> str:
+    """The tolerance whose removal raises the 5th-percentile goal metric most ("none" if none)."""
+    if not margin:
+        return "none"
+    best = max(margin, key=lambda t: margin[t])
+    return best if margin[best] > 0 else "none"
+
+
+def dominant_tolerance(alone, without, yield_sens, nominal_pass, margin=None) -> str:
+    """The tolerance whose removal helps most; if none helps, the one that alone harms most;
+    if neither (every yield 0 or 1), the one that uses up most margin (:func:`margin_dominant`)."""
     gains = {t: without[t] - yield_sens for t in alone}
     if not gains:
         return "none"
@@ -834,7 +895,7 @@ def dominant_tolerance(alone, without, yield_sens, nominal_pass) -> str:
     worst_alone = min(alone, key=lambda t: alone[t])
     if alone[worst_alone] < nominal_pass:
         return worst_alone
-    return "none"
+    return margin_dominant(margin or {})
 
 
 def run(

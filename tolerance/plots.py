@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import contextlib
 import json
+import math
 from pathlib import Path
 
 import numpy as np
@@ -1322,3 +1323,36 @@ def save_figures(grid, folder, formats=("png",)) -> dict[str, list[Path]]:
             written[name].append(path)
         del fig
     return written
+
+
+def yield_vs_width_figure(allocation):
+    """Yield versus width of each varied tolerance alone, the others as given (the points the
+    allocation evaluated, on common random numbers), with the target and the answer marked.
+
+    Not a registered figure: it is drawn from a :class:`tolerance.allocation.Allocation`, not a
+    results grid.
+    """
+    keys = list(allocation.vary)
+    n = max(1, len(keys))
+    with _style():
+        fig = _figure(3.2 * min(n, 3), 2.6 * math.ceil(n / 3))
+        axes = fig.subplots(math.ceil(n / 3), min(n, 3), squeeze=False).ravel()
+        for ax, key in zip(axes, keys, strict=False):
+            for i, ca in enumerate(allocation.candidates):
+                a = ca.alone.get(key)
+                if a is None or not a.curve:
+                    continue
+                w, y = np.array(a.curve).T
+                ax.step(w, y, where="post", color=_colour(i), label=ca.name)
+                ax.plot(w, y, "o", ms=3, color=_colour(i))
+                if a.width is not None:
+                    ax.axvline(a.width, color=_colour(i), lw=0.8, ls=":")
+            ax.axhline(allocation.target_yield, color="0.4", lw=0.8, ls="--")
+            ax.set_xlabel(key)
+            ax.set_ylabel("yield")
+            ax.set_ylim(-0.02, 1.02)
+        for ax in axes[len(keys) :]:
+            ax.set_visible(False)
+        if allocation.candidates:
+            axes[0].legend(fontsize="small")
+        return _finish(fig)

@@ -101,7 +101,7 @@ def _figure_files() -> set[str]:
 
 
 def _possible_outputs() -> set[str]:
-    return {GRID_FILE, SUMMARY_FILE, REPORT_FILE} | _figure_files()
+    return {GRID_FILE, SUMMARY_FILE, REPORT_FILE, "drawing.csv"} | _figure_files()
 
 
 def _read_manifest(folder: Path) -> dict | None:

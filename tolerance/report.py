@@ -668,6 +668,58 @@ def _figure_html(name, caption, png: bytes) -> str:
     )
 
 
+def _cell(v) -> str:
+    if isinstance(v, str):
+        return v
+    return "—" if v is None or not np.isfinite(v) else f"{v:.5g}"
+
+
+def drawing_section(grid, rows=None, figure_png: bytes | None = None) -> str:
+    """The drawing and purchase-order table, the margin-based sensitivity and (from
+    ``retol allocate``) the yield-versus-width figure, as one HTML section."""
+    from .allocation import drawing_rows_for_grid
+
+    try:
+        rows = rows if rows is not None else drawing_rows_for_grid(grid)
+    except Exception:  # an old grid without what the table needs: leave the section out
+        return ""
+    cols: list[str] = []
+    for r in rows:
+        cols += [k for k in r if k not in cols]
+    head = "".join(f"<th>{_e(c)}</th>" for c in cols)
+    body = "".join(
+        "<tr>" + "".join(f"<td>{_e(_cell(r.get(c)))}</td>" for c in cols) + "</tr>" for r in rows
+    )
+    out = [
+        "<h2>Drawing and purchase order</h2>",
+        "<p>Each ± at the spec's coverage (3 σ for normal forms unless given), the half width of "
+        "a uniform tolerance; the retardance ± in waves at the test wavelength.  "
+        "<code>retol allocate</code> finds the widths that reach a yield target.</p>",
+        f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>",
+    ]
+    if "margin_gain" in grid:
+        mh = "".join(f"<th>{_e(t)}</th>" for t in grid["tolerance_name"].values)
+        mb = "".join(
+            f"<tr><td>{_e(c)}</td><td>{_e(_fmt(float(grid['margin_p05'].sel(candidate=c)), 4))}"
+            "</td>"
+            + "".join(
+                f"<td>{_e(_fmt(float(v), 3))}</td>" for v in grid["margin_gain"].sel(candidate=c)
+            )
+            + f"<td>{_e(str(grid['margin_dominant'].sel(candidate=c).values))}</td></tr>"
+            for c in grid["candidate"].values
+        )
+        out += [
+            "<h3>Margin-based sensitivity</h3>",
+            "<p>The rise of the 5th-percentile goal metric when each tolerance is removed; the "
+            "last column names the tolerance that uses up most margin.</p>",
+            f"<table><thead><tr><th>candidate</th><th>p05</th>{mh}<th>uses most margin</th>"
+            f"</tr></thead><tbody>{mb}</tbody></table>",
+        ]
+    if figure_png is not None:
+        out.append(_figure_html("yield_vs_width", "Yield versus width", figure_png))
+    return "\n".join(out)
+
+
 def build_html(grid, figures, command=None) -> str:
     """The report page as one string.
 
@@ -759,6 +811,7 @@ def build_html(grid, figures, command=None) -> str:
     p.append("<h2>Ranking</h2>")
     p.append(_ranking(grid, rows))
 
+    p.append(drawing_section(grid))
     p.append("<h2>Figures</h2>")
     for k, (name, caption, png) in enumerate(figures, start=1):
         p.append(_figure_html(name, f"Figure {k}. {caption}", png))

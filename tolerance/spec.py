@@ -47,7 +47,9 @@ TOP_KEYS = (
     "run",
     "environment",
     "report",
+    "allocation",
 )
+ALLOCATION_KEYS = ("target_yield", "cost")
 WAVELENGTH_KEYS = ("start", "stop", "step")
 INPUT_KEYS = ("azimuth_deg",)
 GOAL_KEYS = (
@@ -189,15 +191,100 @@ class _Ctx:
         return wavelength_nm(d[key], f"{self.path}: {where}{key}")
 
 
-def _tolerances(ctx: _Ctx, table: dict, where="[tolerances]") -> dict:
+def _tolerances(ctx: _Ctx, table: dict, where="[tolerances]") -> tuple[dict, float | None]:
+    """The distributions of a tolerance table and the test wavelength of ``retardance_waves``
+    (its extra key ``at``, None when not given). [nm]"""
     ctx.check_keys(table, list(TOLERANCES), f"{where}.")
     out = {}
+    at_nm = None
     for key, value in table.items():
         field = f"{ctx.path}: {where}.{key}"
         convert = length_um if TOLERANCES[key].extra["unit_kind"] == "length" else None
+        if key == "retardance_waves" and isinstance(value, dict) and "at" in value:
+            value = dict(value)
+            at_nm = wavelength_nm(value.pop("at"), f"{field}.at")
         dist = distributions.parse(value, field, convert)
         out[key] = check_bounds(key, dist, field)
-    return out
+    return out, at_nm
+
+
+def _allocation(ctx: _Ctx, raw: dict, tolerances: dict):
+    """``[allocation]``: target_yield in (0, 1) and ``cost`` tables of widths and costs."""
+    import math
+
+    from .study import AllocationSettings
+
+    if "allocation" not in raw:
+        return None
+    a = ctx.table(raw, "allocation")
+    ctx.check_keys(a, ALLOCATION_KEYS, "[allocation].")
+    target = None
+    if "target_yield" in a:
+        target = float(ctx.number(a, "target_yield", "[allocation]."))
+        if not 0.0 < target < 1.0:
+            raise ctx.err(
+                "[allocation].target_yield", f"must be in (0, 1), got {target:g}", "e.g. 0.99"
+            )
+    cost = {}
+    table = a.get("cost", {})
+    if not isinstance(table, dict):
+        raise ctx.err("[allocation].cost", "must be a table", "e.g. [allocation.cost]")
+    ctx.check_keys(table, list(TOLERANCES), "[allocation.cost].")
+    for key, entry in table.items():
+        where = f"[allocation.cost].{key}"
+        if not isinstance(entry, dict) or set(entry) != {"widths", "cost"}:
+            raise ctx.err(
+                where, "needs widths and cost", f"{key} = {{ widths = [1, 0.5], cost = [0, 1] }}"
+            )
+        w, c = entry["widths"], entry["cost"]
+        ok = all(
+            isinstance(x, list)
+            and x
+            and all(isinstance(v, int | float) and not isinstance(v, bool) for v in x)
+            and all(math.isfinite(v) for v in x)
+            for x in (w, c)
+        )
+        if not ok:
+            raise ctx.err(
+                where, "widths and cost must be lists of finite numbers", "e.g. widths = [1, 0.5]"
+            )
+        if len(w) != len(c):
+            raise ctx.err(where, f"{len(w)} widths but {len(c)} costs", "give one cost per width")
+        if any(v < 0 for v in w) or any(v < 0 for v in c):
+            raise ctx.err(where, "widths and costs must not be negative", "give values >= 0")
+        d = [b - a_ for a_, b in zip(w, w[1:], strict=False)]
+        if not (all(x < 0 for x in d) or all(x > 0 for x in d)):
+            raise ctx.err(
+                where, "widths are not sorted", "list them loosest first, e.g. [1, 0.5, 0.2]"
+            )
+        if key not in tolerances:
+            raise ctx.err(where, "is not a tolerance this spec gives", f"add {key} to [tolerances]")
+        cost[key] = (tuple(float(v) for v in w), tuple(float(v) for v in c))
+    return AllocationSettings(target, _proxy(cost))
+
+
+def _check_retardance_at(ctx: _Ctx, study) -> None:
+    """The plate must have a retardance at ``at`` for ``retardance_waves`` to scale."""
+    import numpy as np
+
+    from .plates import plate_retardance
+
+    for c in study.candidates:
+        if "retardance_waves" not in study.tolerances_for(c):
+            continue
+        at = study.retardance_at(c)
+        try:
+            r = float(plate_retardance(c.plate, at)) / (2 * np.pi)
+        except RetolError as exc:
+            raise ctx.err(
+                "[tolerances].retardance_waves.at", exc.problem, "give an `at` the materials cover"
+            ) from None
+        if not abs(r) > 1e-6:
+            raise ctx.err(
+                "[tolerances].retardance_waves",
+                f"candidate {c.name!r} has no retardance at {at:g} nm to scale",
+                "use thickness_um for this plate",
+            )
 
 
 def _layers(ctx: _Ctx, layers, where: str) -> tuple[LayerSpec, ...]:
@@ -306,7 +393,9 @@ def _candidate(ctx: _Ctx, c, i: int, default_design) -> Candidate:
         t = c["tolerances"]
         if not isinstance(t, dict):
             raise ctx.err(f"{where}tolerances", "must be a table")
-        tol = _tolerances(ctx, t, f"{where}tolerances")
+        tol, at_nm = _tolerances(ctx, t, f"{where}tolerances")
+    else:
+        at_nm = None
     cand = Candidate(
         name=name,
         construction=cons,
@@ -315,6 +404,7 @@ def _candidate(ctx: _Ctx, c, i: int, default_design) -> Candidate:
         design_nm=design,
         axis_deg=axis,
         tolerances=_proxy(tol),
+        retardance_at_nm=at_nm,
         **params,
     )
     try:
@@ -541,6 +631,7 @@ def validate(raw: dict, path: str = "<spec>", base_dir=None, source_text=None) -
             f"duplicated name {sorted(dup)[0]!r}",
             "give each candidate its own name",
         )
+    tolerances, at_nm = _tolerances(ctx, ctx.table(raw, "tolerances"))
     study = Study(
         title=title,
         wavelength=grid,
@@ -549,14 +640,17 @@ def validate(raw: dict, path: str = "<spec>", base_dir=None, source_text=None) -
         goal=goal,
         environment=environment,
         candidates=candidates,
-        tolerances=_proxy(_tolerances(ctx, ctx.table(raw, "tolerances"))),
+        tolerances=_proxy(tolerances),
         run=_run(ctx, raw),
         report=_report(ctx, raw),
         spec_path=str(path),
         base_dir=None if base_dir is None else str(base_dir),
         source_text=source_text,
+        retardance_at_nm=at_nm,
+        allocation=_allocation(ctx, raw, tolerances),
     )
     _check_ranges(study)
+    _check_retardance_at(ctx, study)
     return study
 
 
@@ -622,7 +716,12 @@ def loads(text: str, path: str = "<spec>", base_dir=None) -> Study:
 
 
 def _raw_distribution(d: dict) -> dict:
-    return distributions.Distribution.from_dict(d).to_spec()
+    d = dict(d)
+    at = d.pop("at_nm", None)
+    out = distributions.Distribution.from_dict(d).to_spec()
+    if at is not None:
+        out["at"] = at
+    return out
 
 
 def _raw_candidate(c: dict) -> dict:
@@ -668,6 +767,8 @@ def from_normalised(d, base_dir=None, source_text=None) -> Study:
         "run": {k: v for k, v in d["run"].items() if v is not None},
         "report": d["report"],
     }
+    if d.get("allocation"):
+        raw["allocation"] = d["allocation"]
     return validate(raw, d.get("spec_path", "<spec>"), base_dir=base_dir, source_text=source_text)
 
 

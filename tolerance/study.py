@@ -147,6 +147,8 @@ class Candidate:
     layers: tuple[LayerSpec, ...] | None = None
     tolerances: Mapping[str, Distribution] = field(default_factory=lambda: _proxy({}))
     plate: object = field(default=None, compare=False, repr=False)
+    #: The test wavelength of this candidate's own ``retardance_waves`` override. [nm]
+    retardance_at_nm: float | None = None
 
     def design_keys(self) -> dict:
         """The construction's own keywords for :func:`tolerance.plates.design_plate`."""
@@ -183,7 +185,7 @@ class Candidate:
         for k, v in self.design_keys().items():
             d[k] = v
         if self.tolerances:
-            d["tolerances"] = {k: v.to_dict() for k, v in self.tolerances.items()}
+            d["tolerances"] = _tolerance_dicts(self.tolerances, self.retardance_at_nm)
         return d
 
 
@@ -222,6 +224,28 @@ class ReportSettings:
 
 
 @dataclass(frozen=True)
+class AllocationSettings:
+    """``[allocation]``: the yield target and the cost table of available widths.
+
+    ``cost`` maps a tolerance key to ``(widths, costs)``, both tuples in the order written
+    (widths strictly monotone, costs >= 0), widths in the form the tolerance is written in.
+    """
+
+    target_yield: float | None = None
+    cost: Mapping[str, tuple[tuple[float, ...], tuple[float, ...]]] = field(
+        default_factory=lambda: _proxy({})
+    )
+
+    def to_dict(self) -> dict:
+        d: dict = {}
+        if self.target_yield is not None:
+            d["target_yield"] = self.target_yield
+        if self.cost:
+            d["cost"] = {k: {"widths": list(w), "cost": list(c)} for k, (w, c) in self.cost.items()}
+        return d
+
+
+@dataclass(frozen=True)
 class Study:
     """A validated tolerance study: everything one ``retol run`` needs.
 
@@ -242,6 +266,21 @@ class Study:
     spec_path: str = "<spec>"
     base_dir: str | None = field(default=None, compare=False)
     source_text: str | None = field(default=None, compare=False, repr=False)
+    #: The test wavelength of ``[tolerances].retardance_waves`` (None: the design wavelength). [nm]
+    retardance_at_nm: float | None = None
+    allocation: AllocationSettings | None = None
+
+    def retardance_at(self, candidate: Candidate) -> float:
+        """The wavelength at which the candidate's ``retardance_waves`` tolerance is read. [nm]
+
+        The candidate's own ``at`` if it overrides the tolerance, else the study's, else the
+        plate's design wavelength.
+        """
+        if "retardance_waves" in candidate.tolerances:
+            at = candidate.retardance_at_nm
+        else:
+            at = self.retardance_at_nm
+        return float(at) if at is not None else float(candidate.plate.design_nm)
 
     @property
     def file_name(self) -> str:
@@ -284,10 +323,12 @@ class Study:
             "goal": self.goal.to_dict(),
             "environment": self.environment.to_dict(),
             "candidates": [c.to_dict() for c in self.candidates],
-            "tolerances": {k: v.to_dict() for k, v in self.tolerances.items()},
+            "tolerances": _tolerance_dicts(self.tolerances, self.retardance_at_nm),
             "run": self.run.to_dict(),
             "report": self.report.to_dict(),
             "spec_path": self.spec_path,
+            # written only when given, so that studies without them keep their JSON
+            **({"allocation": self.allocation.to_dict()} if self.allocation else {}),
         }
 
     def to_json(self) -> str:
@@ -299,6 +340,14 @@ class Study:
         from .spec import from_normalised
 
         return from_normalised(d, base_dir=base_dir, source_text=source_text)
+
+
+def _tolerance_dicts(tolerances, retardance_at_nm) -> dict:
+    """Tolerances as JSON; ``retardance_waves`` carries its test wavelength as ``at_nm``."""
+    out = {k: v.to_dict() for k, v in tolerances.items()}
+    if retardance_at_nm is not None and "retardance_waves" in out:
+        out["retardance_waves"]["at_nm"] = retardance_at_nm
+    return out
 
 
 def _thaw(value):

@@ -24,6 +24,15 @@ TOLERANCES.add(
     unit_kind="length",
 )
 TOLERANCES.add(
+    "retardance_waves",
+    "the plate's retardance at `at` (default: design wavelength): one scale on all thicknesses",
+    unit="waves",
+    short="retardance",
+    per_layer=False,
+    max_reach=0.5,
+    unit_kind=None,
+)
+TOLERANCES.add(
     "clocking_deg",
     "the whole plate's fast-axis angle in its mount",
     unit="deg",
@@ -85,6 +94,14 @@ def check_bounds(key: str, dist: Distribution, field: str) -> Distribution:
             f"reaches an angle of incidence of {reach:g} deg or more",
             "tilts are a few degrees; give a smaller width",
         )
+    if key == "retardance_waves":
+        if dist.reach > reach:
+            raise RetolError(
+                field,
+                f"reaches a retardance error of more than {reach:g} wave",
+                "vendors quote small fractions of a wave, e.g. { tolerance = 0.003 }",
+            )
+        return dist
     if reach is not None and key != "tilt_deg" and dist.reach > reach:
         raise RetolError(
             field, f"reaches more than {reach:g} deg", "angle errors are small; check the unit"

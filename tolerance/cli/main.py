@@ -17,6 +17,11 @@ SUBCOMMANDS = {
     "aim": ("tolerance.cli.aim", "aim", "Find the mount angles that reach a target state."),
     "run": ("tolerance.cli.run", "run", "Run a spec's Monte Carlo tolerance analysis."),
     "sweep": ("tolerance.cli.sweep", "sweep", "Run a spec at every combination of swept values."),
+    "allocate": (
+        "tolerance.cli.allocate",
+        "allocate",
+        "Allocate tolerances to a yield target: alone, balanced, cheapest.",
+    ),
     "demo": ("tolerance.cli.demo", "demo", "Run a built-in example and write its report."),
     "design": (
         "tolerance.cli.design",

@@ -76,6 +76,12 @@ def summary_rows(ds):
                 "p05_pass": float(np.quantile(ds["pass_metric"].sel(candidate=c), 0.05)),
                 "rank_yield": float(ds["rank_yield"].sel(candidate=c)),
                 "dominant": str(ds["dominant"].sel(candidate=c).values),
+                "margin_p05": float(ds["margin_p05"].sel(candidate=c)),
+                "margin_gain": {
+                    str(t): float(ds["margin_gain"].sel(candidate=c, tolerance_name=t))
+                    for t in ds["tolerance_name"].values
+                },
+                "margin_dominant": str(ds["margin_dominant"].sel(candidate=c).values),
                 "nominal_dop": float(ds["nominal_dop"].sel(candidate=c)),
                 "nominal_spectral_metric": float(ds["nominal_spectral_metric"].sel(candidate=c)),
                 "temperature_coefficient_deg_per_k": float(
@@ -221,12 +227,15 @@ def execute(
             save_grid(ds, target.part / "grid.nc")
         except OSError as exc:
             raise write_error(exc, "--out", f"cannot write grid.nc for {target.target}") from None
+        from ..allocation import drawing_rows_for_grid, write_drawing_csv
+
+        write_drawing_csv(drawing_rows_for_grid(ds), target.part / "drawing.csv")
         if write_report:
             report_error = _report_into(ds, target.part, formats, command)
         folder = target.publish()
     rows = summary_rows(ds)
     if as_json:
-        echo_json({"candidates": rows, "output": str(folder)})
+        echo_json({"candidates": rows, "drawing": drawing, "output": str(folder)})
     else:
         print_summary(ds, rows)
         click.echo(

@@ -1,0 +1,720 @@
+"""Tolerance allocation: the widths to write on the drawing and the purchase order for a yield.
+
+For each candidate and on the same draws throughout (common random numbers,
+:class:`~tolerance.montecarlo.Engine`):
+
+* **alone** — per varied tolerance, the loosest width that keeps the yield >= Y with the others
+  as specified;
+* **balanced** — one common scale factor on all varied widths (ranges about their centre) that
+  brings the yield to Y;
+* **cheapest** — from ``[allocation.cost]`` tables of available widths and costs, the least-cost
+  combination with yield >= Y, and the next-cheapest ones.
+
+Yield under common random numbers is a step function of the widths: each pass count changes only
+when a sample crosses the goal.  With every draw fixed, a tolerance's value is its width times a
+fixed standard draw, so widening moves every sample's error outward; the pass test is then, for
+the usual single-optimum goal, non-increasing in each width (checked in the tests), and a search
+on the scale factor is a monotone root-finding problem.  We solve it by bracketing and bisection
+in log(scale) on the *first* failure (the monotone envelope: the answer is the largest scale
+evaluated whose yield, and that of every smaller scale evaluated, is >= Y), so a rare
+non-monotone sample cannot send the search to a far crossing.  The answer is reproducible for a
+seed and moves between seeds by about its reported width range: the widths whose yields reach
+the ends of the Wilson interval at the answer (the Monte Carlo uncertainty of the width).
+
+References
+----------
+.. [1] E. B. Wilson, J. Am. Stat. Assoc. 22, 209-212 (1927) (score interval).
+.. [2] P. Glasserman, Monte Carlo Methods in Financial Engineering, Springer (2003), sec. 4.2
+   (common random numbers for comparing and optimising systems).
+"""
+
+from __future__ import annotations
+
+import heapq
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .distributions import DEFAULT_COVERAGE, Distribution
+from .errors import RetolError
+from .montecarlo import Engine, nominal_retardance_waves, wilson
+from .study import Candidate, Study
+
+DEFAULT_TARGET = 0.99
+#: Relative resolution of the scale factor at the answer, and of the width range.
+RTOL = 0.01
+#: Largest number of combinations the cheapest search may evaluate.
+MAX_EVALUATIONS = 300
+ALTERNATIVES = 3
+#: Physical bounds on a tolerance's reach (6 σ, the half width or half range). [key's unit]
+ANGLE_BOUND = {"clocking_deg": 45.0, "crossing_deg": 45.0, "input_azimuth_deg": 45.0}
+TILT_BOUND = 88.0
+RETARDANCE_BOUND = 0.5
+TEMPERATURE_BOUND = 100.0
+
+
+# ----------------------------------------------------------------------------- records
+
+
+@dataclass(frozen=True)
+class Point:
+    """A yield evaluated at one scale factor: pass count k of n, Wilson interval."""
+
+    scale: float
+    k: int
+    n: int
+    low: float
+    high: float
+
+    @property
+    def yield_(self) -> float:
+        return self.k / self.n
+
+
+@dataclass(frozen=True)
+class Alone:
+    """The loosest width of one tolerance alone (None with a reason when there is none)."""
+
+    key: str
+    form: str
+    width: float | None
+    yield_: float | None
+    yield_low: float | None
+    yield_high: float | None
+    width_low: float | None = None
+    width_high: float | None = None
+    reason: str | None = None
+    bound: float | None = None
+    curve: tuple[tuple[float, float], ...] = ()  # (width, yield) evaluated
+
+
+@dataclass(frozen=True)
+class Balanced:
+    scale: float
+    widths: Mapping[str, float]
+    yield_: float
+    yield_low: float
+    yield_high: float
+    scale_low: float
+    scale_high: float
+    at_bound: bool = False
+
+
+@dataclass(frozen=True)
+class Combination:
+    widths: Mapping[str, float]
+    cost: float
+    yield_: float
+    yield_low: float
+    yield_high: float
+
+
+@dataclass(frozen=True)
+class Cheapest:
+    best: Combination
+    alternatives: tuple[Combination, ...]
+    evaluations: int
+    combinations: int
+
+
+@dataclass(frozen=True)
+class CandidateAllocation:
+    name: str
+    alone: Mapping[str, Alone]
+    balanced: Balanced
+    cheapest: Cheapest | None
+    given: Mapping[str, Distribution]
+    allocated: Mapping[str, Distribution]  # the tolerances the drawing table shows
+    basis: str  # "cheapest" or "balanced"
+    yield_: float
+
+
+@dataclass(frozen=True)
+class Allocation:
+    target_yield: float
+    samples: int
+    seed: int
+    vary: tuple[str, ...]
+    candidates: tuple[CandidateAllocation, ...] = field(default_factory=tuple)
+
+
+# ----------------------------------------------------------------------------- yields
+
+
+class _Yields:
+    """Cached yields of one candidate at scale factors on some tolerances (same draws)."""
+
+    def __init__(self, eng: Engine, cand: Candidate, tol: Mapping[str, Distribution]):
+        self.eng = eng
+        self.cand = cand
+        self.tol = dict(tol)
+        self.conf = eng.study.run.confidence
+        self.cache: dict = {}
+
+    def at(self, scales: Mapping[str, float]) -> Point:
+        key = tuple(sorted((k, round(float(f), 12)) for k, f in scales.items()))
+        hit = self.cache.get(key)
+        if hit is None:
+            case = self.eng.case(self.cand, tolerances=self.tol, scale=dict(scales))
+            y = self.eng.pass_rate(case)
+            n = self.eng.samples
+            k = int(round(y * n))
+            lo, hi = wilson(k, n, self.conf)
+            hit = Point(float(np.mean(list(scales.values()))) if scales else 1.0, k, n, lo, hi)
+            self.cache[key] = hit
+        return hit
+
+
+def _largest_passing(
+    y, target: float, f_max: float, start: float = 1.0, rtol: float = RTOL, seen: dict | None = None
+):
+    """The largest scale f in [0, f_max] with y(f) >= target, on the monotone envelope.
+
+    ``y(f)`` returns a :class:`Point`.  Returns (f, point at f, f_fail or None); f is None when
+    even f = 0 fails.  Bracketing by factors of 2 from ``start``, then bisection in log f.
+    """
+    seen = {} if seen is None else seen
+
+    def ev(f):
+        if f not in seen:
+            seen[f] = y(f)
+        return seen[f]
+
+    if ev(0.0).yield_ < target:
+        return None, seen[0.0], 0.0
+    if ev(f_max).yield_ >= target:
+        return f_max, seen[f_max], None
+    f = min(max(start, 1e-6 * f_max), f_max)
+    lo, hi = 0.0, f_max
+    if ev(f).yield_ >= target:
+        lo = f
+        while lo < f_max:
+            f = min(2.0 * lo, f_max)
+            if ev(f).yield_ >= target:
+                lo = f
+            else:
+                hi = f
+                break
+    else:
+        hi = f
+        while True:
+            f = hi / 2.0
+            if f < 1e-4 * f_max:
+                break
+            if ev(f).yield_ >= target:
+                lo = f
+                break
+            hi = f
+    while hi - lo > rtol * max(lo, 1e-12) and (lo > 0 or hi > 1e-4 * f_max):
+        mid = math.sqrt(lo * hi) if lo > 0 else hi / 2.0
+        if ev(mid).yield_ >= target:
+            lo = mid
+        else:
+            hi = mid
+        if lo == 0 and hi < 1e-4 * f_max:
+            break
+    return lo, ev(lo), hi
+
+
+def reach_offset(dist: Distribution) -> float:
+    """How far the values reach from the nominal: 6 σ, the half width or the half range."""
+    if dist.kind == "normal":
+        return 6.0 * dist.sigma
+    if dist.kind == "uniform":
+        return dist.half_width
+    return 0.5 * (dist.high - dist.low)
+
+
+def physical_bound(key: str, cand: Candidate) -> float:
+    """The largest sensible reach of a tolerance (angles 45°, tilt 88°, retardance 0.5 wave,
+    thickness half the thinnest layer, temperature ±100 °C). [key's unit]"""
+    if key in ANGLE_BOUND:
+        return ANGLE_BOUND[key]
+    if key == "tilt_deg":
+        return TILT_BOUND
+    if key == "retardance_waves":
+        return RETARDANCE_BOUND
+    if key == "thickness_um":
+        return 0.5 * min(la.thickness_um for la in cand.plate.layers)
+    return TEMPERATURE_BOUND
+
+
+def _scale_bound(key: str, dist: Distribution, cand: Candidate) -> float:
+    return physical_bound(key, cand) / reach_offset(dist)
+
+
+def _width_range(points: Mapping[float, Point], f_ans: float, f_fail: float | None):
+    """Scales whose yields reach the ends of the Wilson interval at the answer.
+
+    The yield near the answer is taken as linear in the scale: a least-squares line through
+    the evaluated points within a factor 1.3 of the bracket [answer, first failure] (costs no
+    further evaluation); the range is where that line meets the interval's ends.
+    """
+    p = points[f_ans]
+    hi = f_fail if f_fail is not None else f_ans
+    sel = [(f, q.yield_) for f, q in points.items() if f_ans / 1.3 <= f <= hi * 1.3]
+    if len(sel) < 2:
+        return f_ans, f_ans
+    f, yv = np.array(sel).T
+    slope = np.polyfit(f, yv, 1)[0] if np.ptp(f) > 0 else 0.0
+    if not slope < 0:
+        return f_ans, f_ans
+    lo = max(0.0, f_ans + (p.high - p.yield_) / slope)
+    up = f_ans + (p.low - p.yield_) / slope
+    return min(lo, f_ans), max(up, f_ans)
+
+
+# ----------------------------------------------------------------------------- the three answers
+
+
+def allocate_alone(yc: _Yields, key: str, target: float) -> Alone:
+    """The loosest width of ``key`` with the others as given."""
+    dist = yc.tol[key]
+    w0 = dist.width
+    f_max = _scale_bound(key, dist, yc.cand)
+
+    def y(f):
+        return yc.at({key: f})
+
+    seen: dict = {}
+    f, pt, f_fail = _largest_passing(y, target, f_max, seen=seen)
+    curve = tuple(sorted((s * w0, p.yield_) for (((_, s),), p) in _single(yc, key)))
+    if f is None:
+        return Alone(
+            key,
+            dist.form,
+            None,
+            None,
+            None,
+            None,
+            reason=f"even zero width gives yield {pt.yield_:.4f} < {target:g}: the others sink it",
+            curve=curve,
+        )
+    if f == f_max:
+        return Alone(
+            key,
+            dist.form,
+            None,
+            None,
+            None,
+            None,
+            reason=f"no width up to the physical bound {f_max * w0:.6g} fails",
+            bound=f_max * w0,
+            curve=curve,
+        )
+    f_lo, f_hi = _width_range(seen, f, f_fail)
+    curve = tuple(sorted((s * w0, p.yield_) for (((_, s),), p) in _single(yc, key)))
+    return Alone(
+        key, dist.form, f * w0, pt.yield_, pt.low, pt.high, f_lo * w0, f_hi * w0, curve=curve
+    )
+
+
+def _single(yc: _Yields, key: str):
+    return [(k, p) for k, p in yc.cache.items() if len(k) == 1 and k[0][0] == key]
+
+
+def allocate_balanced(yc: _Yields, vary: Sequence[str], target: float) -> Balanced:
+    """One common scale factor on every varied width that brings the yield to the target."""
+    f_max = min(_scale_bound(k, yc.tol[k], yc.cand) for k in vary)
+
+    def y(f):
+        return yc.at(dict.fromkeys(vary, f))
+
+    seen: dict = {}
+    f, pt, f_fail = _largest_passing(y, target, f_max, seen=seen)
+    if f is None:
+        raise _unreachable(yc, vary, target, pt)
+    f_lo, f_hi = (f, f) if f == f_max else _width_range(seen, f, f_fail)
+    return Balanced(
+        f,
+        {k: yc.tol[k].width * f for k in vary},
+        pt.yield_,
+        pt.low,
+        pt.high,
+        f_lo,
+        f_hi,
+        at_bound=f == f_max,
+    )
+
+
+def _unreachable(yc: _Yields, vary, target, pt: Point) -> RetolError:
+    """Name what blocks the target when every varied width is zero."""
+    eng = yc.eng
+    nom_case = eng.case(yc.cand, tolerances=yc.tol)
+    others = [k for k in nom_case.active if k not in vary]
+    blocker, best = "the nominal plate (it misses the goal with no errors at all)", pt.yield_
+    if eng.pass_rate(nom_case, active=()) >= 1.0 and others:
+        gains = {
+            k: eng.pass_rate(nom_case, active=[o for o in others if o != k] + list(nom_case.fixed))
+            for k in others
+        }
+        top = max(gains, key=gains.get)
+        best = max(best, gains[top])
+        blocker = f"{top} (not varied; add it to --vary)"
+    return RetolError(
+        f"candidate {yc.cand.name!r}",
+        f"target yield {target:g} is unreachable: best yield {best:.4f} with every varied width "
+        f"at zero; blocked by {blocker}",
+        "lower --target-yield or vary the blocking tolerance",
+    )
+
+
+def allocate_cheapest(
+    yc: _Yields, cost: Mapping[str, tuple], vary: Sequence[str], target: float
+) -> Cheapest | None:
+    """The least-cost combination of available widths with yield >= target (branch and bound).
+
+    Options dominated by a tighter, no dearer one are dropped; each key's loosest useful option
+    is found by bisection with every other key at its tightest; then a best-first search in
+    cost order from there, skipping without evaluation every combination looser than a known
+    failure (yield cannot rise when widths grow) and every one tighter than a known success.
+    """
+    keys = [k for k in cost if k in vary]
+    if not keys:
+        return None
+    opts = {}
+    for k in keys:
+        w, c = cost[k]
+        pairs = sorted(zip(w, c, strict=True), key=lambda p: -p[0])  # loosest first
+        kept = []
+        for wi, ci in reversed(pairs):  # tightest first: keep only if cheaper than all tighter
+            if not kept or ci < kept[-1][1]:
+                kept.append((wi, ci))
+        opts[k] = list(reversed(kept))  # loosest (cheapest) first, cost strictly rising
+    m = [len(opts[k]) for k in keys]
+    evals = [0]
+
+    def y(idx) -> Point:
+        scales = {k: opts[k][i][0] / yc.tol[k].width for k, i in zip(keys, idx, strict=True)}
+        n0 = len(yc.cache)
+        p = yc.at(scales)
+        evals[0] += len(yc.cache) - n0
+        return p
+
+    tightest = tuple(x - 1 for x in m)
+    if y(tightest).yield_ < target:
+        raise RetolError(
+            f"[allocation.cost] for candidate {yc.cand.name!r}",
+            f"target yield {target:g} is unreachable: the tightest widths give yield "
+            f"{y(tightest).yield_:.4f}",
+            "offer tighter widths or lower --target-yield",
+        )
+    low = []
+    for j in range(len(keys)):
+        a, b = 0, m[j] - 1  # b is feasible
+        while a < b:
+            mid = (a + b) // 2
+            idx = list(tightest)
+            idx[j] = mid
+            if y(tuple(idx)).yield_ >= target:
+                b = mid
+            else:
+                a = mid + 1
+        low.append(a)
+
+    def total(idx):
+        return sum(opts[k][i][1] for k, i in zip(keys, idx, strict=True))
+
+    start = tuple(low)
+    heap = [(total(start), start)]
+    pushed = {start}
+    fails: list[tuple] = []
+    found: list[tuple] = []
+    while heap and len(found) <= ALTERNATIVES and evals[0] < MAX_EVALUATIONS:
+        c, idx = heapq.heappop(heap)
+        if any(all(a >= b for a, b in zip(idx, f, strict=True)) for f, _ in found):
+            continue  # tighter than a success: dearer and no better an answer
+        if any(all(a <= b for a, b in zip(idx, f, strict=True)) for f in fails):
+            ok = False
+        else:
+            p = y(idx)
+            ok = p.yield_ >= target
+        if ok:
+            found.append((idx, p))
+            continue
+        fails.append(idx)
+        for j in range(len(keys)):
+            if idx[j] + 1 < m[j]:
+                nxt = idx[:j] + (idx[j] + 1,) + idx[j + 1 :]
+                if nxt not in pushed:
+                    pushed.add(nxt)
+                    heapq.heappush(heap, (total(nxt), nxt))
+    combos = [
+        Combination(
+            {k: opts[k][i][0] for k, i in zip(keys, idx, strict=True)},
+            total(idx),
+            p.yield_,
+            p.low,
+            p.high,
+        )
+        for idx, p in found
+    ]
+    return Cheapest(combos[0], tuple(combos[1:]), evals[0], int(np.prod(m)))
+
+
+# ----------------------------------------------------------------------------- the whole study
+
+
+def check_vary(study: Study, vary: Sequence[str] | None) -> tuple[str, ...]:
+    """The tolerance keys to vary: those named (each given and non-zero) or all given."""
+    given = dict(study.tolerances)
+    for c in study.candidates:
+        given.update(c.tolerances)
+    if vary is None:
+        out = tuple(k for k, d in given.items() if not d.is_zero)
+        if not out:
+            raise RetolError("--vary", "the spec gives no non-zero tolerance", "add [tolerances]")
+        return out
+    out = []
+    for k in vary:
+        if k not in given:
+            raise RetolError(
+                "--vary",
+                f"{k!r} is not a tolerance this spec gives",
+                f"choose from {', '.join(given)}",
+            )
+        if given[k].is_zero:
+            raise RetolError("--vary", f"{k!r} is zero in the spec", "give it a width first")
+        if k not in out:
+            out.append(k)
+    return tuple(out)
+
+
+def check_target(target) -> float:
+    if isinstance(target, bool) or not isinstance(target, int | float):
+        raise RetolError("--target-yield", f"must be a number, got {target!r}", "e.g. 0.99")
+    t = float(target)
+    if not (math.isfinite(t) and 0.0 < t < 1.0):
+        raise RetolError("--target-yield", f"must be in (0, 1), got {target!r}", "e.g. 0.99")
+    return t
+
+
+def allocate(
+    study: Study,
+    target_yield: float | None = None,
+    vary: Sequence[str] | None = None,
+    candidates: Sequence[str] | None = None,
+    samples: int | None = None,
+    seed: int | None = None,
+) -> Allocation:
+    """Allocate the tolerances of a study to a yield target (alone, balanced, cheapest).
+
+    Parameters
+    ----------
+    study : Study
+        From :func:`tolerance.load_spec`.
+    target_yield : float, optional
+        In (0, 1); default ``[allocation] target_yield``, else 0.99.
+    vary : sequence of str, optional
+        Tolerance keys to vary (default: every non-zero one the spec gives).
+    candidates : sequence of str, optional
+        Candidate names (default: all).
+    samples, seed : int, optional
+        Override ``[run]``.
+
+    Returns
+    -------
+    Allocation
+        One :class:`CandidateAllocation` per candidate.  Raises :class:`RetolError` on bad
+        input or an unreachable target.
+    """
+    alloc = study.allocation
+    if target_yield is None:
+        target_yield = (
+            alloc.target_yield if alloc and alloc.target_yield is not None else DEFAULT_TARGET
+        )
+    target = check_target(target_yield)
+    keys = check_vary(study, vary)
+    cands = study.candidates if not candidates else [study.candidate(n) for n in candidates]
+    eng = Engine(study, samples=samples, seed=seed)
+    cost = dict(alloc.cost) if alloc else {}
+    out = []
+    for cand in cands:
+        tol = dict(study.tolerances_for(cand))
+        mine = tuple(k for k in keys if k in tol and not tol[k].is_zero)
+        yc = _Yields(eng, cand, tol)
+        alone = {k: allocate_alone(yc, k, target) for k in mine}
+        bal = allocate_balanced(yc, mine, target)
+        cheap = allocate_cheapest(yc, cost, mine, target)
+        if cheap is not None:
+            allocated = {**tol, **{k: tol[k].with_width(w) for k, w in cheap.best.widths.items()}}
+            basis, y = "cheapest", cheap.best.yield_
+        else:
+            allocated = {**tol, **{k: tol[k].with_width(w) for k, w in bal.widths.items()}}
+            basis, y = "balanced", bal.yield_
+        out.append(CandidateAllocation(cand.name, alone, bal, cheap, tol, allocated, basis, y))
+    return Allocation(target, eng.samples, eng.seed, keys, tuple(out))
+
+
+# ----------------------------------------------------------------------------- JSON
+
+
+def _combo(c: Combination) -> dict:
+    return {
+        "widths": dict(c.widths),
+        "cost": c.cost,
+        "yield": c.yield_,
+        "yield_low": c.yield_low,
+        "yield_high": c.yield_high,
+    }
+
+
+def to_json(result: Allocation, study: Study) -> dict:
+    """The JSON contract of ``retol allocate --json`` (extra keys beside the issue's)."""
+    cands = []
+    for ca in result.candidates:
+        alone = {}
+        reasons = {}
+        for k, a in ca.alone.items():
+            if a.width is None:
+                alone[k] = None
+                reasons[k] = {"reason": a.reason, "bound": a.bound}
+            else:
+                alone[k] = {
+                    "width": a.width,
+                    "form": a.form,
+                    "yield": a.yield_,
+                    "yield_low": a.yield_low,
+                    "yield_high": a.yield_high,
+                    "width_low": a.width_low,
+                    "width_high": a.width_high,
+                }
+        b = ca.balanced
+        cheap = None
+        if ca.cheapest is not None:
+            cheap = _combo(ca.cheapest.best)
+            cheap["alternatives"] = [_combo(c) for c in ca.cheapest.alternatives]
+            cheap["evaluations"] = ca.cheapest.evaluations
+            cheap["combinations"] = ca.cheapest.combinations
+        cands.append(
+            {
+                "name": ca.name,
+                "alone": alone,
+                "alone_reasons": reasons,
+                "balanced": {
+                    "scale": b.scale,
+                    "widths": dict(b.widths),
+                    "yield": b.yield_,
+                    "yield_low": b.yield_low,
+                    "yield_high": b.yield_high,
+                    "scale_low": b.scale_low,
+                    "scale_high": b.scale_high,
+                    "at_bound": b.at_bound,
+                },
+                "cheapest": cheap,
+            }
+        )
+    return {
+        "target_yield": result.target_yield,
+        "samples": result.samples,
+        "seed": result.seed,
+        "vary": list(result.vary),
+        "candidates": cands,
+    }
+
+
+# ----------------------------------------------------------------------------- the drawing table
+
+
+def plus_minus(dist: Distribution | None) -> float:
+    """The ± a drawing shows: k σ at the spec's coverage (3 σ by default for normal forms),
+    the half width of a uniform, half a range. [key's unit]"""
+    if dist is None or dist.is_zero:
+        return 0.0
+    if dist.kind == "normal":
+        return dist.sigma * (dist.coverage if dist.coverage is not None else DEFAULT_COVERAGE)
+    if dist.kind == "uniform":
+        return dist.half_width
+    return 0.5 * (dist.high - dist.low)
+
+
+def drawing_row(study: Study, cand: Candidate, tol: Mapping[str, Distribution], yield_: float):
+    """One row of the drawing table (numeric columns, units in the names).
+
+    The plate retardance ± combines, in quadrature (GUM 5.1.2), the ``retardance_waves`` ± and
+    what each layer's independent thickness ± does to it: ∂R/∂tᵢ = sᵢ Rᵢ / tᵢ.
+    """
+    plate = cand.plate
+    at = study.retardance_at(cand)
+    row: dict = {"candidate": cand.name}
+    d_t = plus_minus(tol.get("thickness_um"))
+    for j, la in enumerate(plate.layers):
+        row[f"layer{j + 1}_thickness_um"] = la.thickness_um
+        row[f"layer{j + 1}_thickness_tol_um"] = d_t
+    r = nominal_retardance_waves(plate, at)
+    per_layer = [
+        s * nominal_retardance_waves(_only(plate, j), at) / la.thickness_um
+        for j, (la, s) in enumerate(zip(plate.layers, plate.signs(), strict=True))
+    ]
+    d_r = math.hypot(plus_minus(tol.get("retardance_waves")), d_t * math.hypot(*per_layer))
+    row["retardance_waves"] = r
+    row["retardance_tol_waves"] = d_r
+    row["retardance_at_nm"] = at
+    row["fast_axis_deg"] = plate.axis_deg
+    row["clocking_tol_deg"] = plus_minus(tol.get("clocking_deg"))
+    row["crossing_tol_deg"] = (
+        plus_minus(tol.get("crossing_deg")) if len(plate.layers) > 1 else float("nan")
+    )
+    row["tilt_tol_deg"] = plus_minus(tol.get("tilt_deg"))
+    t = tol.get("temperature_c")
+    t0 = study.environment.temperature_c
+    if t is not None and t.kind == "range":
+        row["temperature_min_c"], row["temperature_max_c"] = t.low, t.high
+    else:
+        row["temperature_min_c"] = t0 - plus_minus(t)
+        row["temperature_max_c"] = t0 + plus_minus(t)
+    row["input_azimuth_tol_deg"] = plus_minus(tol.get("input_azimuth_deg"))
+    row["yield"] = yield_
+    return row
+
+
+def _only(plate, j):
+    import dataclasses
+
+    la = plate.layers[j]
+    return dataclasses.replace(plate, layers=(la,), axis_deg=la.axis_deg)
+
+
+def drawing_rows_for_allocation(result: Allocation, study: Study) -> list[dict]:
+    return [
+        {
+            **drawing_row(study, study.candidate(ca.name), ca.allocated, ca.yield_),
+            "basis": ca.basis,
+        }
+        for ca in result.candidates
+    ]
+
+
+def drawing_rows_for_grid(grid) -> list[dict]:
+    """The drawing table of a ``retol run`` grid: the tolerances as given and their yields."""
+    import json
+
+    study = Study.from_dict(json.loads(grid.attrs["spec"]))
+    rows = []
+    for c in study.candidates:
+        y = float(grid["yield"].sel(candidate=c.name))
+        rows.append({**drawing_row(study, c, study.tolerances_for(c), y), "basis": "as given"})
+    return rows
+
+
+def write_drawing_csv(rows: list[dict], path) -> None:
+    """Write the drawing table; columns are the union of the rows' keys, blanks for NaN."""
+    import csv
+
+    cols: list[str] = []
+    for r in rows:
+        cols += [k for k in r if k not in cols]
+    with open(path, "w", newline="", encoding="utf-8") as fh:
+        w = csv.writer(fh)
+        w.writerow(cols)
+        for r in rows:
+            out = []
+            for k in cols:
+                v = r.get(k, float("nan"))
+                if isinstance(v, float):
+                    out.append("" if not math.isfinite(v) else f"{v:.6g}")
+                else:
+                    out.append(v)
+            w.writerow(out)
