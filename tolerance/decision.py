@@ -193,3 +193,17 @@ def separation_warning(names, yields, lows, highs, ranks, samples: int, confiden
         f"{confidence:.0%} intervals); the order between them rests on the tie-break. "
         f"About {need:,} samples would separate them (--samples)."
     )
+
+
+def tolerance_applies(short: str, n_layers: int, goal_over: str) -> bool:
+    """Whether a tolerance can act on a candidate at all.
+
+    The crossing between plates needs two or more layers; the laser's centre drift moves the
+    line within the band, which a goal judged at every wavelength of the band ("band") does not
+    see.  Such tolerances are shown as "not applicable", not as an effect of +0.0.
+    """
+    if short in ("crossing", "crossing_deg"):
+        return n_layers > 1
+    if short == "drift":
+        return goal_over == "spectrum"
+    return True
