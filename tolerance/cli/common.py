@@ -89,6 +89,17 @@ def fail(message: str, code: int = 2):
     sys.exit(code)
 
 
+def json_error(field: str, problem: str, fix: str | None, code: int = 2):
+    """Under --json: the error as JSON on stdout, ``{"error": {field, problem, fix}}``; exit."""
+    click.echo(json.dumps({"error": {"field": field, "problem": problem, "fix": fix}}))
+    sys.exit(code)
+
+
+def _wants_json() -> bool:
+    ctx = click.get_current_context(silent=True)
+    return bool(ctx is not None and ctx.params.get("as_json"))
+
+
 def user_errors(func):
     """Turn package errors into a one-line message and a non-zero exit; warnings go to stderr."""
 
@@ -102,8 +113,12 @@ def user_errors(func):
         try:
             return func(*args, **kwargs)
         except RetolError as exc:
+            if _wants_json():
+                json_error(exc.field, exc.problem, exc.fix)
             fail(str(exc))
         except KeyboardInterrupt:
+            if _wants_json():
+                json_error("run", "interrupted; nothing was written", None, code=130)
             fail("interrupted; nothing was written", code=130)
         finally:
             warnings.showwarning = old
