@@ -186,7 +186,7 @@ COORDS: dict[str, Var] = {
     "quantile": Var(("quantile",), "1", "quantile over samples"),
     "sample": Var(("sample",), "1", "Monte Carlo sample"),
     "tolerance_name": Var(("tolerance_name",), "", "tolerance name"),
-    "stokes": Var(("stokes",), "1", "normalised Stokes component"),
+    "stokes": Var(("stokes",), "", "normalised Stokes component"),
     "layer": Var(("layer",), "1", "layer index (light meets 0 first)"),
     "temperature": Var(("temperature",), "degC", "plate temperature"),
     "tilt": Var(("tilt",), "deg", "angle of incidence"),
