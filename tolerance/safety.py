@@ -48,8 +48,8 @@ _EITHER = (
     "set-up reviewed under the one that applies where you work."
 )
 _EYEWEAR = (
-    "Follow your local rules, consult the site's laser (or optical radiation) safety officer, "
-    "and wear the eyewear they specify when aligning."
+    "Follow your local rules, consult the site's laser safety officer (or optical radiation "
+    "safety officer), and wear the eyewear they specify when aligning."
 )
 
 
