@@ -333,7 +333,7 @@ def test_a_failing_report_keeps_the_finished_grid(spec, tmp_path, monkeypatch):
     monkeypatch.setattr(report, "build_html", broken)
     out = tmp_path / "out"
     r = CliRunner().invoke(cli, ["run", str(spec), "--out", str(out)])
-    assert r.exit_code == 3, r.output
+    assert r.exit_code == 4, r.output
     assert "figure engine broke" in r.stderr and "results grid was kept" in r.stderr
     assert (out / "grid.nc").is_file() and not (out / "report.html").exists()
     assert not (out / "figures").exists()

@@ -131,3 +131,35 @@ def test_report_screenshot(report, tmp_path):
     assert len(data) > 20_000  # a blank page compresses to a few kB
     console = [ln for ln in res.stderr.splitlines() if ":CONSOLE" in ln]
     assert console == []
+
+
+def test_all_failing_report_shows_the_no_candidate_box_first(tmp_path):
+    """A report where nothing meets the goal: in the rendered DOM the first box after the header
+    is "No candidate meets the goal" (WHATWG HTML: document order of querySelectorAll)."""
+    from test_review_outputs import all_fail_text
+
+    import tolerance
+    from tolerance.spec import loads
+
+    browser = _chromium()
+    grid = tolerance.run(loads(all_fail_text(), "fail.toml"), samples=300)
+    path = write_report(grid, tmp_path / "fail")
+    probe = tmp_path / "boxes.html"
+    script = (
+        "<script>window.addEventListener('load', function () {"
+        "var b = document.querySelectorAll('.pick, .nopick, .caution, p.note');"
+        "var out = document.createElement('pre'); out.id = 'retol-boxes';"
+        "out.textContent = JSON.stringify(Array.prototype.map.call(b, function (e) {"
+        "return [e.className, e.innerText.slice(0, 60)]; }));"
+        "document.body.appendChild(out); });</script>"
+    )
+    text = path.read_text(encoding="utf-8")
+    probe.write_text(text.replace("<head>", "<head>" + script, 1), encoding="utf-8")
+    res = _run(browser, ["--dump-dom", probe.as_uri()], tmp_path / "profile-boxes")
+    assert res.returncode == 0, res.stderr[-2000:]
+    m = re.search(r'<pre id="retol-boxes">(.*?)</pre>', res.stdout, flags=re.S)
+    assert m, res.stdout[-500:]
+    boxes = json.loads(html.unescape(m.group(1)))
+    assert boxes[0][0] == "nopick"
+    assert boxes[0][1].startswith("No candidate meets the goal")
+    assert not any(cls == "pick" for cls, _ in boxes)

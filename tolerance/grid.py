@@ -17,7 +17,7 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
-from .decision import rank
+from .decision import goal_rule, meets_goal, rank, recommended
 from .environment import (
     acceptance_half_angle,
     temperature_coefficient,
@@ -25,16 +25,9 @@ from .environment import (
     tilt_error,
 )
 from .metrics import METRICS
+from .safety import caution
 from .tolerances import SHORT
 from .version import __version__
-
-LASER_CAUTION = (
-    "retol predicts polarization only. A change of polarization changes what reflects or "
-    "transmits where downstream (polarizing beam splitters, isolators, Brewster windows), so a "
-    "new plate can send laser light along paths that were dark before. Follow IEC 60825-1 or "
-    "ANSI Z136.1 as applies locally, your site's laser-safety rules, and your laser safety "
-    "officer; wear the eyewear they specify when aligning."
-)
 
 
 @dataclass(frozen=True)
@@ -48,6 +41,10 @@ class Var:
     dims: tuple[str, ...]
     units: str
     long_name: str
+    #: How the report and figures name the unit when ``units`` alone would not say it (e.g. a
+    #: retardance in waves is stored as the dimensionless "1", the path difference over the
+    #: wavelength, because "waves" is not a unit that pint or UDUNITS parses).
+    display_units: str = ""
 
 
 _C, _W, _S, _Q = (
@@ -65,20 +62,24 @@ SCHEMA: dict[str, Var] = {
     "source_weight": Var(("wavelength",), "1", "fraction of the source power in each grid cell"),
     "construction": Var(_C, "", "plate construction"),
     "design_wavelength": Var(_C, "nm", "design wavelength"),
-    "target_waves": Var(_C, "waves", "target retardance beyond whole waves"),
+    "target_waves": Var(_C, "1", "target retardance beyond whole waves", display_units="waves"),
     "handedness": Var(
         _C, "1", "goal sense: +1 right (clockwise looking toward the source), -1 left"
     ),
     "layer_material": Var(("candidate", "layer"), "", "layer material"),
     "layer_thickness": Var(("candidate", "layer"), "um", "layer thickness"),
     "layer_axis": Var(("candidate", "layer"), "deg", "layer fast-axis angle"),
-    "nominal_retardance": Var(_W, "waves", "error-free retardance along the plate's fast axis"),
+    "nominal_retardance": Var(
+        _W, "1", "error-free retardance along the plate's fast axis", display_units="waves"
+    ),
     "nominal_axial_ratio": Var(_W, "1", "error-free axial ratio b/a"),
     "nominal_azimuth": Var(_W, "deg", "error-free major-axis azimuth"),
     "nominal_metric": Var(_W, "{mu}", "error-free {mlong}"),
     "nominal_stokes": Var(_W + ("stokes",), "1", "error-free normalised Stokes vector"),
-    "retardance_mean": Var(_W, "waves", "mean retardance over samples"),
-    "retardance_std": Var(_W, "waves", "standard deviation of retardance over samples"),
+    "retardance_mean": Var(_W, "1", "mean retardance over samples", display_units="waves"),
+    "retardance_std": Var(
+        _W, "1", "standard deviation of retardance over samples", display_units="waves"
+    ),
     "worst_metric": Var(_S, "{mu}", "each sample's worst {mlong} over the band"),
     "spectral_metric": Var(_S, "{mu}", "each sample's source-weighted {mlong}"),
     "spectral_stokes": Var(
@@ -148,13 +149,15 @@ SCHEMA: dict[str, Var] = {
     "margin_dominant": Var(_C, "", "tolerance that uses up most margin"),
     "retardance_error_temperature": Var(
         ("candidate", "temperature"),
-        "waves",
+        "1",
         "retardance change with temperature at the design wavelength",
+        display_units="waves",
     ),
     "retardance_error_tilt": Var(
         ("candidate", "tilt", "tilt_azimuth"),
-        "waves",
+        "1",
         "retardance change with angle of incidence at the design wavelength",
+        display_units="waves",
     ),
     "acceptance_half_angle": Var(
         _C,
@@ -165,20 +168,24 @@ SCHEMA: dict[str, Var] = {
         _C, "deg/K", "retardance change per kelvin at the design wavelength"
     ),
     "rank": Var(_C, "1", "rank of the candidate (1 = pick)"),
+    "meets_goal": Var(
+        _C, "1", "1 when the candidate meets the goal (see the goal_rule attribute), else 0"
+    ),
     "reason": Var(_C, "", "one-line reason for the rank"),
 }
 #: Per-wavelength variables the kernel keeps statistics of, with units and words.
 KERNEL_VARS = {
-    "retardance": ("waves", "retardance"),
+    "retardance": ("1", "retardance"),
     "axial_ratio": ("1", "axial ratio b/a"),
     "azimuth": ("deg", "major-axis azimuth"),
     "metric": ("{mu}", "{mlong}"),
 }
 for _key, (_u, _long) in KERNEL_VARS.items():
+    _shown = "waves" if _key == "retardance" else ""
     SCHEMA[f"{_key}_quantile"] = Var(
-        _Q + ("wavelength",), _u, f"quantiles over samples of the {_long}"
+        _Q + ("wavelength",), _u, f"quantiles over samples of the {_long}", _shown
     )
-    SCHEMA[f"sample_{_key}"] = Var(_S + ("wavelength",), _u, f"per-sample {_long}")
+    SCHEMA[f"sample_{_key}"] = Var(_S + ("wavelength",), _u, f"per-sample {_long}", _shown)
 
 COORDS: dict[str, Var] = {
     "candidate": Var(("candidate",), "", "candidate plate"),
@@ -186,7 +193,7 @@ COORDS: dict[str, Var] = {
     "quantile": Var(("quantile",), "1", "quantile over samples"),
     "sample": Var(("sample",), "1", "Monte Carlo sample"),
     "tolerance_name": Var(("tolerance_name",), "", "tolerance name"),
-    "stokes": Var(("stokes",), "1", "normalised Stokes component"),
+    "stokes": Var(("stokes",), "", "normalised Stokes component"),
     "layer": Var(("layer",), "1", "layer index (light meets 0 first)"),
     "temperature": Var(("temperature",), "degC", "plate temperature"),
     "tilt": Var(("tilt",), "deg", "angle of incidence"),
@@ -194,6 +201,9 @@ COORDS: dict[str, Var] = {
         ("tilt_azimuth",), "deg", "plane-of-incidence azimuth from the plate's fast axis"
     ),
 }
+#: The metadata convention the grid follows (CF attribute ``Conventions``).
+CF_CONVENTIONS = "CF-1.10"
+#: The optics conventions of the grid (sign of S3, handedness, angles).
 CONVENTIONS = (
     "time dependence exp(i(kz - wt)); S3 > 0 = clockwise looking toward the "
     "source = right-handed; angles counter-clockwise from x looking toward "
@@ -207,15 +217,13 @@ def assemble(values: dict, coords: dict, attrs: dict, metric: str, var_attrs=Non
     fmt = {"mu": info["unit"], "mlong": info["long_name"]}
 
     def da(var: Var, data, extra=None):
-        return xr.DataArray(
-            data,
-            dims=var.dims,
-            attrs={
-                "units": var.units.format(**fmt),
-                "long_name": var.long_name.format(**fmt),
-                **(extra or {}),
-            },
-        )
+        attrs = {"long_name": var.long_name.format(**fmt)}
+        units = var.units.format(**fmt)
+        if units:  # text variables carry no units (CF); every other units string parses in pint
+            attrs["units"] = units
+        if var.display_units:
+            attrs["display_units"] = var.display_units
+        return xr.DataArray(data, dims=var.dims, attrs={**attrs, **(extra or {})})
 
     data = {k: da(SCHEMA[k], v, (var_attrs or {}).get(k)) for k, v in values.items()}
     cds = {k: da(COORDS[k], v) for k, v in coords.items()}
@@ -394,6 +402,12 @@ def _decision_values(names, results, values) -> dict:
     return {"rank": ranks, "reason": reasons}
 
 
+def _goal_values(study, values) -> dict:
+    """Whether each candidate meets the goal (``[goal] yield``, else a yield above zero)."""
+    meets = meets_goal(values["yield"], study.goal.required_yield)
+    return {"meets_goal": meets.astype(np.int8)}
+
+
 def _attrs(eng, cases, mu, mlong) -> dict:
     study = eng.study
     mats = {}
@@ -427,8 +441,21 @@ def _attrs(eng, cases, mu, mlong) -> dict:
         "acceptance_limit_waves": float(study.goal.acceptance_limit_waves),
         "nominal_temperature_c": float(study.environment.temperature_c),
         "command": "",
-        "laser_caution": LASER_CAUTION,
-        "conventions": CONVENTIONS,
+        "laser_caution": caution(
+            str(study.source.table.get("shape", "")),
+            [
+                (c.plate.name, c.plate.construction, [la.material.name for la in c.plate.layers])
+                for c in cases
+            ],
+        ),
+        "Conventions": CF_CONVENTIONS,
+        "polarization_conventions": CONVENTIONS,
+        "goal_rule": goal_rule(study.goal.required_yield),
+        **(
+            {"goal_yield": float(study.goal.required_yield)}
+            if study.goal.required_yield is not None
+            else {}
+        ),
     }
 
 
@@ -464,6 +491,7 @@ def to_dataset(eng, results, tol_keys) -> xr.Dataset:
         **_environment_values(study, cases, temps, tilts, azs),
     }
     values.update(_decision_values(names, results, values))
+    values.update(_goal_values(study, values))
     n_sens = int(results[0].sensitivity_samples)
     var_attrs = {
         "yield": {"confidence": study.run.confidence, "method": "Wilson score"},
@@ -484,7 +512,10 @@ def to_dataset(eng, results, tol_keys) -> xr.Dataset:
         "tilt": tilts,
         "tilt_azimuth": azs,
     }
-    return assemble(values, coords, _attrs(eng, cases, mu, mlong), study.goal.metric, var_attrs)
+    attrs = _attrs(eng, cases, mu, mlong)
+    pick = recommended(names, values["rank"], values["meets_goal"])
+    attrs["recommended"] = pick or ""  # netCDF attributes cannot be null: "" = none meets it
+    return assemble(values, coords, attrs, study.goal.metric, var_attrs)
 
 
 def save_grid(ds: xr.Dataset, path) -> Path:

@@ -18,14 +18,22 @@ from pathlib import Path
 
 import numpy as np
 
+from .decision import tolerance_applies, yield_text
 from .errors import RetolError
 from .registry import Registry
 
 #: Figure file formats that ``save_figures`` writes.
 FORMATS = ("png", "svg", "pdf")
 
-#: Candidate colours, in spec order (repeats after six).
-PALETTE = ["#1d6a80", "#c2562f", "#6b4f96", "#7c8d24", "#c79a12", "#3b4d5c"]
+#: Candidate colours, in spec order (repeats after six): six of the Okabe-Ito colour-blind-safe
+#: colours (M. Okabe, K. Ito, "Color Universal Design (CUD): how to make figures and
+#: presentations that are friendly to colorblind people", J*FLY, 2008).  Every pair stays apart
+#: after simulated deuteranopia and protanopia (tests/test_palette.py).  Colour is never the
+#: only cue: each candidate also has its own line style and marker, and lines carry direct labels.
+PALETTE = ["#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#000000"]
+#: Line style and marker of each candidate, in step with PALETTE.
+LINESTYLES = ["-", (0, (5, 2)), (0, (1, 1.5)), (0, (6, 2, 1, 2)), (0, (3, 1, 1, 1, 1, 1)), "-"]
+MARKERS = ["o", "s", "^", "D", "v", "P"]
 
 #: Neutral inks.
 INK = "#2b2824"
@@ -94,6 +102,49 @@ def _colour(i):
     return PALETTE[i % len(PALETTE)]
 
 
+def _look(i) -> dict:
+    """Colour, line style and marker of candidate ``i`` (so colour is never the only cue)."""
+    return {
+        "color": PALETTE[i % len(PALETTE)],
+        "linestyle": LINESTYLES[i % len(LINESTYLES)],
+        "marker": MARKERS[i % len(MARKERS)],
+    }
+
+
+def rank_order(grid) -> list[int]:
+    """Candidate indices best rank first (spec order without a ranking): every figure's order."""
+    n = grid.sizes.get("candidate", len(grid["candidate"]))
+    if "rank" not in grid.variables:
+        return list(range(n))
+    return [int(i) for i in np.argsort(np.asarray(grid["rank"].values), kind="stable")]
+
+
+def _direct_labels(ax, x, curves, names, looks):
+    """Label each curve at its right end; labels of coinciding curves are spread apart."""
+    if not curves:
+        return
+    ends = [float(c[np.isfinite(c)][-1]) if np.isfinite(c).any() else np.nan for c in curves]
+    lo, hi = ax.get_ylim()
+    gap = 0.07 * (hi - lo)
+    placed = []
+    for k in np.argsort(ends):
+        y = ends[k]
+        if not np.isfinite(y):
+            continue
+        if placed and y - placed[-1] < gap:
+            y = placed[-1] + gap
+        placed.append(y)
+        ax.annotate(
+            " " + names[k],
+            (x[-1], y),
+            ha="left",
+            va="center",
+            fontsize=7.5,
+            color=looks[k]["color"],
+            annotation_clip=False,
+        )
+
+
 def _names(grid) -> list[str]:
     return [str(c) for c in grid["candidate"].values]
 
@@ -146,7 +197,11 @@ def _wrap(text, width=90) -> str:
 
 
 def _units(grid, var, default=""):
-    return str(grid[var].attrs.get("units", default)) if var in grid.variables else default
+    """The unit to print for ``var``: its ``display_units`` (e.g. waves), else its ``units``."""
+    if var not in grid.variables:
+        return default
+    a = grid[var].attrs
+    return str(a.get("display_units") or a.get("units", default))
 
 
 def _fmt_goal(grid, goal):
@@ -278,7 +333,7 @@ def metric_bands(grid):
     with _style():
         fig = _figure(7.6, 0.6 + 2.3 * len(names))
         axes = fig.subplots(len(names), 1, sharex=True, squeeze=False)[:, 0]
-        for c, ax in enumerate(axes):
+        for c, ax in zip(rank_order(grid), axes, strict=True):
             col = _colour(c)
             _source_behind(ax, grid)
             curves = []
@@ -348,13 +403,25 @@ def p05_overlay(grid):
     with _style():
         fig = _figure(7.6, 3.4)
         ax = fig.subplots()
-        curves = []
-        for c, name in enumerate(names):
+        curves, labelled, looks = [], [], []
+        mark_every = max(1, wl.size // 8)
+        for c in rank_order(grid):
             p05 = _quantile(grid, "metric_quantile", c, 0.05)
             if p05 is None:
                 continue
             curves.append(p05)
-            _curve(ax, wl, p05, color=_colour(c), linewidth=1.8, label=name)
+            labelled.append(names[c])
+            looks.append(_look(c))
+            _curve(
+                ax,
+                wl,
+                p05,
+                linewidth=1.8,
+                label=names[c],
+                markevery=mark_every,
+                markersize=4,
+                **_look(c),
+            )
         if goal is not None:
             ax.axhline(
                 goal,
@@ -382,7 +449,8 @@ def p05_overlay(grid):
         ax.set_ylabel("5th percentile" + (f" [{units}]" if units else ""))
         ax.set_title(_wrap(f"5th percentile of the samples: {_metric_label(grid)}", 88))
         _wavelength_axis(ax, grid)
-        ax.legend(loc="best")
+        _direct_labels(ax, wl, curves, labelled, looks)
+        ax.legend(loc="upper left", bbox_to_anchor=(1.12, 1.0), fontsize=7.5)
         return _finish(fig)
 
 
@@ -414,7 +482,7 @@ def retardance_bands(grid):
     with _style():
         fig = _figure(7.6, 0.5 + 2.0 * len(names))
         axes = fig.subplots(len(names), 1, sharex=True, squeeze=False)[:, 0]
-        for c, ax in enumerate(axes):
+        for c, ax in zip(rank_order(grid), axes, strict=True):
             col = _colour(c)
             nominal = np.asarray(grid["nominal_retardance"].isel(candidate=c).values, float)
             lo = _quantile(grid, "retardance_quantile", c, 0.05)
@@ -475,9 +543,7 @@ def yield_chart(grid):
     y = np.asarray(grid["yield"].values, dtype=float) * 100
     lo = np.asarray(grid["yield_low"].values, dtype=float) * 100 if _has(grid, "yield_low") else y
     hi = np.asarray(grid["yield_high"].values, dtype=float) * 100 if _has(grid, "yield_high") else y
-    order = list(range(len(names)))
-    if "rank" in grid.variables:
-        order = list(np.argsort(np.asarray(grid["rank"].values), kind="stable"))
+    order = rank_order(grid)
     conf = grid["yield"].attrs.get("confidence", grid.attrs.get("confidence"))
     method = grid["yield"].attrs.get("method")
     with _style():
@@ -497,7 +563,7 @@ def yield_chart(grid):
             ax.plot(
                 [y[c]],
                 [pos],
-                marker="o",
+                marker=_look(c)["marker"],
                 markersize=7,
                 color=col,
                 markeredgecolor="white",
@@ -505,7 +571,7 @@ def yield_chart(grid):
                 linestyle="none",
             )
             ax.annotate(
-                f"{y[c]:.1f} %  [{lo[c]:.1f}–{hi[c]:.1f}]",
+                yield_text(y[c] / 100, lo[c] / 100, hi[c] / 100),
                 (min(hi[c], 100.0), pos),
                 xytext=(8, 0),
                 textcoords="offset points",
@@ -551,12 +617,18 @@ def sensitivity_chart(grid):
     with _style():
         fig = _figure(7.6, 0.7 + len(names) * (0.55 + 0.27 * n_rows))
         axes = fig.subplots(len(names), 1, sharex=True, squeeze=False)[:, 0]
-        for c, ax in enumerate(axes):
+        for c, ax in zip(rank_order(grid), axes, strict=True):
             _candidate_title(ax, grid, c)
             if not have:
                 _empty(ax, "no tolerances in this run")
                 continue
             col = _colour(c)
+            n_layers = (
+                len([m for m in np.atleast_1d(grid["layer_material"].values[c]) if str(m)])
+                if "layer_material" in grid.variables
+                else 1
+            )
+            over = str(grid.attrs.get("goal_over", "band"))
             full = float(grid["yield"].values[c]) * 100
             alone = np.asarray(grid["sensitivity_alone"].isel(candidate=c).values, float) * 100
             without = np.asarray(grid["sensitivity_without"].isel(candidate=c).values, float) * 100
@@ -564,6 +636,19 @@ def sensitivity_chart(grid):
             order = np.argsort(-np.nan_to_num(effect, nan=-np.inf), kind="stable")
             for row, j in enumerate(order):
                 pos = len(order) - 1 - row
+                if not tolerance_applies(tols[j], n_layers, over):
+                    ax.annotate(
+                        "not applicable",
+                        (1.0, pos),
+                        xycoords=("axes fraction", "data"),
+                        xytext=(4, 0),
+                        textcoords="offset points",
+                        va="center",
+                        fontsize=7.5,
+                        color="#8a857c",
+                        annotation_clip=False,
+                    )
+                    continue
                 ax.plot([alone[j], without[j]], [pos, pos], color="#b9b2a5", linewidth=1.2)
                 ax.plot(
                     [alone[j]],
@@ -580,7 +665,8 @@ def sensitivity_chart(grid):
                 )
                 ax.annotate(
                     f"{effect[j]:+.1f}",
-                    (101, pos),
+                    (1.0, pos),
+                    xycoords=("axes fraction", "data"),
                     xytext=(4, 0),
                     textcoords="offset points",
                     va="center",
@@ -591,8 +677,25 @@ def sensitivity_chart(grid):
             ax.axvline(full, color=INK, linewidth=1.0, linestyle=(0, (3, 2)))
             ax.set_yticks(range(len(order)), [tols[j] for j in order][::-1])
             ax.set_ylim(-0.6, len(order) - 0.4)
-            ax.set_xlim(-2, 102)
             ax.grid(axis="y", visible=False)
+        # one x range for all panels, scaled to the data (98-100 % gets the whole width)
+        vals = []
+        if have:
+            vals = (
+                np.concatenate(
+                    [
+                        np.asarray(grid["sensitivity_alone"].values, float).ravel(),
+                        np.asarray(grid["sensitivity_without"].values, float).ravel(),
+                        np.asarray(grid["yield"].values, float).ravel(),
+                    ]
+                )
+                * 100
+            )
+            vals = vals[np.isfinite(vals)]
+        if len(vals):
+            lo, hi = float(vals.min()), float(vals.max())
+            pad = max(0.06 * (hi - lo), 0.05)
+            axes[-1].set_xlim(max(lo - pad, -2.0), min(hi + pad, 102.0))
         axes[-1].set_xlabel(
             "Yield [%]   (right margin: effect = yield without it − yield, in points)"
         )
@@ -846,11 +949,15 @@ def _zoom_panel(ax, grid, c, st, nominal, goal, colour):
         nom = (float(nominal @ u), float(nominal @ v))
         px.append(nom[0])
         py.append(nom[1])
+    cos = _goal_cos_limit(grid, goal) if goal is not None else None
+    if cos is not None:  # keep the goal's limit circle in view
+        rad = float(np.sqrt(max(1 - cos * cos, 0.0)))
+        px += [-rad, rad]
+        py += [-rad, rad]
     cx, cy = 0.5 * (min(px) + max(px)), 0.5 * (min(py) + max(py))
     half = 0.56 * max(max(px) - min(px), max(py) - min(py), 1e-7)
     ax.set_xlim(cx - half, cx + half)
     ax.set_ylim(cy - half, cy + half)
-    cos = _goal_cos_limit(grid, goal) if goal is not None else None
     if cos is not None:
         from matplotlib.patches import Circle
 
@@ -923,6 +1030,11 @@ def poincare_views(grid):
     idx = {name: comps.index(name) for name in ("s1", "s2", "s3")}
     order = [idx["s1"], idx["s2"], idx["s3"]]
     views = (("s1", "s2", "s3"), ("s2", "s3", "s1"))
+    # a goal over the spectrum is judged on the source-averaged (partly depolarized) state
+    spectral = str(grid.attrs.get("goal_over", "band")) == "spectrum" and _has(
+        grid, "spectral_stokes"
+    )
+    state_var = "spectral_stokes" if spectral else "design_stokes"
     any_goal = False
     any_limit = False
     with _style():
@@ -930,25 +1042,30 @@ def poincare_views(grid):
         axes = fig.subplots(
             len(names), 3, squeeze=False, gridspec_kw={"width_ratios": [1, 1, 1.05]}
         )
-        for c in range(len(names)):
+        for r, c in enumerate(rank_order(grid)):
             col = _colour(c)
             goal = goal_stokes(grid, c)
             any_goal = any_goal or goal is not None
-            st = np.asarray(grid["design_stokes"].isel(candidate=c).values, dtype=float)
+            st = np.asarray(grid[state_var].isel(candidate=c).values, dtype=float)
             st = st[np.isfinite(st).all(axis=1)]
             if st.shape[0] > MAX_SPHERE_POINTS:
                 st = st[np.linspace(0, st.shape[0] - 1, MAX_SPHERE_POINTS).astype(int)]
-            norm = np.linalg.norm(st, axis=1, keepdims=True)
-            st = st / np.where(norm > 0, norm, 1.0)
+            if not spectral:  # a pure state at one wavelength: on the sphere
+                norm = np.linalg.norm(st, axis=1, keepdims=True)
+                st = st / np.where(norm > 0, norm, 1.0)
             nominal = None
-            if _has(grid, "nominal_stokes", "design_wavelength"):
+            if spectral and _has(grid, "nominal_stokes", "source_weight"):
+                w = np.asarray(grid["source_weight"].values, dtype=float)
+                ns = np.asarray(grid["nominal_stokes"].isel(candidate=c).values, dtype=float)
+                nominal = (w[:, None] * ns).sum(axis=0) / (w.sum() or 1.0)
+            elif _has(grid, "nominal_stokes", "design_wavelength"):
                 wl = np.asarray(grid["wavelength"].values, dtype=float)
                 k = int(np.argmin(np.abs(wl - float(grid["design_wavelength"].values[c]))))
                 nominal = np.asarray(
                     grid["nominal_stokes"].isel(candidate=c, wavelength=k).values, dtype=float
                 )
             for v, (h, vv, d) in enumerate(views):
-                ax = axes[c, v]
+                ax = axes[r, v]
                 _sphere_disc(ax, h, vv, d)
                 x, y, z = st[:, idx[h]], st[:, idx[vv]], st[:, idx[d]]
                 near = z >= 0
@@ -991,7 +1108,7 @@ def poincare_views(grid):
                 if v == 0:
                     _candidate_title(ax, grid, c)
             nominal_xyz = nominal[order] if nominal is not None else None
-            _zoom_panel(axes[c, 2], grid, c, st[:, order], nominal_xyz, goal, col)
+            _zoom_panel(axes[r, 2], grid, c, st[:, order], nominal_xyz, goal, col)
             any_limit = any_limit or (goal is not None and _goal_cos_limit(grid, goal) is not None)
         handles = [
             Line2D(
@@ -1086,11 +1203,24 @@ def environment_maps(grid):
             ax = fig.add_subplot(gs[0, :])
             temps = np.asarray(grid["temperature"].values, dtype=float)
             units = _units(grid, "retardance_error_temperature", "waves")
-            for c, name in enumerate(names):
+            t_curves, t_looks, t_names = [], [], []
+            for c in rank_order(grid):
                 err = np.asarray(
                     grid["retardance_error_temperature"].isel(candidate=c).values, dtype=float
                 )
-                _curve(ax, temps, err, color=_colour(c), linewidth=1.7, label=name)
+                t_curves.append(err)
+                t_looks.append(_look(c))
+                t_names.append(names[c])
+                _curve(
+                    ax,
+                    temps,
+                    err,
+                    linewidth=1.7,
+                    label=names[c],
+                    markevery=max(1, temps.size // 8),
+                    markersize=4,
+                    **_look(c),
+                )
             if limit is not None:
                 for s in (-1, 1):
                     ax.axhline(
@@ -1117,14 +1247,22 @@ def environment_maps(grid):
             )
             ax.set_ylabel(f"Retardance error [{units}]")
             ax.set_title("Retardance change with temperature at the design wavelength")
-            ax.legend(loc="best", ncols=2)
+            _direct_labels(ax, temps, t_curves, t_names, t_looks)
+            # outside the axes: on the plot it sat on the limit line and hid coinciding curves
+            ax.legend(loc="upper left", bbox_to_anchor=(1.13, 1.0), fontsize=7)
             row = 1
         if has_tilt:
             tilt = np.asarray(grid["tilt"].values, dtype=float)
             az = np.asarray(grid["tilt_azimuth"].values, dtype=float)
             units = _units(grid, "retardance_error_tilt", "waves")
-            for c, name in enumerate(names):
-                sub = gs[row + c // ncols, c % ncols].subgridspec(
+            every = np.asarray(grid["retardance_error_tilt"].values, dtype=float)
+            # one colour scale shared by every candidate's map, so colours compare across maps
+            span = float(np.nanmax(np.abs(every))) if np.isfinite(every).any() else 0.0
+            span = span if span > 0 else 1e-6
+            norm = TwoSlopeNorm(0.0, -span, span)
+            for k, c in enumerate(rank_order(grid)):
+                name = names[c]
+                sub = gs[row + k // ncols, k % ncols].subgridspec(
                     2, 1, height_ratios=[1, 0.06], hspace=0.05
                 )
                 ax = fig.add_subplot(sub[0], projection="polar")
@@ -1136,9 +1274,6 @@ def environment_maps(grid):
                     .values,
                     dtype=float,
                 )
-                span = float(np.nanmax(np.abs(err))) if np.isfinite(err).any() else 0.0
-                span = span if span > 0 else 1e-6
-                norm = TwoSlopeNorm(0.0, -span, span)
                 th = np.radians(np.append(az, az[0] + 360.0)) if az.size > 1 else np.radians(az)
                 e = np.concatenate([err, err[:, :1]], axis=1) if az.size > 1 else err
                 if tilt.size > 1 and th.size > 1:
@@ -1177,8 +1312,16 @@ def environment_maps(grid):
                 cb.set_label(f"retardance error [{units}]", fontsize=7)
             tu = _units(grid, "tilt", "deg").replace("deg", "°")
             fig.supxlabel(
-                f"Polar maps: radius = angle of incidence [{tu}], angle = azimuth "
-                "of the plane of incidence from the fast axis",
+                _wrap(
+                    f"Polar maps (one shared colour scale): radius = angle of incidence [{tu}], "
+                    "angle = azimuth of the plane of incidence from the fast axis; contours: "
+                    + (
+                        f"solid +{limit:g}, dashed −{limit:g} {units} (the acceptance limit)"
+                        if limit is not None
+                        else "none"
+                    ),
+                    110,
+                ),
                 fontsize=7.5,
                 color="#4a463f",
             )
@@ -1233,7 +1376,8 @@ FIGURES.add(
 
 FIGURES.add(
     "poincare",
-    "Sampled output states at the design wavelength on two "
+    "Sampled output states (at the design wavelength; for a goal over the spectrum, the "
+    "source-averaged state, inside the sphere where depolarized) on two "
     "orthographic views of the Poincaré sphere, and (right) a zoom on the plane tangent "
     "to the sphere at the goal state, scaled to the spread of the samples; the dashed "
     "circle there is where a pure state at one wavelength just meets the goal.",

@@ -18,11 +18,14 @@ import csv
 import html
 import io
 import json
+import re
 from pathlib import Path
 
 import numpy as np
 
+from .decision import pct_interval, separation_warning
 from .errors import RetolError
+from .safety import caution
 
 #: Files (and the folder) that make up a report; any of them marks a folder as holding one.
 REPORT_FILE = "report.html"
@@ -226,18 +229,102 @@ def summary_rows(grid) -> list[dict]:
                 "temperature_coefficient_deg_per_k": _num(_var(grid, "temperature_coefficient", c)),
                 "acceptance_half_angle_deg": _num(_var(grid, "acceptance_half_angle", c)),
                 "rank": int(rank) if _num(rank) is not None else None,
+                "meets_goal": _meets(grid, c),
             }
         )
     return rows
 
 
+def _meets(grid, c):
+    """Whether candidate ``c`` meets the goal (grids before ``meets_goal``: yield above 0)."""
+    if "meets_goal" in grid.variables:
+        return bool(int(grid["meets_goal"].values[c]))
+    y = _num(_var(grid, "yield", c))
+    return None if y is None else y > 0
+
+
+def recommended_name(grid):
+    """The recommended candidate's name, or None when no candidate meets the goal."""
+    if "recommended" in grid.attrs:
+        return _s(grid.attrs["recommended"]) or None
+    rows = [r for r in summary_rows(grid) if r["meets_goal"] and r["rank"] is not None]
+    return min(rows, key=lambda r: r["rank"])["name"] if rows else None
+
+
+def csv_table(grid) -> tuple[list[str], list[dict]]:
+    """The columns and rows (best rank first) of summary.csv.
+
+    Every column but the names is numeric: one material, thickness and axis column per layer,
+    units in the column names (``_um``, ``_nm``, ``_deg``, ``_deg_per_k``; yields are fractions),
+    the goal metric named in its columns (e.g. ``nominal_worst_extinction_db``), and per
+    tolerance the yield without it and with it alone (blank where it does not apply).
+    """
+    from .decision import pct_digits, tolerance_applies
+
+    metric = _s(grid.attrs.get("goal_metric", "metric"))
+    over = _s(grid.attrs.get("goal_over", "band"))
+    rows = summary_rows(grid)
+    n_layers = max((len(_layers(grid, c)) for c in range(len(rows))), default=0)
+    tols = [_s(t) for t in grid["tolerance_name"].values] if "tolerance_name" in grid.coords else []
+    header = ["rank", "name", "construction", "meets_goal"]
+    for k in range(1, n_layers + 1):
+        header += [f"layer{k}_material", f"layer{k}_thickness_um", f"layer{k}_axis_deg"]
+    header += ["design_wavelength_nm"]
+    header += [f"{b}_{metric}" for b in ("nominal_worst", "p05_worst", "nominal_pass", "p05_pass")]
+    header += ["yield", "yield_low", "yield_high", "rank_yield", "dominant", "nominal_dop"]
+    header += [
+        "nominal_spectral_axial_ratio",
+        "nominal_spectral_extinction_db",
+        "temperature_coefficient_deg_per_k",
+        "acceptance_half_angle_deg",
+    ]
+    header += [f"yield_without_{t}" for t in tols] + [f"yield_alone_{t}" for t in tols]
+    out = []
+    for c, r in _by_rank(rows):
+        layers = _layers(grid, c)
+        d = {"rank": r["rank"], "name": r["name"], "construction": r["construction"]}
+        d["meets_goal"] = None if r["meets_goal"] is None else int(r["meets_goal"])
+        for k in range(n_layers):
+            m, t, a = layers[k] if k < len(layers) else ("", None, None)
+            d[f"layer{k + 1}_material"] = m
+            d[f"layer{k + 1}_thickness_um"] = t
+            d[f"layer{k + 1}_axis_deg"] = a if a is None or np.isfinite(a) else None
+        d["design_wavelength_nm"] = r["design_wavelength_nm"]
+        for b in ("nominal_worst", "p05_worst", "nominal_pass", "p05_pass"):
+            d[f"{b}_{metric}"] = r[b]
+        ys = (r["yield"], r["yield_low"], r["yield_high"])
+        # the same digits as the terminal and the report (percent decimals + 2 as a fraction)
+        digits = pct_digits(*ys) + 2 if None not in ys else 6
+        for key, v in zip(("yield", "yield_low", "yield_high"), ys, strict=True):
+            d[key] = None if v is None else f"{v:.{digits}f}"
+        for key in (
+            "rank_yield",
+            "dominant",
+            "nominal_dop",
+            "nominal_spectral_axial_ratio",
+            "nominal_spectral_extinction_db",
+            "temperature_coefficient_deg_per_k",
+            "acceptance_half_angle_deg",
+        ):
+            d[key] = r[key]
+        for j, t in enumerate(tols):
+            ok = tolerance_applies(t, len(layers), over)
+            for kind in ("without", "alone"):
+                var = f"sensitivity_{kind}"
+                v = _num(grid[var].values[c, j]) if var in grid.variables and ok else None
+                d[f"yield_{kind}_{t}"] = v
+        out.append(d)
+    return header, out
+
+
 def write_summary_csv(grid, path) -> Path:
     """Write ``summary_rows`` as CSV (numbers to 6 significant digits, blank = absent)."""
     path = Path(path)
+    header, rows = csv_table(grid)
     with path.open("w", newline="", encoding="utf-8") as fh:
-        w = csv.DictWriter(fh, fieldnames=SUMMARY_COLUMNS, lineterminator="\n")
+        w = csv.DictWriter(fh, fieldnames=header, lineterminator="\n")
         w.writeheader()
-        for row in summary_rows(grid):
+        for row in rows:
             w.writerow(
                 {
                     k: "" if v is None else (f"{v:.6g}" if isinstance(v, float) else v)
@@ -270,6 +357,9 @@ h3 { font-size: 15px; margin: 18px 0 6px; }
 .pick { background: var(--pick); border-left: 5px solid var(--accent); padding: 12px 16px;
         margin: 16px 0; }
 .pick .name { font-size: 18px; font-weight: 700; }
+.nopick { background: #fbf1ee; border-left: 5px solid var(--warn); padding: 12px 16px;
+          margin: 16px 0; }
+.nopick .name { font-size: 18px; font-weight: 700; color: var(--warn); }
 .caution { border: 2px solid var(--warn); background: #fbf1ee; padding: 12px 16px;
            margin: 16px 0; }
 .caution strong { color: var(--warn); }
@@ -306,9 +396,12 @@ footer { margin-top: 40px; color: var(--muted); font-size: 12.5px; border-top: 1
   @page { margin: 14mm 12mm; }
   html, body { background: #fff; }
   body { max-width: none; padding: 0; font-size: 10.5pt; }
-  h2 { break-after: avoid; page-break-after: avoid; }
-  figure, table, .pick, .caution, pre { break-inside: avoid; page-break-inside: avoid; }
-  figure img { border: none; max-height: 235mm; width: auto; }
+  h2, h3 { break-after: avoid; page-break-after: avoid; }
+  /* a heading stays with what follows it; figures keep a readable size (full text width) */
+  h2 + *, h3 + * { break-before: avoid; page-break-before: avoid; }
+  figure, table, .pick, .nopick, .caution, pre, p.note { break-inside: avoid;
+    page-break-inside: avoid; }
+  figure img { border: none; width: 100%; max-height: 235mm; object-fit: contain; }
   .scroll { overflow: visible; }
   pre { white-space: pre-wrap; }
 }
@@ -434,11 +527,11 @@ def _candidate_tables(grid, rows) -> str:
     perf_rows = []
     for _, r in ordered:
         y = _pct(r["yield"])
-        if r["yield_low"] is not None and r["yield_high"] is not None:
-            y += (
-                f' <span class="muted">({100 * r["yield_low"]:.1f}–'
-                f"{100 * r['yield_high']:.1f})</span>"
-            )
+        if None not in (r["yield"], r["yield_low"], r["yield_high"]):
+            ys, ls, hs = pct_interval(r["yield"], r["yield_low"], r["yield_high"])
+            y = f'{ys} % <span class="muted">({ls}–{hs})</span>'
+        if r.get("meets_goal") is not None:
+            y += " ✓" if r["meets_goal"] else ' <span class="muted">(misses)</span>'
         cells = [rank(r), f"<b>{_e(r['name'])}</b>"]
         if spectrum:
             cells += [_e(_fmt(r["nominal_pass"], 4)), _e(_fmt(r["p05_pass"], 4))]
@@ -545,7 +638,48 @@ def _distribution_words(d, key: str) -> str:
     except (TypeError, ValueError, AttributeError):
         return _describe(d)
     unit = {"um": " µm", "deg": "°", "_c": " °C"}
-    return dist.describe(next((v for k, v in unit.items() if key.endswith(k)), ""))
+    text = dist.describe(next((v for k, v in unit.items() if key.endswith(k)), ""))
+    # widths such as 1/3 print to 4 significant digits, not 0.3333333333333333
+    return re.sub(r"\d+\.\d{5,}", lambda m: f"{float(m.group()):.4g}", text)
+
+
+def _temperature_words(spec, t_nom) -> str:
+    """What the sampled plate temperature really was: about the nominal, or an absolute range."""
+    tol = (spec.get("tolerances") or {}).get("temperature_c") if isinstance(spec, dict) else None
+    if t_nom is None:
+        return ""
+    text = f"; the spec's nominal operating temperature is {t_nom:g} °C"
+    if not isinstance(tol, dict):
+        return text + " (the plate temperature was not sampled)"
+    from .distributions import Distribution
+
+    try:
+        dist = Distribution.from_dict(tol)
+    except (TypeError, ValueError, AttributeError):
+        return text
+    if dist.kind == "range":
+        return (
+            text + f"; sampled plate temperatures are drawn uniformly from {dist.low:.4g} to "
+            f"{dist.high:.4g} °C as written (an absolute range, not centred on the nominal)"
+        )
+    return text + " (sampled temperatures centre on it)"
+
+
+def _override_words(spec) -> list[str]:
+    """One line per candidate that overrides the study's tolerances."""
+    out = []
+    for cand in spec.get("candidates", []) if isinstance(spec, dict) else []:
+        tols = cand.get("tolerances") if isinstance(cand, dict) else None
+        if isinstance(tols, dict) and tols:
+            parts = [
+                f"{_TOL_WORDS.get(k, k)}: {_distribution_words(v, k)}" for k, v in tols.items()
+            ]
+            out.append(
+                f"Candidate {_s(cand.get('name', '?'))} overrides the tolerances above — "
+                + "; ".join(parts)
+                + "."
+            )
+    return out
 
 
 def assumptions(grid) -> list[str]:
@@ -591,7 +725,14 @@ def assumptions(grid) -> list[str]:
         if method:
             text += f" ({_s(method)})"
     out.append(text + ".")
+    out += _override_words(spec)
     out.append("A sample passes when " + _goal_text(grid) + ".")
+    rule = _s(grid.attrs.get("goal_rule") or "")
+    out.append(
+        (rule[0].upper() + rule[1:] + ".")
+        if rule
+        else "A candidate meets the goal when its yield is above zero."
+    )
     if grid.sizes.get("wavelength", 1) > 1:
         out.append(
             "Light of different wavelengths adds incoherently: output Stokes vectors are "
@@ -612,12 +753,7 @@ def assumptions(grid) -> list[str]:
             else "the materials' reference temperature"
         )
         + "; temperature changes the retardance through each material's thermal data"
-        + (
-            f"; the spec's nominal operating temperature is {t_nom:g} °C (sampled "
-            f"temperatures centre on it)"
-            if t_nom is not None
-            else ""
-        )
+        + _temperature_words(spec, t_nom)
         + "."
     )
     out.append(
@@ -720,6 +856,50 @@ def drawing_section(grid, rows=None, figure_png: bytes | None = None) -> str:
     return "\n".join(out)
 
 
+def _no_candidate_box(grid, rows, best, rule) -> str:
+    closest = best[0] if best else max(rows, key=lambda r: r["yield"] or 0)
+    y = closest["yield"]
+    ytxt = (
+        " ".join(pct_interval(y, closest["yield_low"], closest["yield_high"])[:1]) + " %"
+        if None not in (y, closest["yield_low"], closest["yield_high"])
+        else "—"
+    )
+    return (
+        '<div class="nopick" id="no-candidate"><div class="name">No candidate meets the goal'
+        "</div><div>Nothing is recommended. The closest is "
+        f"<b>{_e(closest['name'])}</b> ({_e(closest['construction'])}), yield {_e(ytxt)}."
+        + (f" Rule: {_e(rule)}." if rule else "")
+        + " Loosen a tolerance, relax the goal or add a candidate.</div></div>"
+    )
+
+
+def _separation(grid, rows):
+    if any(r[k] is None for r in rows for k in ("yield", "yield_low", "yield_high", "rank")):
+        return None
+    return separation_warning(
+        [r["name"] for r in rows],
+        [r["yield"] for r in rows],
+        [r["yield_low"] for r in rows],
+        [r["yield_high"] for r in rows],
+        [r["rank"] for r in rows],
+        int(grid.attrs.get("samples", 0) or 0),
+        float(grid.attrs.get("confidence", 0.95)),
+    )
+
+
+def safety_text(grid) -> str:
+    """The optical-safety caution for the grid's source and candidates (IEC 60825-1 / 62471)."""
+    spec = _json_attr(grid, "spec", {}) or {}
+    shape = ""
+    if isinstance(spec, dict) and isinstance(spec.get("source"), dict):
+        shape = _s(spec["source"].get("shape", ""))
+    cands = [
+        (r["name"], r["construction"], [m for m, _, _ in _layers(grid, c)])
+        for c, r in enumerate(summary_rows(grid))
+    ]
+    return caution(shape, cands) if shape else LASER_CAUTION
+
+
 def build_html(grid, figures, command=None) -> str:
     """The report page as one string.
 
@@ -768,19 +948,27 @@ def build_html(grid, figures, command=None) -> str:
     p.append(f'<h1>{_e(title)}</h1><ul class="facts">')
     p += [f"<li><b>{_e(k)}:</b> {_e(v)}</li>" for k, v in facts]
     p.append("</ul></header>")
-    if best:
-        b = best[0]
-        c = [r["name"] for r in rows].index(b["name"])
-        reason = _s(_var(grid, "reason", c) or "")
+    rule = _s(grid.attrs.get("goal_rule") or "")
+    pick = recommended_name(grid)
+    names = [r["name"] for r in rows]
+    if pick is not None:
+        b = rows[names.index(pick)]
+        reason = _s(_var(grid, "reason", names.index(pick)) or "")
         p.append(
-            f'<div class="pick"><div class="muted">Recommended</div><div class="name">'
-            f'{_e(b["name"])} <span class="muted">({_e(b["construction"])})</span></div>'
-            f"<div>{_e(reason)}</div></div>"
+            f'<div class="pick" id="recommended"><div class="muted">Recommended</div>'
+            f'<div class="name">{_e(b["name"])} <span class="muted">'
+            f"({_e(b['construction'])})</span></div><div>{_e(reason)}</div>"
+            + (f'<div class="muted">Rule: {_e(rule)}.</div>' if rule else "")
+            + "</div>"
         )
-    # one caution box, in the report's own words (the run's attr laser_caution says the same)
+    elif rows:
+        p.append(_no_candidate_box(grid, rows, best, rule))
+    warning = _separation(grid, rows)
+    if warning:
+        p.append(f'<p class="note" id="samples-warning"><b>Note:</b> {_e(warning)}</p>')
     p.append(
-        f'<div class="caution" id="laser-safety"><strong>Laser safety.</strong> '
-        f"{_e(LASER_CAUTION)}</div>"
+        f'<div class="caution" id="laser-safety"><strong>Optical safety.</strong> '
+        f"{_e(safety_text(grid))}</div>"
     )
 
     p.append("<h2>Candidates</h2>")
@@ -862,13 +1050,19 @@ def build_html(grid, figures, command=None) -> str:
 # ----------------------------------------------------------------------------- writing
 
 
-def _render_all(grid, folder: Path, formats):
-    """Draw each figure once; write the requested formats into ``folder``; return PNGs."""
+def _render_all(grid, folder: Path, formats, progress=None):
+    """Draw each figure once; write the requested formats into ``folder``; return PNGs.
+
+    ``progress(done, total, name)`` is called before each figure (for a progress display).
+    """
     from .plots import FIGURES, figure_names, render
 
     embedded = []
     folder.mkdir()
-    for name in figure_names(grid):
+    names = figure_names(grid)
+    for k, name in enumerate(names):
+        if progress is not None:
+            progress(k, len(names), name)
         func, caption = FIGURES[name].payload, FIGURES[name].help
         fig = func(grid)
         buf = io.BytesIO()
@@ -885,7 +1079,7 @@ def _render_all(grid, folder: Path, formats):
     return embedded
 
 
-def render_report(grid, folder, formats=("png",), command=None) -> Path:
+def render_report(grid, folder, formats=("png",), command=None, progress=None) -> Path:
     """Write report.html, summary.csv and figures/ into the existing folder ``folder``.
 
     No checks of the folder and no publishing: :func:`write_report` (and ``retol run``) call
@@ -896,13 +1090,15 @@ def render_report(grid, folder, formats=("png",), command=None) -> Path:
     formats = check_formats(formats)
     check_grid(grid)
     folder = Path(folder)
-    figures = _render_all(grid, folder / FIGURE_DIR, formats)
+    figures = _render_all(grid, folder / FIGURE_DIR, formats, progress)
     write_summary_csv(grid, folder / SUMMARY_FILE)
     (folder / REPORT_FILE).write_text(build_html(grid, figures, command), encoding="utf-8")
     return folder / REPORT_FILE
 
 
-def write_report(grid, out_dir, formats=("png",), force: bool = False, command=None) -> Path:
+def write_report(
+    grid, out_dir, formats=("png",), force: bool = False, command=None, progress=None
+) -> Path:
     """Write report.html, summary.csv and figures/ for ``grid`` into ``out_dir``.
 
     Parameters
@@ -919,6 +1115,8 @@ def write_report(grid, out_dir, formats=("png",), force: bool = False, command=N
         Replace a previous report in ``out_dir`` (only the files retol wrote).
     command : str, optional
         The command line that wrote this report, shown in it.
+    progress : callable, optional
+        ``progress(done, total, figure_name)`` before each figure is drawn.
 
     Returns
     -------
@@ -945,7 +1143,7 @@ def write_report(grid, out_dir, formats=("png",), force: bool = False, command=N
     check_grid(grid)
     with Output(out_dir, force=force, replaces=REPORT, command=command) as out:
         try:
-            render_report(grid, out.part, formats, command)
+            render_report(grid, out.part, formats, command, progress)
         except OSError as exc:
             raise write_error(exc, "--out", f"cannot write the report for {out.target}") from None
         target = out.publish()

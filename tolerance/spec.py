@@ -60,6 +60,7 @@ GOAL_KEYS = (
     "azimuth_deg",
     "handedness",
     "acceptance_limit_waves",
+    "yield",
 )
 GOAL_STATES = ("circular", "linear")
 GOAL_OVER = ("band", "spectrum")
@@ -493,6 +494,13 @@ def _goal(ctx: _Ctx, raw: dict) -> Goal:
             f"unknown {hand!r}",
             "use right (clockwise looking toward the source) or left",
         )
+    required = ctx.number(g, "yield", "[goal].")
+    if required is not None and not 0.0 < required <= 1.0:
+        raise ctx.err(
+            "[goal].yield",
+            f"the required fraction of passing builds must lie in (0, 1], got {required!r}",
+            "give a fraction, e.g. yield = 0.95 for 95 %",
+        )
     return Goal(
         state=state,
         metric=metric,
@@ -505,6 +513,7 @@ def _goal(ctx: _Ctx, raw: dict) -> Goal:
                 g, "acceptance_limit_waves", "[goal].", default=0.01, minimum=0, strict_min=True
             )
         ),
+        required_yield=None if required is None else float(required),
     )
 
 

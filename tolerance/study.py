@@ -81,9 +81,11 @@ class Goal:
     azimuth_deg: float = 0.0
     handedness: str | None = None
     acceptance_limit_waves: float = 0.01
+    #: Required yield (``[goal] yield``, a fraction), or None: then any yield above zero. [1]
+    required_yield: float | None = None
 
     def to_dict(self) -> dict:
-        return {
+        d = {
             "state": self.state,
             "metric": self.metric,
             "min": self.min,
@@ -92,6 +94,9 @@ class Goal:
             "handedness": self.handedness,
             "acceptance_limit_waves": self.acceptance_limit_waves,
         }
+        if self.required_yield is not None:  # only when set, so older studies' JSON is unchanged
+            d["yield"] = self.required_yield
+        return d
 
 
 @dataclass(frozen=True)

@@ -119,6 +119,17 @@ def fail(message: str, code: int = 2):
     sys.exit(code)
 
 
+def json_error(field: str, problem: str, fix: str | None, code: int = 2):
+    """Under --json: the error as JSON on stdout, ``{"error": {field, problem, fix}}``; exit."""
+    click.echo(json.dumps({"error": {"field": field, "problem": problem, "fix": fix}}))
+    sys.exit(code)
+
+
+def _wants_json() -> bool:
+    ctx = click.get_current_context(silent=True)
+    return bool(ctx is not None and ctx.params.get("as_json"))
+
+
 def user_errors(func):
     """Turn package errors into a one-line message and a non-zero exit; warnings go to stderr."""
 
@@ -132,11 +143,16 @@ def user_errors(func):
         try:
             return func(*args, **kwargs)
         except RetolError as exc:
+            if _wants_json():
+                json_error(exc.field, exc.problem, exc.fix)
             fail(str(exc))
         except KeyboardInterrupt as exc:  # Ctrl-C, or SIGTERM / SIGHUP (tolerance.publish)
             from ..publish import interrupt_message
 
-            fail(*interrupt_message(exc))
+            text, code = interrupt_message(exc)
+            if _wants_json():
+                json_error("run", text, None, code=code)
+            fail(text, code=code)
         finally:
             warnings.showwarning = old
 

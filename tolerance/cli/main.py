@@ -56,6 +56,17 @@ class LazyGroup(click.Group):
         except click.UsageError as exc:
             where = exc.ctx.command_path if exc.ctx is not None else "retol"
             msg = " ".join(exc.format_message().split())
+            if "--json" in (args if args is not None else sys.argv[1:]):
+                import json
+
+                param = getattr(exc, "param", None)
+                field = (param.opts[0] if getattr(param, "opts", None) else where) or where
+                click.echo(
+                    json.dumps(
+                        {"error": {"field": field, "problem": msg, "fix": f"see '{where} --help'"}}
+                    )
+                )
+                sys.exit(2)
             click.echo(f"retol: error: {msg} (see '{where} --help')", err=True)
             sys.exit(2)
         except click.Abort:

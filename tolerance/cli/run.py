@@ -13,7 +13,7 @@ from .common import echo_json, fail, table, user_errors
 from .sweep import cluster_options
 
 #: Exit status when the results grid was written but the report was not.
-REPORT_FAILED = 3
+REPORT_FAILED = 4  # (3 is --fail-if-none: no candidate meets the goal)
 
 
 def run_size(spec, samples, keep_samples) -> tuple[int, int, int, bool]:
@@ -90,75 +90,222 @@ def summary_rows(ds):
                 "acceptance_half_angle_deg": float(ds["acceptance_half_angle"].sel(candidate=c)),
                 "rank": int(ds["rank"].sel(candidate=c)),
                 "reason": str(ds["reason"].sel(candidate=c).values),
+                "meets_goal": bool(int(ds["meets_goal"].sel(candidate=c)))
+                if "meets_goal" in ds.variables
+                else float(ds["yield"].sel(candidate=c)) > 0,
+                "sensitivity": _sensitivity(ds, c),
             }
         )
     return rows
 
 
-def _pct(x: float) -> str:
-    """A yield in percent, with more digits near 0 and 100 % so an interval never looks exact."""
-    v = 100.0 * x
-    return f"{v:.2f}" if (v < 1.0 or v > 99.0) and v not in (0.0, 100.0) else f"{v:.1f}"
+def _sensitivity(ds, c) -> dict:
+    """Per tolerance: the yield without it and with it alone (null where it does not apply)."""
+    from ..decision import tolerance_applies
+
+    if "tolerance_name" not in ds.coords or "sensitivity_alone" not in ds.variables:
+        return {}
+    n_layers = len([m for m in ds["layer_material"].sel(candidate=c).values if str(m)])
+    over = str(ds.attrs.get("goal_over", "band"))
+    out = {}
+    for t in ds["tolerance_name"].values:
+        t = str(t)
+        ok = tolerance_applies(t, n_layers, over)
+        out[t] = {
+            "applies": ok,
+            "yield_without": float(ds["sensitivity_without"].sel(candidate=c, tolerance_name=t))
+            if ok
+            else None,
+            "yield_alone": float(ds["sensitivity_alone"].sel(candidate=c, tolerance_name=t))
+            if ok
+            else None,
+        }
+    return out
 
 
-def print_summary(ds, rows):
+def json_summary(ds, rows, folder) -> dict:
+    """The ``--json`` document: goal, metric (name, unit), recommendation, candidates."""
+    pick = next((r["name"] for r in sorted(rows, key=lambda r: r["rank"]) if r["meets_goal"]), None)
+    return {
+        "metric": {
+            "name": str(ds.attrs.get("goal_metric", "")),
+            "unit": str(ds.attrs.get("metric_units", "")),
+            "long_name": str(ds.attrs.get("metric_long_name", "")),
+        },
+        "goal": {
+            "state": str(ds.attrs.get("goal_state", "")),
+            "min": float(ds.attrs["goal_min"]),
+            "over": str(ds.attrs.get("goal_over", "")),
+            "yield": float(ds.attrs["goal_yield"]) if "goal_yield" in ds.attrs else None,
+            "rule": str(ds.attrs.get("goal_rule", "")),
+        },
+        "recommended": pick,
+        "candidates": rows,
+        "output": str(folder),
+    }
+
+
+def _yield_cell(r) -> str:
+    from ..decision import pct_interval
+
+    ys, ls, hs = pct_interval(r["yield"], r["yield_low"], r["yield_high"])
+    return f"{ys}% [{ls}, {hs}]"
+
+
+def _terminal_width() -> int:
+    return shutil.get_terminal_size((100, 24)).columns
+
+
+def print_summary(ds, rows, wide: bool = False):
+    """The run's table on stdout: compact by default (fits the terminal), all columns with wide.
+
+    Best rank first; then the verdict (the recommendation, or that no candidate meets the goal
+    and which comes closest), any warning that the samples cannot separate the top two, and the
+    ranking reasons.
+    """
+    from ..decision import separation_warning
+
     unit = ds.attrs.get("metric_units", "")
     metric = ds.attrs.get("goal_metric", "")
+    shown = f" {unit}" if unit not in ("", "1") else ""
+    conf = float(ds.attrs.get("confidence", ds["yield"].attrs.get("confidence", 0.95)))
     click.echo(
         f"{ds.attrs.get('title', '')}: goal {ds.attrs['goal_state']} with {metric} >= "
-        f"{ds.attrs['goal_min']:g} {unit if unit != '1' else ''}over the "
+        f"{ds.attrs['goal_min']:g}{shown} over the "
         f"{ds.attrs['goal_over']}; source {ds.attrs.get('source_description', '')}; "
         f"{ds.attrs['samples']} samples, seed {ds.attrs['seed']}"
     )
     spectrum = ds.attrs["goal_over"] == "spectrum"
-    if spectrum:
-        click.echo(
-            "(worst columns: over the band; spectrum columns: the source-weighted metric "
-            "the pass test uses)"
-        )
-    body = []
-    for r in sorted(rows, key=lambda r: r["rank"]):
-        th = " + ".join(f"{la['thickness_um']:.2f}" for la in r["layers"])
-        body.append(
-            [
-                r["rank"],
-                r["name"],
-                r["construction"],
-                th,
-                f"{r['nominal_worst']:.4f}",
-                f"{r['median_worst']:.4f}",
-                f"{r['p05_worst']:.4f}",
-                *([f"{r['nominal_pass']:.4f}", f"{r['p05_pass']:.4f}"] if spectrum else []),
-                f"{_pct(r['yield'])}% [{_pct(r['yield_low'])}, {_pct(r['yield_high'])}]",
-                r["dominant"],
-                f"{r['nominal_dop']:.4f}",
-                f"{r['temperature_coefficient_deg_per_k']:+.4f}",
-                f"{r['acceptance_half_angle_deg']:.2f}",
-            ]
-        )
-    click.echo(
-        table(
-            body,
-            [
-                "#",
-                "candidate",
-                "construction",
-                "thicknesses [um]",
-                "nominal worst",
-                "median worst",
-                "p05 worst",
-                *(["nominal (spectrum)", "p05 (spectrum)"] if spectrum else []),
-                "yield [95% CI]",
-                "dominant",
-                "nominal DOP",
-                "deg/K",
-                "accept. [deg]",
-            ],
-        )
-    )
+    ci = f"yield [{conf:.0%} CI]"
+    body, head = [], []
+    ordered = sorted(rows, key=lambda r: r["rank"])
+    if wide:
+        if spectrum:
+            click.echo(
+                "(worst columns: over the band; spectrum columns: the source-weighted metric "
+                "the pass test uses)"
+            )
+        head = [
+            "#",
+            "candidate",
+            "construction",
+            "thicknesses [um]",
+            "nominal worst",
+            "median worst",
+            "p05 worst",
+            *(["nominal (spectrum)", "p05 (spectrum)"] if spectrum else []),
+            ci,
+            "meets",
+            "dominant",
+            "nominal DOP",
+            "deg/K",
+            "accept. [deg]",
+        ]
+        for r in ordered:
+            th = " + ".join(f"{la['thickness_um']:.2f}" for la in r["layers"])
+            body.append(
+                [
+                    r["rank"],
+                    r["name"],
+                    r["construction"],
+                    th,
+                    f"{r['nominal_worst']:.4f}",
+                    f"{r['median_worst']:.4f}",
+                    f"{r['p05_worst']:.4f}",
+                    *([f"{r['nominal_pass']:.4f}", f"{r['p05_pass']:.4f}"] if spectrum else []),
+                    _yield_cell(r),
+                    "yes" if r["meets_goal"] else "no",
+                    r["dominant"],
+                    f"{r['nominal_dop']:.4f}",
+                    f"{r['temperature_coefficient_deg_per_k']:+.4f}",
+                    f"{r['acceptance_half_angle_deg']:.2f}",
+                ]
+            )
+    else:
+        which = "p05 (spectrum)" if spectrum else "p05 worst"
+        head = ["#", "candidate", "construction", which, ci, "meets", "dominant"]
+        for r in ordered:
+            body.append(
+                [
+                    r["rank"],
+                    r["name"],
+                    r["construction"],
+                    f"{r['p05_pass' if spectrum else 'p05_worst']:.4f}",
+                    _yield_cell(r),
+                    "yes" if r["meets_goal"] else "no",
+                    r["dominant"],
+                ]
+            )
+    click.echo(table(body, head))
+    if not wide:
+        click.echo("(--wide for every column: thicknesses, nominal values, DOP, deg/K, acceptance)")
     click.echo("")
-    for r in sorted(rows, key=lambda r: r["rank"]):
+    pick = next((r for r in ordered if r["meets_goal"]), None)
+    rule = ds.attrs.get("goal_rule", "")
+    if pick is None and ordered:
+        c = ordered[0]
+        click.echo(
+            f"NO CANDIDATE MEETS THE GOAL ({rule}). Closest: {c['name']}, yield "
+            f"{_yield_cell(c)}. Nothing is recommended."
+        )
+    elif pick is not None:
+        click.echo(f"Recommended: {pick['name']} ({rule}).")
+    warning = separation_warning(
+        [r["name"] for r in rows],
+        [r["yield"] for r in rows],
+        [r["yield_low"] for r in rows],
+        [r["yield_high"] for r in rows],
+        [r["rank"] for r in rows],
+        int(ds.attrs["samples"]),
+        conf,
+    )
+    if warning:
+        click.echo(f"warning: {warning}")
+    for r in ordered:
         click.echo(f"{r['rank']}. {r['name']}: {r['reason']}")
+
+
+def kernel_is_cached() -> bool:
+    """Whether numba holds a compiled Monte Carlo kernel in its on-disk cache."""
+    import os
+
+    from .. import kernel
+
+    here = Path(kernel.__file__).parent
+    roots = [here / "__pycache__"]
+    if os.environ.get("NUMBA_CACHE_DIR"):
+        roots.append(Path(os.environ["NUMBA_CACHE_DIR"]))
+    return any(any(r.rglob("kernel.chunk_pass*.nbi")) for r in roots if r.is_dir())
+
+
+def compile_notice(stream=None) -> bool:
+    """Say on stderr (a terminal only) that the kernel compiles when its cache is cold.
+
+    Returns True when the notice was printed.  The kernel's compiled code is cached on disk by
+    numba; a cold cache means the first run spends tens of seconds compiling.
+    """
+    stream = stream or sys.stderr
+    if not stream.isatty() or kernel_is_cached():
+        return False
+    click.echo(
+        "compiling the Monte Carlo kernel, first run only (about half a minute)...", err=True
+    )
+    return True
+
+
+def figure_progress():
+    """A progress callback for the report's figures, on stderr when it is a terminal."""
+    if not sys.stderr.isatty():
+        return None
+
+    def show(done, total, name):
+        click.echo(
+            f"\rwriting the report: figure {done + 1}/{total} ({name})...\x1b[K",
+            err=True,
+            nl=done + 1 == total,
+        )
+
+    return show
 
 
 def execute(
@@ -176,12 +323,13 @@ def execute(
     quiet=False,
     workers=None,
     scheduler=None,
+    wide=False,
 ):
     """Run a spec end to end: Monte Carlo, grid, report, published all or nothing into --out.
 
     The output folder is checked, locked and its part folder made before the Monte Carlo (see
     :mod:`tolerance.publish`).  If the report fails after the run, the grid is still published
-    and the command ends with one line naming what failed and exit status 3.
+    and the command ends with one line naming what failed and exit status 4.
     """
     from ..grid import save_grid
     from ..montecarlo import run as mc_run
@@ -205,6 +353,8 @@ def execute(
         bar.update(done - state["last"])
         state["last"] = done
 
+    if not quiet:
+        compile_notice()
     report_error = None
     with Output(folder, force=force, replaces=RUN, command=command) as target:
         try:
@@ -231,13 +381,17 @@ def execute(
 
         write_drawing_csv(drawing_rows_for_grid(ds), target.part / "drawing.csv")
         if write_report:
-            report_error = _report_into(ds, target.part, formats, command)
+            report_error = _report_into(
+                ds, target.part, formats, command, None if quiet else figure_progress()
+            )
         folder = target.publish()
     rows = summary_rows(ds)
     if as_json:
-        echo_json({"candidates": rows, "drawing": drawing, "output": str(folder)})
+        doc = json_summary(ds, rows, folder)
+        doc["drawing"] = drawing_rows_for_grid(ds)
+        echo_json(doc)
     else:
-        print_summary(ds, rows)
+        print_summary(ds, rows, wide=wide)
         click.echo(
             f"\nwrote {folder / 'grid.nc'}"
             + (f", {folder / 'report.html'}, summary.csv and figures/" if write_report else "")
@@ -252,12 +406,12 @@ def execute(
     return ds, folder
 
 
-def _report_into(ds, part: Path, formats, command) -> str | None:
+def _report_into(ds, part: Path, formats, command, progress=None) -> str | None:
     """Write the report into the part folder; on failure remove its pieces and say why."""
     from ..report import FIGURE_DIR, REPORT_FILE, SUMMARY_FILE, render_report
 
     try:
-        render_report(ds, part, formats=formats, command=command)
+        render_report(ds, part, formats=formats, command=command, progress=progress)
         return None
     except Exception as exc:  # a finished grid is never lost to a failing report
         shutil.rmtree(part / FIGURE_DIR, ignore_errors=True)
@@ -287,6 +441,7 @@ def _report_into(ds, part: Path, formats, command) -> str | None:
     "--format",
     "formats",
     multiple=True,
+    type=click.Choice(["png", "svg", "pdf"], case_sensitive=False),
     help="Figure format for the report: png, svg or pdf (repeatable) "
     "[default: the spec's [report] formats, else png].",
 )
@@ -298,6 +453,15 @@ def _report_into(ds, part: Path, formats, command) -> str | None:
 )
 @cluster_options
 @click.option("--json", "as_json", is_flag=True, help="Print JSON for scripts.")
+@click.option(
+    "--wide", is_flag=True, help="Print every column of the table (default: fit the terminal)."
+)
+@click.option(
+    "--fail-if-none",
+    "fail_if_none",
+    is_flag=True,
+    help="Exit with status 3 when no candidate meets the goal.",
+)
 @user_errors
 def run(
     spec_file,
@@ -312,6 +476,8 @@ def run(
     workers,
     scheduler,
     as_json,
+    wide,
+    fail_if_none,
 ):
     """Monte Carlo tolerance analysis of SPEC_FILE: yield, spread and dominant tolerance."""
     from ..cluster import check_options
@@ -343,7 +509,7 @@ def run(
         argv.append("--keep-samples")
     if no_report:
         argv.append("--no-report")
-    execute(
+    ds, _ = execute(
         spec,
         spec_file,
         out,
@@ -357,7 +523,12 @@ def run(
         argv=argv,
         workers=workers,
         scheduler=scheduler,
+        wide=wide,
     )
+    if fail_if_none and not any(r["meets_goal"] for r in summary_rows(ds)):
+        if not as_json:
+            click.echo("retol: no candidate meets the goal (--fail-if-none): exit 3", err=True)
+        sys.exit(3)
 
 
 def _check_formats(formats):
