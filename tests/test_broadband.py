@@ -349,15 +349,25 @@ BAD_SOURCES = {
 
 
 def _assert_one_line_error(result, words):
+    """One line naming the field and the fix: on stderr, or under --json one JSON error object
+    on stdout (``{"error": {"field", "problem", "fix"}}``)."""
+    import json
+
     assert result.exit_code != 0, result.output
     assert isinstance(result.exception, SystemExit), repr(result.exception)
     assert "Traceback" not in result.output
-    assert result.stdout == ""
-    lines = [ln for ln in result.stderr.splitlines() if ln.strip()]
-    assert len(lines) == 1, result.stderr
-    assert lines[0].startswith("retol: error:"), lines[0]
+    if result.stdout:
+        lines = [ln for ln in result.stdout.splitlines() if ln.strip()]
+        assert len(lines) == 1, result.stdout
+        err = json.loads(lines[0])["error"]
+        line = f"{err['field']}: {err['problem']} ({err['fix']})"
+    else:
+        lines = [ln for ln in result.stderr.splitlines() if ln.strip()]
+        assert len(lines) == 1, result.stderr
+        assert lines[0].startswith("retol: error:"), lines[0]
+        line = lines[0]
     for w in words:
-        assert w in lines[0], lines[0]
+        assert w in line, line
 
 
 @pytest.mark.parametrize("case", list(BAD_SOURCES))
@@ -379,6 +389,6 @@ def test_laser_drift_beyond_the_formula_range_warns(invoke, tmp_path):
     spec.write_text(SPEC_TEMPLATE.format(
         source='shape = "laser"\ncenter = "2045nm"\ndrift = { sigma = "10nm" }',
         start="2030nm", stop="2050nm", design="2045nm"))
-    r = invoke("run", spec, "--json", "--no-report", "--out", tmp_path / "out", "--samples", 512)
+    r = invoke("run", spec, "--no-report", "--out", tmp_path / "out", "--samples", 512)
     assert "Traceback" not in r.output
     assert "valid range" in r.stderr

@@ -3,8 +3,6 @@
 from __future__ import annotations
 
 import json
-import shutil
-import tempfile
 from pathlib import Path
 
 import click
@@ -58,32 +56,19 @@ def _folder(out: Path, force: bool) -> Path:
 
 
 def _write(d, folder: Path):
-    from ..errors import RetolError
-    from .run import publish
+    """design.json and candidate.toml, published all or nothing (see tolerance.publish)."""
+    from ..publish import RUN, Output, write_error
+    from .common import _clean
 
-    try:
-        folder.parent.mkdir(parents=True, exist_ok=True)
-        tmp = Path(tempfile.mkdtemp(prefix=f".{folder.name}.part-", dir=folder.parent))
-    except OSError as exc:
-        raise RetolError(
-            "--out", f"cannot write into {str(folder.parent)!r} ({exc})", "choose another --out"
-        ) from None
-    try:
-        from .common import _clean
-
-        (tmp / "design.json").write_text(
-            json.dumps(_clean(d.to_dict()), indent=2, allow_nan=False) + "\n"
-        )
-        (tmp / "candidate.toml").write_text(d.toml)
-        publish(tmp, folder)
-    except OSError as exc:
-        shutil.rmtree(tmp, ignore_errors=True)
-        raise RetolError(
-            "--out", f"cannot write into {str(folder)!r} ({exc})", "choose another --out"
-        ) from None
-    except BaseException:
-        shutil.rmtree(tmp, ignore_errors=True)
-        raise
+    with Output(folder, force=True, replaces=RUN) as target:
+        try:
+            (target.part / "design.json").write_text(
+                json.dumps(_clean(d.to_dict()), indent=2, allow_nan=False) + "\n"
+            )
+            (target.part / "candidate.toml").write_text(d.toml)
+        except OSError as exc:
+            raise write_error(exc, "--out", f"cannot write the design into {folder}") from None
+        target.publish()
 
 
 def _show(v) -> str:
