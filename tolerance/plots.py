@@ -686,7 +686,7 @@ def sobol_chart(grid):
                     color="#8a857c",
                 )
         axes[-1].set_xlabel(
-            "Share of the pass/fail variance   (filled: alone, first order; open: total, "
+            "Share of the variance   (filled: alone, first order; open: total, "
             "with interactions; whiskers: bootstrap limits)"
         )
         _finish(fig)
