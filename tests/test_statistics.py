@@ -290,8 +290,8 @@ def test_sobol_indices_of_closed_forms_within_their_intervals(model, first, tota
     """Analytic indices derived in the module docstring.  One seed's 95 % bootstrap interval
     misses the truth now and then by design, so check over 40 seeds: each index's interval
     holds its analytic value in at least 80 % of them (nominal 95 %; 40 seeds give a binomial
-    standard deviation of 3.4 points), and every estimate is within 0.15 of it (the product model has
-    heavy-tailed outputs)."""
+    standard deviation of 3.4 points), and every estimate is within 0.15 of it (the product
+    model has heavy-tailed outputs)."""
     d = len(first)
     hit_first = np.zeros(d)
     hit_total = np.zeros(d)
