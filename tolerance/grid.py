@@ -186,6 +186,26 @@ for _key, (_u, _long) in KERNEL_VARS.items():
         _Q + ("wavelength",), _u, f"quantiles over samples of the {_long}", _shown
     )
     SCHEMA[f"sample_{_key}"] = Var(_S + ("wavelength",), _u, f"per-sample {_long}", _shown)
+#: Variance-based (Sobol') sensitivity indices, of the worst metric and of pass/fail.
+SOBOL_VARS = {"sobol": "the worst {mlong} over the band", "sobol_pass": "pass/fail"}
+for _key, _of in SOBOL_VARS.items():
+    for _fld, _words in (
+        ("first", "first-order Sobol' index (share of variance explained alone)"),
+        ("total", "total-order Sobol' index (share with interactions)"),
+    ):
+        SCHEMA[f"{_key}_{_fld}"] = Var(_CT, "1", f"{_words} of {_of}")
+        SCHEMA[f"{_key}_{_fld}_low"] = Var(_CT, "1", f"lower bootstrap limit: {_words} of {_of}")
+        SCHEMA[f"{_key}_{_fld}_high"] = Var(_CT, "1", f"upper bootstrap limit: {_words} of {_of}")
+SCHEMA["dominant_variance"] = Var(
+    _C, "", "tolerance with the largest total Sobol' index of pass/fail"
+)
+SCHEMA["reject_rate"] = Var(_C, "1", "reject rate 1 - yield (rare-reject estimator if used)")
+SCHEMA["reject_rate_low"] = Var(_C, "1", "lower confidence limit of the reject rate")
+SCHEMA["reject_rate_high"] = Var(_C, "1", "upper confidence limit of the reject rate")
+SCHEMA["reject_method"] = Var(_C, "", "how the reject rate was estimated")
+SCHEMA["reject_bound"] = Var(
+    _C, "1", "upper confidence bound on the reject rate when no sample failed (rule of three)"
+)
 
 COORDS: dict[str, Var] = {
     "candidate": Var(("candidate",), "", "candidate plate"),
@@ -374,6 +394,34 @@ def _margin_values(results, tol_names) -> dict:
     }
 
 
+def _explain_values(results, tol_keys) -> dict:
+    """Sobol' indices by (candidate, tolerance) and the reject-rate estimate per candidate."""
+    from .variance import FIELDS
+
+    C, T = len(results), len(tol_keys)
+    out = {}
+    for key in SOBOL_VARS:
+        for fld in FIELDS:
+            arr = np.full((C, T), np.nan)
+            for i, r in enumerate(results):
+                idx = getattr(r, key) or {}
+                for j, t in enumerate(tol_keys):
+                    if t in idx:
+                        arr[i, j] = idx[t][fld]
+            out[f"{key}_{fld}"] = arr
+    rej = [r.reject for r in results]
+    nan = float("nan")
+    out["dominant_variance"] = np.array(
+        [SHORT.get(r.dominant_variance, r.dominant_variance) for r in results], dtype=object
+    )
+    out["reject_rate"] = np.array([x.rate if x else nan for x in rej])
+    out["reject_rate_low"] = np.array([x.low if x else nan for x in rej])
+    out["reject_rate_high"] = np.array([x.high if x else nan for x in rej])
+    out["reject_method"] = np.array([x.method if x else "" for x in rej], dtype=object)
+    out["reject_bound"] = np.array([x.bound if x else nan for x in rej])
+    return out
+
+
 def _environment_values(study, cases, temps, tilts, azs) -> dict:
     env = study.environment
     limit = study.goal.acceptance_limit_waves
@@ -438,6 +486,9 @@ def _attrs(eng, cases, mu, mlong) -> dict:
         "metric_long_name": mlong,
         "source_description": eng.spectrum.description,
         "confidence": float(study.run.confidence),
+        "sampling": study.run.sampling,
+        "replicates": int(getattr(eng, "replicates", 1)),
+        "sampling_note": "; ".join(getattr(eng, "notes", ())),
         "acceptance_limit_waves": float(study.goal.acceptance_limit_waves),
         "nominal_temperature_c": float(study.environment.temperature_c),
         "command": "",
@@ -489,12 +540,15 @@ def to_dataset(eng, results, tol_keys) -> xr.Dataset:
         **_sample_values(cases, results, study.run.quantiles),
         **_yield_values(short_results, tol_names),
         **_environment_values(study, cases, temps, tilts, azs),
+        **_explain_values(results, tol_keys),
     }
     values.update(_decision_values(names, results, values))
     values.update(_goal_values(study, values))
     n_sens = int(results[0].sensitivity_samples)
     var_attrs = {
-        "yield": {"confidence": study.run.confidence, "method": "Wilson score"},
+        "yield": {"confidence": study.run.confidence, "method": results[0].yield_method},
+        "sobol_pass_total": {"base_samples": int(study.run.variance_samples)},
+        "reject_rate": {"confidence": study.run.confidence},
         "sensitivity_alone": {"samples": n_sens},
         "sensitivity_without": {"samples": n_sens},
         "acceptance_half_angle": {"limit_waves": study.goal.acceptance_limit_waves},

@@ -126,6 +126,15 @@ class CandidateResult:
         default_factory=lambda: ReadOnlyMapping({})
     )
     margin_dominant: str = "none"  # the key that uses up most margin
+    #: how yield_low/high were found: "Wilson score" or "Student t over R scramblings"
+    yield_method: str = "Wilson score"
+    #: the reject rate 1 − yield as the rare-reject estimator (or plain sampling) gives it
+    reject: object = None  # tolerance.rare.RejectEstimate | None
+    #: first/total Sobol' indices by spec key: of the worst metric, and of pass/fail
+    sobol: Mapping | None = None
+    sobol_pass: Mapping | None = None
+    #: the tolerance with the largest total Sobol' index of pass/fail (or "none")
+    dominant_variance: str = "none"
 
 
 # ----------------------------------------------------------------------------- plate optics
@@ -440,7 +449,13 @@ class Engine:
         self.chunk = max(sampler.BLOCK, -(-int(chunk) // sampler.BLOCK) * sampler.BLOCK)
         self.grid = study.wavelength.values()
         self.spectrum = study.source.spectrum
-        self.draws = Draws(self.seed)
+        #: what the engine changed and the user should hear about (e.g. a rounded sample count)
+        self.notes: tuple[str, ...] = ()
+        self.replicates = 1
+        if r.sampling == "sobol":
+            self.draws = self._sobol_draws(study)
+        else:
+            self.draws = Draws(self.seed)
         self.metric_code = METRICS[study.goal.metric]
         self._optics: dict = {}
         self.cases = tuple(self.case(i) for i in range(len(study.candidates)))
@@ -452,6 +467,25 @@ class Engine:
         state = dict(self.__dict__)
         state.update(client=None, draws=Draws(self.seed), _optics={})
         return state
+
+    def _sobol_draws(self, study: Study) -> sampler.SobolDraws:
+        """Scrambled Sobol' draws; the sample count becomes replicates × a power of two."""
+        from .tolerances import TOLERANCES
+
+        R = study.run.replicates
+        per = -(-self.samples // R)
+        m = 1 << (per - 1).bit_length()
+        if R * m != self.samples:
+            self.notes += (
+                f"sampling: {self.samples} samples rounded up to {R * m} = {R} scramblings x "
+                f"{m} Sobol' points (a power of two each)",
+            )
+        self.samples = R * m
+        self.replicates = R
+        per_layer = {k for k, e in TOLERANCES.items() if e.extra["per_layer"]}
+        layers = max([sampler.SOBOL_LAYERS] + [len(c.plate.layers) for c in study.candidates])
+        layout = sampler.sobol_layout(tuple(SHORT) + sampler.EXTRA_STREAMS, per_layer, layers)
+        return sampler.SobolDraws(self.seed, m, R, layout, DRAW_CACHE_BYTES)
 
     # ------------------------------------------------------------------ cases
     def case(self, candidate, tolerances=None, scale=None, plate=None) -> Case:
@@ -632,7 +666,18 @@ class Engine:
         nom = self.nominal(case)
         acc = self._main_pass(case, nom, keep_samples, progress)
         sens = self._sensitivity(case, nom, acc, progress)
-        return _finish(self, case, acc, nom, *sens)
+        res = _finish(self, case, acc, nom, *sens)
+        return self._explain(case, res)
+
+    def _explain(self, case: Case, res: CandidateResult) -> CandidateResult:
+        """Add the rare-reject estimate and the variance-based sensitivity indices."""
+        from . import rare, variance
+
+        changes = {"reject": rare.reject_estimate(self, case, res)}
+        if self.study.run.variance_samples > 0 and case.active:
+            vi = variance.sobol_indices(self, case, self.study.run.variance_samples)
+            changes.update(sobol=vi.metric, sobol_pass=vi.passing, dominant_variance=vi.dominant)
+        return dataclasses.replace(res, **changes)
 
     def _main_pass(self, case: Case, nom: Nominal, keep: bool, progress) -> Accumulator:
         import numba
@@ -826,7 +871,7 @@ def _finish(
     spec_metric = spectral_metric(acc.spec_stokes, case.goal, goal.metric)
     pass_metric = acc.worst if goal.over == "band" else spec_metric
     k = int(np.sum(pass_metric >= goal.min))
-    ylo, yhi = wilson(k, n, conf)
+    ylo, yhi = yield_interval(pass_metric >= goal.min, eng.replicates, conf)
     # the yield the decision ranks on counts unpolarized light: for an axial-ratio goal over the
     # spectrum (which looks at the polarized part only) it is the share of samples whose
     # spectral fidelity reaches that of a pure state with b/a = min
@@ -836,7 +881,9 @@ def _finish(
         f_min = 0.5 * (1.0 + 2.0 * m / (1.0 + m * m))
         fid = spectral_metric(acc.spec_stokes, case.goal, "fidelity")
         rank_k = int(np.sum(fid >= f_min))
-    rank_lo, rank_hi = wilson(rank_k, n, conf)
+        rank_lo, rank_hi = yield_interval(fid >= f_min, eng.replicates, conf)
+    else:
+        rank_lo, rank_hi = ylo, yhi
     dop = np.sqrt(np.sum(acc.spec_stokes**2, axis=1))
     nom_dop = float(np.sqrt(np.sum(nom.spec_stokes**2)))
     return CandidateResult(
@@ -870,7 +917,52 @@ def _finish(
         margin_p05=p05_full,
         margin_gain=ReadOnlyMapping(dict(margin or {})),
         margin_dominant=margin_dominant(margin or {}),
+        yield_method=(
+            "Wilson score"
+            if eng.replicates == 1
+            else f"Student t over {eng.replicates} Sobol' scramblings"
+        ),
     )
+
+
+def yield_interval(passed, replicates: int, confidence: float) -> tuple[float, float]:
+    """Confidence interval of a pass rate: Wilson for independent draws, replicates otherwise.
+
+    With ``replicates`` R > 1 the samples are R independent scramblings of one Sobol' net,
+    one after another; their R pass rates are independent and unbiased, and the interval is
+    mean ± t(R−1)·s/√R (Owen's replicated randomised QMC).  When all R agree exactly there is
+    no spread to learn from and the (here conservative) Wilson interval is used.
+
+    Parameters
+    ----------
+    passed : array_like of bool
+        (N,) pass flags, N a multiple of R.
+    replicates : int
+        1 for independent draws.
+    confidence : float
+        Two-sided level, e.g. 0.95.
+
+    References
+    ----------
+    .. [1] A. B. Owen, "Monte Carlo variance of scrambled net quadrature," SIAM J. Numer. Anal.
+       34, 1884-1910 (1997).
+    .. [2] P. L'Ecuyer and C. Lemieux, "Recent advances in randomized quasi-Monte Carlo
+       methods," in Modeling Uncertainty, Springer (2002), section 6.
+    """
+    passed = np.asarray(passed, dtype=bool)
+    n = passed.size
+    k = int(passed.sum())
+    if replicates <= 1 or n % replicates:
+        return wilson(k, n, confidence)
+    y = passed.reshape(replicates, -1).mean(axis=1)
+    s = float(np.std(y, ddof=1))
+    if s == 0.0:
+        return wilson(k, n, confidence)
+    from scipy.stats import t
+
+    half = float(t.ppf(0.5 + confidence / 2.0, replicates - 1)) * s / math.sqrt(replicates)
+    m = float(np.mean(y))
+    return max(0.0, m - half), min(1.0, m + half)
 
 
 def margin_dominant(margin: Mapping[str, float]) -> str:

@@ -735,6 +735,70 @@ _NAMED_STATES = {
 }
 
 
+def sobol_chart(grid):
+    """Per candidate: first- and total-order Sobol' indices of pass/fail for each tolerance.
+
+    The filled bar is the first-order index (the share of the pass/fail variance the tolerance
+    explains alone), the open bar the total index (its share with every interaction); the
+    whiskers are bootstrap confidence limits.  Where too few builds fail (or pass) to split the
+    variance, the indices of the worst goal metric are drawn instead and the panel says so.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        ``n_candidates`` panels.
+    """
+    names = _names(grid)
+    tols = (
+        [str(t) for t in grid["tolerance_name"].values] if "tolerance_name" in grid.coords else []
+    )
+    n_rows = max(len(tols), 1)
+    with _style():
+        fig = _figure(7.6, 0.7 + len(names) * (0.55 + 0.3 * n_rows))
+        axes = fig.subplots(len(names), 1, sharex=True, squeeze=False)[:, 0]
+        for c, ax in enumerate(axes):
+            _candidate_title(ax, grid, c)
+            var = "sobol_pass"
+            if not np.any(np.isfinite(grid["sobol_pass_total"].values[c])):
+                var = "sobol"
+            vals = {
+                f: np.asarray(grid[f"{var}_{f}"].values[c], float)
+                for f in ("first", "first_low", "first_high", "total", "total_low", "total_high")
+            }
+            rows = [j for j in range(len(tols)) if np.isfinite(vals["total"][j])]
+            if not rows:
+                _empty(ax, "no variance to split (no tolerance changes the outcome)")
+                continue
+            rows.sort(key=lambda j: vals["total"][j])
+            col = _colour(c)
+            for pos, j in enumerate(rows):
+                for fld, y, face in (("total", pos + 0.17, "white"), ("first", pos - 0.17, col)):
+                    v = max(vals[fld][j], 0.0)
+                    lo, hi = vals[f"{fld}_low"][j], vals[f"{fld}_high"][j]
+                    ax.barh(y, v, height=0.32, color=face, edgecolor=col, linewidth=1.1)
+                    if np.isfinite(lo) and np.isfinite(hi):
+                        ax.plot([max(lo, 0), hi], [y, y], color=INK, linewidth=0.9)
+            ax.set_yticks(range(len(rows)), [tols[j] for j in rows])
+            ax.set_xlim(0, 1.05)
+            ax.grid(axis="y", visible=False)
+            if var == "sobol":
+                ax.text(
+                    0.99,
+                    0.05,
+                    "too few rejects: indices of the worst goal metric",
+                    ha="right",
+                    transform=ax.transAxes,
+                    fontsize=7.5,
+                    color="#8a857c",
+                )
+        axes[-1].set_xlabel(
+            "Share of the variance   (filled: alone, first order; open: total, "
+            "with interactions; whiskers: bootstrap limits)"
+        )
+        _finish(fig)
+    return fig
+
+
 def goal_stokes(grid, c=None):
     """The goal state as a normalised Stokes 3-vector, or None if the grid does not say.
 
@@ -1372,6 +1436,15 @@ FIGURES.add(
     "the top row is the tolerance whose removal helps most.",
     payload=sensitivity_chart,
     requires=("yield",),
+)
+
+FIGURES.add(
+    "variance_sensitivity",
+    "First- and total-order Sobol' indices of pass/fail for each tolerance (filled: the share "
+    "of the variance it explains alone; open: its share with interactions), with bootstrap "
+    "limits.",
+    payload=sobol_chart,
+    requires=("sobol_pass_total", "sobol_total"),
 )
 
 FIGURES.add(

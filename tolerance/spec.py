@@ -82,7 +82,13 @@ RUN_KEYS = (
     "confidence",
     "sensitivity_samples",
     "keep_samples",
+    "sampling",
+    "replicates",
+    "rare",
+    "variance_samples",
 )
+SAMPLINGS = ("random", "sobol")
+RARE_MODES = ("auto", "off")
 ENV_KEYS = ("temperature_c", "temperature_range", "tilt_max_deg")
 REPORT_KEYS = ("formats",)
 DIST_KEYS = distributions.DIST_KEYS
@@ -575,6 +581,14 @@ def _run(ctx: _Ctx, raw: dict) -> RunSettings:
             r, "sensitivity_samples", "[run].", default=None, integer=True, minimum=1
         ),
         keep_samples=ctx.flag(r, "keep_samples", "[run]."),
+        sampling=ctx.name(r, "sampling", "[run].", SAMPLINGS, default="random"),
+        replicates=int(
+            ctx.number(r, "replicates", "[run].", default=8, integer=True, minimum=2, maximum=1024)
+        ),
+        rare=ctx.name(r, "rare", "[run].", RARE_MODES, default="auto"),
+        variance_samples=int(
+            ctx.number(r, "variance_samples", "[run].", default=1024, integer=True, minimum=0)
+        ),
     )
 
 

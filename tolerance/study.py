@@ -205,9 +205,16 @@ class RunSettings:
     confidence: float = 0.95
     sensitivity_samples: int | None = None
     keep_samples: bool = False
+    #: "random" (independent draws) or "sobol" (scrambled Sobol' points, in replicates)
+    sampling: str = "random"
+    replicates: int = 8
+    #: "auto": a rare-reject estimator when the yield is >= 0.999; "off": never
+    rare: str = "auto"
+    #: base samples of the variance-based (Sobol') sensitivity indices; 0: none
+    variance_samples: int = 1024
 
     def to_dict(self) -> dict:
-        return {
+        out = {
             "samples": self.samples,
             "seed": self.seed,
             "chunk_size": self.chunk_size,
@@ -216,6 +223,12 @@ class RunSettings:
             "sensitivity_samples": self.sensitivity_samples,
             "keep_samples": self.keep_samples,
         }
+        # the statistics settings of issue 16 appear only when changed, so that the JSON of
+        # earlier studies (stored in their grids) stays the same
+        for f in ("sampling", "replicates", "rare", "variance_samples"):
+            if getattr(self, f) != getattr(RunSettings, f):
+                out[f] = getattr(self, f)
+        return out
 
 
 @dataclass(frozen=True)

@@ -94,6 +94,7 @@ def summary_rows(ds):
                 if "meets_goal" in ds.variables
                 else float(ds["yield"].sel(candidate=c)) > 0,
                 "sensitivity": _sensitivity(ds, c),
+                **explain_row(ds, c),
             }
         )
     return rows
@@ -119,6 +120,43 @@ def _sensitivity(ds, c) -> dict:
             "yield_alone": float(ds["sensitivity_alone"].sel(candidate=c, tolerance_name=t))
             if ok
             else None,
+        }
+    return out
+
+
+def explain_row(ds, c) -> dict:
+    """The Sobol' indices (``sobol``, ``sobol_pass``: by spec tolerance key, the six numbers
+    first/first_low/first_high/total/total_low/total_high, null where undefined), the variance
+    dominant tolerance and the reject-rate estimate of candidate ``c``."""
+    import math
+
+    from ..tolerances import SHORT
+    from ..variance import FIELDS
+
+    def num(v):
+        v = float(v)
+        return v if math.isfinite(v) else None
+
+    key_of = {v: k for k, v in SHORT.items()}
+    out = {"sobol": {}, "sobol_pass": {}}
+    if "sobol_first" in ds:
+        for t in ds["tolerance_name"].values:
+            if not math.isfinite(float(ds["sobol_total"].sel(candidate=c, tolerance_name=t))):
+                continue  # not a tolerance of this candidate (or indices were not asked for)
+            for var in out:
+                out[var][key_of.get(str(t), str(t))] = {
+                    f: num(ds[f"{var}_{f}"].sel(candidate=c, tolerance_name=t)) for f in FIELDS
+                }
+    if "dominant_variance" in ds:
+        dv = str(ds["dominant_variance"].sel(candidate=c).values)
+        out["dominant_variance"] = key_of.get(dv, dv)
+    if "reject_rate" in ds:
+        out["reject"] = {
+            "rate": num(ds["reject_rate"].sel(candidate=c)),
+            "low": num(ds["reject_rate_low"].sel(candidate=c)),
+            "high": num(ds["reject_rate_high"].sel(candidate=c)),
+            "method": str(ds["reject_method"].sel(candidate=c).values),
+            "bound_if_none_seen": num(ds["reject_bound"].sel(candidate=c)),
         }
     return out
 
@@ -386,6 +424,8 @@ def execute(
             )
         folder = target.publish()
     rows = summary_rows(ds)
+    if ds.attrs.get("sampling_note") and not quiet:
+        click.echo(ds.attrs["sampling_note"], err=True)
     if as_json:
         doc = json_summary(ds, rows, folder)
         doc["drawing"] = drawing_rows_for_grid(ds)

@@ -1,0 +1,99 @@
+"""The engine at chosen points of the standard-normal space of a candidate's tolerances.
+
+Every tolerance stream (a tolerance of one layer, or the tilt's azimuth) turns a standard draw
+into a value (:meth:`tolerance.distributions.Distribution.draw`).  Writing each stream's draw as a
+standard normal ξ (normal laws take z = ξ, uniform laws u = Φ(ξ)) maps a build of the plate to a
+point of Rᵈ with the standard normal density; the rare-reject estimator
+(:mod:`tolerance.rare`) searches that space and the variance-based sensitivity
+(:mod:`tolerance.variance`) samples it.  Points are evaluated by the engine's own kernel, so a
+point is judged exactly as a Monte Carlo sample with the same draws would be.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .tolerances import TOLERANCES
+
+PER_LAYER = frozenset(k for k in TOLERANCES if TOLERANCES[k].extra["per_layer"])
+
+#: Largest |ξ| passed on (Φ(8.5) rounds to 1 in float64 only beyond ~8.3; keep u < 1 there).
+_XI_MAX = 8.0
+
+
+def case_streams(case) -> tuple[tuple[str, int], ...]:
+    """The (stream, layer) pairs that vary for ``case``, in the grid's tolerance order.
+
+    A per-layer tolerance has one stream per layer (crossing from the second layer on); a tilt
+    brings its plane-of-incidence azimuth as one more stream.
+    """
+    L = len(case.plate.layers)
+    out = []
+    for key in case.active:
+        if key in PER_LAYER:
+            first = 1 if key == "crossing_deg" else 0
+            out += [(key, j) for j in range(first, L)]
+        else:
+            out.append((key, 0))
+        if key == "tilt_deg":
+            out.append(("tilt_azimuth", 0))
+    return tuple(out)
+
+
+class PointDraws:
+    """Draws taken from given standard-normal columns, by the engine's draw call.
+
+    Streams not given read z = 0 and u = 1/2 (the centre of their law).
+    """
+
+    def __init__(self, streams, xi: np.ndarray):
+        from scipy.special import ndtr
+
+        xi = np.clip(np.asarray(xi, dtype=float), -_XI_MAX, _XI_MAX)
+        self._cols = {s: (xi[:, i], ndtr(xi[:, i])) for i, s in enumerate(streams)}
+        self.n = xi.shape[0]
+
+    def __call__(self, name: str, index: int, start: int, stop: int):
+        hit = self._cols.get((name, index))
+        if hit is None:
+            return np.zeros(stop - start), np.full(stop - start, 0.5)
+        return hit[0][start:stop], hit[1][start:stop]
+
+
+def evaluate_points(eng, case, streams, xi) -> tuple[np.ndarray, np.ndarray]:
+    """Worst metric over the band and the pass-test metric at standard-normal points.
+
+    Parameters
+    ----------
+    eng : tolerance.montecarlo.Engine
+        The engine (its study, grid, source and kernel).
+    case : tolerance.montecarlo.Case
+        The candidate.
+    streams : sequence of (str, int)
+        The column order of ``xi`` (:func:`case_streams`).
+    xi : array_like
+        (n, d) standard-normal coordinates.
+
+    Returns
+    -------
+    worst, pass_metric : ndarray
+        (n,) each, in the goal metric's unit.
+    """
+    from .montecarlo import _chunks, sample_inputs
+
+    xi = np.atleast_2d(np.asarray(xi, dtype=float))
+    n = xi.shape[0]
+    if not np.all(np.isfinite(xi)):
+        raise ValueError("standard-normal points must be finite")
+    draws = PointDraws(streams, xi)
+    worst = np.empty(n)
+    sst = np.empty((n, 3))
+    shift = np.zeros(eng.grid.size)
+    for start, stop in _chunks(n, eng.chunk):
+        inputs, extra = sample_inputs(case, eng.study, draws, start, stop)
+        w, s, _ = eng._call(
+            case, inputs, extra, eng._stats(None, stop - start, False, shift), stop - start
+        )
+        worst[start:stop] = w
+        sst[start:stop] = s
+    return worst, eng.pass_metric(worst, sst, case.goal)
