@@ -293,7 +293,12 @@ def test_out_on_a_mounted_volume_is_published_there(spec, tmp_path, mount_tmpfs)
     code, _, err = retol("run", spec, "--out", vol, "--no-report")
     assert code == 0, err
     assert (vol / "grid.nc").is_file() and (vol / "mine.txt").read_text() == "mine"
-    assert sorted(p.name for p in vol.iterdir()) == [".retol-manifest.json", "grid.nc", "mine.txt"]
+    assert sorted(p.name for p in vol.iterdir()) == [
+        ".retol-manifest.json",
+        "drawing.csv",
+        "grid.nc",
+        "mine.txt",
+    ]
     assert leftovers(tmp_path) == []
 
 
