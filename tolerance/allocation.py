@@ -498,6 +498,7 @@ def allocate(
     candidates: Sequence[str] | None = None,
     samples: int | None = None,
     seed: int | None = None,
+    client=None,
 ) -> Allocation:
     """Allocate the tolerances of a study to a yield target (alone, balanced, cheapest).
 
@@ -513,6 +514,8 @@ def allocate(
         Candidate names (default: all).
     samples, seed : int, optional
         Override ``[run]``.
+    client : distributed.Client, optional
+        Evaluate the yields as dask tasks (:mod:`tolerance.cluster`); same answers.
 
     Returns
     -------
@@ -528,7 +531,7 @@ def allocate(
     target = check_target(target_yield)
     keys = check_vary(study, vary)
     cands = study.candidates if not candidates else [study.candidate(n) for n in candidates]
-    eng = Engine(study, samples=samples, seed=seed)
+    eng = Engine(study, samples=samples, seed=seed, client=client)
     cost = dict(alloc.cost) if alloc else {}
     out = []
     for cand in cands:

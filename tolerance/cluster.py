@@ -98,9 +98,9 @@ def cap_threads() -> None:
     numba.set_num_threads(max(1, min(int(n), numba.config.NUMBA_NUM_THREADS)))
 
 
-def task_ranges(n: int, block: int, blocks_per_task: int = TASK_BLOCKS):
-    """[start, stop) sample ranges of whole blocks, in order."""
-    size = block * blocks_per_task
+def task_ranges(n: int, block: int, blocks_per_task: int | None = None):
+    """[start, stop) sample ranges of whole blocks (:data:`TASK_BLOCKS` each), in order."""
+    size = block * (blocks_per_task or TASK_BLOCKS)
     return [(s, min(n, s + size)) for s in range(0, n, size)]
 
 

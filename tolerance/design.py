@@ -700,10 +700,10 @@ def _polish(v, cond, kind, x0):
 class _Yield:
     """The engine's yield of a plate, its smooth surrogate and its Wilson interval."""
 
-    def __init__(self, study: Study, cand: Candidate, samples, seed):
+    def __init__(self, study: Study, cand: Candidate, samples, seed, client=None):
         from .montecarlo import Engine
 
-        self.eng = Engine(study, samples=samples, seed=seed)
+        self.eng = Engine(study, samples=samples, seed=seed, client=client)
         self.cand = cand
         self.goal_min = study.goal.min
         self.conf = study.run.confidence
@@ -771,6 +771,7 @@ def design(
     bounds: Mapping | None = None,
     materials=None,
     progress: Callable[[str], None] | None = None,
+    client=None,
 ) -> Design:
     """Design a candidate's free parameters for the spec; see the module docstring.
 
@@ -791,6 +792,8 @@ def design(
         Crystals a pair or a third plate may be made of (default: every crystal available).
     progress : callable, optional
         Called with a line of text at each stage.
+    client : distributed.Client, optional
+        Evaluate yields as dask tasks (:mod:`tolerance.cluster`); same answers.
 
     Returns
     -------
@@ -805,7 +808,7 @@ def design(
     if cand.construction == "multi-order":
         target = float(cand.waves)  # the order is free; the target is modulo one wave
     cond = conditions(study, target)
-    ev = _Yield(study, cand, samples, seed)
+    ev = _Yield(study, cand, samples, seed, client)
     if objective == "yield" and not ev.has_tolerances:
         raise RetolError(
             "--objective",

@@ -572,6 +572,18 @@ def to_dataset(eng, results, tol_keys) -> xr.Dataset:
     return assemble(values, coords, attrs, study.goal.metric, var_attrs)
 
 
+def _netcdf_image(ds: xr.Dataset):
+    """The NetCDF file as bytes.  With dask installed xarray picks a write lock from the current
+    dask scheduler (a distributed client's lock cannot guard an in-memory file), so the write
+    runs under dask's synchronous scheduler; the grid's arrays are in memory anyway."""
+    try:
+        import dask
+    except ImportError:
+        return ds.to_netcdf(engine="h5netcdf", invalid_netcdf=False)
+    with dask.config.set(scheduler="synchronous"):
+        return ds.to_netcdf(engine="h5netcdf", invalid_netcdf=False)
+
+
 def save_grid(ds: xr.Dataset, path) -> Path:
     """Write the grid as NetCDF (h5netcdf), atomically: a temporary file then a rename.
 
@@ -586,7 +598,7 @@ def save_grid(ds: xr.Dataset, path) -> Path:
     """
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    image = ds.to_netcdf(engine="h5netcdf", invalid_netcdf=False)
+    image = _netcdf_image(ds)
     fd, tmp = tempfile.mkstemp(prefix=".grid-", suffix=".nc.part", dir=path.parent)
     try:
         with os.fdopen(fd, "wb") as f:

@@ -637,15 +637,16 @@ class Engine:
         n = self.samples if n is None else int(n)
         worst = np.empty(n)
         sst = np.empty((n, 3))
-        ret_shift = np.zeros(self.grid.size)
-        for start, stop in _chunks(n, self.chunk):
-            inputs, extra = sample_inputs(case, self.study, self.draws, start, stop, active=active)
-            w, s, _ = self._call(
-                case, inputs, extra, self._stats(None, stop - start, False, ret_shift), stop - start
-            )
-            worst[start:stop] = w
-            sst[start:stop] = s
-        return worst, sst
+        if self.client is not None:
+            from .cluster import map_ordered, task_ranges
+
+            ranges = task_ranges(n, sampler.BLOCK)
+            parts = map_ordered(self.client, _values_task, ranges, self, case, active)
+            for (start, stop), (w, st) in zip(ranges, parts, strict=True):
+                worst[start:stop] = w
+                sst[start:stop] = st
+            return worst, sst
+        return _range_values(self, case, 0, n, active)
 
     def pass_rate(self, case: Case, n: int | None = None, active=None) -> float:
         """The share of the first ``n`` samples that meet the goal (same draws every call)."""
@@ -822,12 +823,8 @@ def _main_task(sample_range, eng: Engine, case: Case, setup) -> dict:
     }
 
 
-def _pass_task(sample_range, eng: Engine, case: Case, active) -> int:
-    """One dask task of a pass-rate count: how many of samples [start, stop) pass."""
-    from .cluster import cap_threads
-
-    cap_threads()
-    start, stop = sample_range
+def _range_values(eng: Engine, case: Case, start: int, stop: int, active):
+    """Per-sample (worst, source-averaged Stokes) of samples [start, stop), chunk by chunk."""
     worst = np.empty(stop - start)
     sst = np.empty((stop - start, 3))
     ret_shift = np.zeros(eng.grid.size)
@@ -836,6 +833,23 @@ def _pass_task(sample_range, eng: Engine, case: Case, active) -> int:
         w, st, _ = eng._call(case, inputs, extra, eng._stats(None, b - a, False, ret_shift), b - a)
         worst[a:b] = w
         sst[a:b] = st
+    return worst, sst
+
+
+def _values_task(sample_range, eng: Engine, case: Case, active):
+    """One dask task of :meth:`Engine.pass_values`: (worst, spectral Stokes) of [start, stop)."""
+    from .cluster import cap_threads
+
+    cap_threads()
+    return _range_values(eng, case, *sample_range, active)
+
+
+def _pass_task(sample_range, eng: Engine, case: Case, active) -> int:
+    """One dask task of a pass-rate count: how many of samples [start, stop) pass."""
+    from .cluster import cap_threads
+
+    cap_threads()
+    worst, sst = _range_values(eng, case, *sample_range, active)
     pm = eng.pass_metric(worst, sst, case.goal)
     return int(np.sum(pm >= eng.study.goal.min))
 

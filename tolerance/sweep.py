@@ -252,8 +252,10 @@ def run_sweep(
 
     index = pd.MultiIndex.from_tuples(labels, names=keys)
     ds = ds.assign_coords(xr.Coordinates.from_pandas_multiindex(index, "point")).unstack("point")
+    ds = ds.transpose(*keys, ...)
     for a in axes:
         ds[a.key].attrs.update(units="", long_name=f"swept spec value {a.key} (as written)")
+    ds.attrs = {}  # the first point's attributes do not describe the sweep
     ds.attrs.update(
         title=study.title,
         spec=study.to_json(),
@@ -261,9 +263,18 @@ def run_sweep(
         seed=int(seed if seed is not None else study.run.seed),
         samples=n,
     )
-    from .grid import CONVENTIONS, LASER_CAUTION
+    from .grid import CF_CONVENTIONS, CONVENTIONS
+    from .safety import caution
 
-    ds.attrs.update(conventions=CONVENTIONS, laser_caution=LASER_CAUTION)
+    cands = [
+        (c.name, c.construction, [la.material.name for la in c.plate.layers])
+        for c in study.candidates
+    ]
+    ds.attrs.update(
+        Conventions=CF_CONVENTIONS,
+        polarization_conventions=CONVENTIONS,
+        laser_caution=caution(str(study.source.table.get("shape", "")), cands),
+    )
     rows = [
         {"set": {a.key: v for a, v in zip(axes, combo, strict=True)}, "candidates": r[1]}
         for combo, r in zip(combos, results, strict=True)

@@ -9,6 +9,7 @@ from pathlib import Path
 import click
 
 from .common import _clean, echo_json, table, user_errors
+from .sweep import cluster_options
 
 #: What an allocation writes into its output folder; nothing else there is touched.
 OUTPUTS = ("allocation.json", "drawing.csv", "yield_vs_width.png")
@@ -115,9 +116,22 @@ def _print(doc: dict, rows: list[dict]) -> None:
     help="Write allocation.json, drawing.csv and yield_vs_width.png into this folder.",
 )
 @click.option("--force", is_flag=True, help="Replace those files if the folder holds them.")
+@cluster_options
 @click.option("--json", "as_json", is_flag=True, help="Print JSON for scripts.")
 @user_errors
-def allocate(spec_file, target_yield, vary, candidates, samples, seed, out, force, as_json):
+def allocate(
+    spec_file,
+    target_yield,
+    vary,
+    candidates,
+    samples,
+    seed,
+    out,
+    force,
+    workers,
+    scheduler,
+    as_json,
+):
     """Allocate SPEC_FILE's tolerances to a yield target: alone, balanced and cheapest."""
     from ..allocation import allocate as run_allocation
     from ..allocation import check_target, drawing_rows_for_allocation, to_json
@@ -135,8 +149,14 @@ def allocate(spec_file, target_yield, vary, candidates, samples, seed, out, forc
             )
     if out is not None:
         _check_out(out, force)
+    from ..cluster import check_options, client
+
+    check_options(workers, scheduler)
     study = load_spec(spec_file)
-    result = run_allocation(study, target_yield, names, list(candidates) or None, samples, seed)
+    with client(workers, scheduler) as c:
+        result = run_allocation(
+            study, target_yield, names, list(candidates) or None, samples, seed, client=c
+        )
     doc = to_json(result, study)
     rows = drawing_rows_for_allocation(result, study)
     doc["drawing"] = rows

@@ -8,6 +8,7 @@ from pathlib import Path
 import click
 
 from .common import echo_json, table, user_errors
+from .sweep import cluster_options
 
 #: What ``--out`` receives; nothing else in the folder is touched.
 OUTPUTS = ("design.json", "candidate.toml")
@@ -117,16 +118,21 @@ def _print(d):
     "--out", type=click.Path(path_type=Path), help="Write design.json and candidate.toml here."
 )
 @click.option("--force", is_flag=True, help="Replace a design already in --out.")
+@cluster_options
 @click.option("--json", "as_json", is_flag=True, help="Print JSON for scripts.")
 @user_errors
-def design(spec_file, candidate, objective, free, samples, seed, out, force, as_json):
+def design(
+    spec_file, candidate, objective, free, samples, seed, out, force, workers, scheduler, as_json
+):
     """Design SPEC_FILE's candidate: thicknesses, plate angles, materials or order."""
     import sys
 
+    from ..cluster import check_options, client
     from ..design import design as run_design
     from ..spec import load_spec
 
     keys, bounds = parse_free_option(free)
+    check_options(workers, scheduler)
     spec = load_spec(spec_file)
     folder = _folder(out, force) if out is not None else None
 
@@ -137,16 +143,18 @@ def design(spec_file, candidate, objective, free, samples, seed, out, force, as_
     from ..errors import RetolError
 
     try:
-        d = run_design(
-            spec,
-            candidate,
-            objective=objective,
-            free=keys,
-            samples=samples,
-            seed=seed,
-            bounds=bounds,
-            progress=progress,
-        )
+        with client(workers, scheduler) as c:
+            d = run_design(
+                spec,
+                candidate,
+                objective=objective,
+                free=keys,
+                samples=samples,
+                seed=seed,
+                bounds=bounds,
+                progress=progress,
+                client=c,
+            )
     except RetolError as exc:
         if exc.field.startswith("bounds."):  # bounds come in through --free KEY=LOW:HIGH
             key = exc.field.split(".", 1)[1]

@@ -68,8 +68,6 @@ def _figure(ds, axes, path: Path) -> None:
 def _html(ds, rows, axes, command: str) -> str:
     from html import escape
 
-    from ..grid import LASER_CAUTION
-
     head = ["point", *[c for c in ds["candidate"].values]]
     body = []
     for r in rows:
@@ -90,7 +88,7 @@ def _html(ds, rows, axes, command: str) -> str:
         "points are not sampling noise.</p>"
         f'<img src="sweep.png" alt="yield against each swept value" style="max-width:100%">'
         f"<table><tr>{th}</tr>{''.join(body)}</table>"
-        f"<p><b>Safety.</b> {escape(LASER_CAUTION)}</p>"
+        f"<p><b>Safety.</b> {escape(ds.attrs['laser_caution'])}</p>"
         f"<p>Reproduce: <code>{escape(command)}</code></p></body></html>\n"
     )
 
