@@ -265,3 +265,41 @@ def test_every_grid_variable_follows_the_schema(study):
         assert "units" in var.attrs or var.dtype.kind == "O", name  # text carries no units
     for name in grid.coords:
         assert grid[name].dims == COORDS[name].dims
+
+
+# ----------------------------------------------------------------------------- non-finite values
+
+
+@pytest.mark.parametrize(
+    "kwargs, field",
+    [
+        (
+            {"layers": [{"material": "quartz", "thickness_um": 10, "axis_deg": float("nan")}]},
+            "layers[0].axis_deg",
+        ),
+        (
+            {"layers": [{"material": "quartz", "thickness_um": float("inf"), "axis_deg": 0}]},
+            "layers[0].thickness",
+        ),
+    ],
+)
+def test_the_api_refuses_non_finite_layers(kwargs, field):
+    with pytest.raises(RetolError) as exc:
+        tolerance.design_plate("stack", **kwargs)
+    assert exc.value.field == field
+
+
+def test_a_nan_never_counts_as_a_pass(study):
+    """A NaN metric used to be skipped by the band minimum (NaN < x is false), so a sample
+    whose every metric was NaN 'passed'; the engine now refuses such results."""
+    from tolerance.montecarlo import Accumulator, Nominal, check_finite
+
+    eng = Engine(study, samples=512)
+    case = eng.cases[0]
+    acc = Accumulator(4, 3, np.zeros((4, 3)), np.ones((4, 3)), 8, 1, False)
+    acc.worst[:] = [0.99, np.nan, 0.98, 0.97]
+    acc.spec_stokes[:] = 0.0
+    acc.design_stokes[:] = 0.0
+    nom = Nominal(np.zeros((4, 3)), np.zeros((3, 3)), 0.99, np.zeros(3), np.zeros(3))
+    with pytest.raises(RetolError, match="non-finite"):
+        check_finite(case, acc, nom, acc.worst)

@@ -860,6 +860,27 @@ def tolerance_names(cases) -> tuple[str, ...]:
     return tuple(k for k in SHORT if k in act)
 
 
+def check_finite(case: Case, acc: Accumulator, nom: Nominal, pass_metric) -> None:
+    """No NaN or infinity may reach a yield, a rank or a reported figure: refuse the candidate
+    (its plate or tolerances reach a place the physics cannot describe) rather than count it."""
+    bad = {
+        "nominal values": nom.values,
+        "pass metric": pass_metric,
+        "source-averaged Stokes vectors": acc.spec_stokes,
+        "states at the design wavelength": acc.design_stokes,
+        "worst metric over the band": acc.worst,
+    }
+    for what, arr in bad.items():
+        arr = np.asarray(arr)
+        if arr.size and not np.all(np.isfinite(arr)):
+            n_bad = int(np.sum(~np.isfinite(arr)))
+            raise RetolError(
+                f"[[candidate]] {case.candidate.name!r}",
+                f"its {what} hold {n_bad} non-finite value(s) (NaN or infinity)",
+                "check the plate's thicknesses, angles and tolerances for absurd values",
+            )
+
+
 def _finish(
     eng: Engine,
     case: Case,
@@ -884,6 +905,7 @@ def _finish(
     var = np.maximum(acc.sums[:, 1] / n - mean_d**2, 0.0) * (n / max(n - 1, 1))
     spec_metric = spectral_metric(acc.spec_stokes, case.goal, goal.metric)
     pass_metric = acc.worst if goal.over == "band" else spec_metric
+    check_finite(case, acc, nom, pass_metric)
     k = int(np.sum(pass_metric >= goal.min))
     ylo, yhi = yield_interval(pass_metric >= goal.min, eng.replicates, conf)
     # the yield the decision ranks on counts unpolarized light: for an axial-ratio goal over the

@@ -223,10 +223,17 @@ def stack(material=None, waves=None, design_nm=None, axis_deg=0.0, layers=None, 
             length_um(th, f"layers[{i}].thickness") if th is not None else None,
             f"layers[{i}].thickness",
         )
-        out.append(
-            Layer(get_material(la["material"]), d, float(la.get("axis_deg", 0.0)) + axis_deg)
+        out.append(Layer(get_material(la["material"]), d, _angle(la.get("axis_deg", 0.0), i)))
+    return tuple(Layer(x.material, x.thickness_um, x.axis_deg + axis_deg) for x in out), {}
+
+
+def _angle(value, i: int) -> float:
+    """A layer's axis angle [deg]: a finite number."""
+    if isinstance(value, bool) or not isinstance(value, int | float) or not np.isfinite(value):
+        raise RetolError(
+            f"layers[{i}].axis_deg", f"must be a finite angle, got {value!r}", "e.g. 45"
         )
-    return tuple(out), {}
+    return float(value)
 
 
 #: Construction name -> builder(material, waves, design_nm, axis_deg, **keys) -> (layers, details)
@@ -294,6 +301,11 @@ def design_plate(
     17.49
     """
     entry = CONSTRUCTIONS.lookup(construction, "construction")
+    for field_name, v in (("axis_deg", axis_deg), ("waves", waves), ("design_nm", design_nm)):
+        if v is not None and (isinstance(v, bool) or not np.isfinite(float(v))):
+            raise RetolError(
+                field_name, f"must be a finite number, got {v!r}", "give a finite value"
+            )
     keys = {k: v for k, v in keys.items() if v is not None}  # None means "not given"
     known = tuple(entry.extra["params"].values())
     for k in keys:

@@ -89,9 +89,9 @@ def demo(name, list_, spec_only, out, force, samples, formats, as_json):
         click.echo(f"wrote {target}; run it with: retol run {target}")
         return
     from ..spec import loads
-    from .run import _check_formats, execute
+    from .run import check_formats, execute
 
-    _check_formats(formats)
+    check_formats(formats)
     spec = loads(text, f"{name}.toml", base_dir=Path(str(resources.files("tolerance.examples"))))
     # the default example writes to reports/demo/, the others to reports/<name>/
     folder = Path(out) if out else Path("reports") / ("demo" if name == DEFAULT else name)

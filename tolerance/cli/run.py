@@ -523,7 +523,7 @@ def run(
     from ..cluster import check_options
     from ..spec import load_spec
 
-    _check_formats(formats)
+    check_formats(formats)
     check_options(workers, scheduler)
     spec = load_spec(spec_file)
     formats = tuple(formats) or tuple(spec.report.formats) or ("png",)
@@ -571,7 +571,7 @@ def run(
         sys.exit(3)
 
 
-def _check_formats(formats):
+def check_formats(formats):
     from ..errors import RetolError
 
     for f in formats:
