@@ -230,3 +230,13 @@ def test_memory_estimate_grows_with_kept_samples_and_is_checked(monkeypatch):
 def test_available_memory_is_read_from_the_machine():
     have = limits.available_memory()
     assert have is None or have > 0
+
+
+def test_a_sech2_duration_in_seconds_is_named_as_such():
+    """duration = 1e-13 (seconds by mistake; a bare number is fs) used to divide by zero."""
+    from tolerance.errors import RetolError
+    from tolerance.sources import parse_duration_fs
+
+    with pytest.raises(RetolError, match="looks like seconds"):
+        parse_duration_fs(1e-13, "[source].duration")
+    assert parse_duration_fs(35, "[source].duration") == 35.0

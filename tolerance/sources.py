@@ -70,6 +70,8 @@ DEFAULT_COVERAGE = 3.0
 #: Below this fraction of its power on the grid a source counts as missing the grid.
 _MIN_ON_GRID = 1e-9
 
+#: Shortest pulse duration accepted: about one optical cycle in the visible. [fs]
+MIN_DURATION_FS = 1.0
 _TIME_TO_FS = {"": 1.0, "fs": 1.0, "ps": 1e3, "ns": 1e6}
 _NUMBER = r"[-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?"
 _TIME = re.compile(rf"^\s*({_NUMBER})\s*([a-zA-Z]*)\s*$")
@@ -362,6 +364,13 @@ def parse_duration_fs(value, field: str) -> float:
         raise RetolError(field, f"{value!r} is not finite", example)
     if not fs > 0:
         raise RetolError(field, f"duration must be positive, got {value!r}", example)
+    if fs < MIN_DURATION_FS:
+        hint = (
+            f'a bare number is fs: {value!r} looks like seconds; write it with a unit, e.g. "100fs"'
+            if not isinstance(value, str) and fs < 1e-6
+            else example
+        )
+        raise RetolError(field, f"{fs:g} fs is shorter than one optical cycle (about 1 fs)", hint)
     return round(fs, 9)
 
 
