@@ -37,7 +37,15 @@ class WavelengthType(click.ParamType):
 
 
 class IntervalType(WavelengthType):
+    """A wavelength step (10nm, 0.01um); a bare number is nm.  Gives nm."""
+
     name = "interval"
+
+
+class PathDifferenceType(WavelengthType):
+    """A retardance as an optical path difference, a length (137.5nm); a bare number is nm."""
+
+    name = "length"
 
 
 class LengthType(click.ParamType):
@@ -105,7 +113,11 @@ TILT = BoundedFloat(
     fix="an angle of incidence in degrees, between -90 and 90 exclusive",
 )
 WAVELENGTH = WavelengthType()
+INTERVAL = IntervalType()
+PATH_DIFFERENCE = PathDifferenceType()
 LENGTH = LengthType()
+#: Figure file formats of the report (``tolerance.plots.FORMATS``); the help lists them.
+FIGURE_FORMAT = click.Choice(["png", "svg", "pdf"], case_sensitive=False)
 
 json_option = click.option("--json", "as_json", is_flag=True, help="Print JSON for scripts.")
 extrapolate_option = click.option(
