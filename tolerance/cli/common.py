@@ -116,8 +116,24 @@ WAVELENGTH = WavelengthType()
 INTERVAL = IntervalType()
 PATH_DIFFERENCE = PathDifferenceType()
 LENGTH = LengthType()
+
+
+class FormatChoice(click.Choice):
+    """A figure file format; the help lists the choices, an unknown one says which exist."""
+
+    def convert(self, value, param, ctx):
+        try:
+            return super().convert(value, param, ctx)
+        except click.BadParameter:
+            self.fail(
+                f"unknown figure format {value!r}; use one of {', '.join(self.choices)}",
+                param,
+                ctx,
+            )
+
+
 #: Figure file formats of the report (``tolerance.plots.FORMATS``); the help lists them.
-FIGURE_FORMAT = click.Choice(["png", "svg", "pdf"], case_sensitive=False)
+FIGURE_FORMAT = FormatChoice(["png", "svg", "pdf"], case_sensitive=False)
 
 json_option = click.option("--json", "as_json", is_flag=True, help="Print JSON for scripts.")
 extrapolate_option = click.option(

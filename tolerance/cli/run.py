@@ -331,9 +331,14 @@ def compile_notice(stream=None) -> bool:
     return True
 
 
+def stderr_is_terminal() -> bool:
+    """Whether stderr is a terminal (progress is shown only there)."""
+    return sys.stderr.isatty()
+
+
 def figure_progress():
     """A progress callback for the report's figures, on stderr when it is a terminal."""
-    if not sys.stderr.isatty():
+    if not stderr_is_terminal():
         return None
 
     def show(done, total, name):
