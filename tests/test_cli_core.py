@@ -360,6 +360,9 @@ def test_stack_needs_layers_and_layers_need_a_stack(invoke):
     r = invoke("state", "--material", "quartz", *STACK, "--at", "632.8nm")
     assert r.exit_code == 2
     assert_user_error(r, "--material", "stack")
+    r = invoke("plate", *STACK)
+    assert r.exit_code == 2
+    assert_user_error(r, "--design", "stack")
 
 
 def test_help_texts_name_units_and_choices(invoke):

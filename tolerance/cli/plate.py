@@ -168,6 +168,12 @@ def build_plate(
                 "a stack needs at least one layer",
                 "give --layer MATERIAL:THICKNESS:AXIS once per layer, e.g. --layer quartz:1000um:0",
             )
+        if design is None:
+            raise RetolError(
+                "--design",
+                "a stack has no design wavelength of its own",
+                "give --design (retol state: or --at), e.g. --design 632.8nm",
+            )
         if material is not None:
             raise RetolError(
                 "--material",
