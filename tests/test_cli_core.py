@@ -302,3 +302,97 @@ def test_state_analyzer(invoke):
     out = ok_json(invoke("state", "--waves", "0.5", "--fast-axis", "45", "--input", "0",
                          "--analyzer", "90", "--json"))
     assert out["extinction_db"] > 100
+
+
+# ----------------------------------------------------------------------------- stacks, help texts
+
+STACK = ("--construction", "stack", "--layer", "quartz:1mm:0", "--layer", "quartz:982.5um:90")
+
+
+def test_plate_stack_from_layers_matches_the_crossed_pair(invoke):
+    # [derived] two quartz plates with crossed axes retard by (n_e - n_o)(d1 - d2)/lambda waves
+    # along the first plate's axis; (n_e - n_o) recomputed from [Ghosh1999].
+    out = ok_json(invoke("plate", *STACK, "--design", "632.8nm", "--from", "600nm",
+                         "--to", "700nm", "--step", "50nm", "--json"))
+    assert out["construction"] == "stack"
+    assert [la["thickness_um"] for la in out["layers"]] == [1000.0, 982.5]
+    assert [la["axis_deg"] for la in out["layers"]] == [0.0, 90.0]
+    for row in out["table"]:
+        n_o, n_e = quartz_indices(row["wavelength_nm"])
+        expect = (n_e - n_o) * 17.5e3 / row["wavelength_nm"]
+        assert row["retardance_waves"] == pytest.approx(expect, rel=1e-10)
+
+
+def test_state_stack_from_layers(invoke):
+    out = ok_json(invoke("state", *STACK, "--fast-axis", "45", "--input", "0", "--at", "632.8nm",
+                         "--json"))
+    n_o, n_e = quartz_indices(632.8)
+    delta = 2 * math.pi * (n_e - n_o) * 17.5e3 / 632.8  # [derived], as above
+    _, s1, s2, s3 = out["stokes"]
+    # [derived] fast axis 45, input 0: S = (1, cos delta, 0, sin delta)
+    assert (s1, s2, s3) == pytest.approx((math.cos(delta), 0.0, math.sin(delta)), abs=1e-9)
+
+
+@pytest.mark.parametrize(
+    "layer, words",
+    [
+        ("quartz:1000", ("--layer", "MATERIAL:THICKNESS:AXIS")),
+        ("quartz:1000um:x", ("--layer", "axis")),
+        ("quartz:1000um:nan", ("--layer", "finite")),
+        ("quartzz:1000um:0", ("--layer", "quartzz", "quartz")),
+        ("quartz:-3um:0", ("--layer", "positive")),
+        ("quartz:3parsec:0", ("--layer", "unit")),
+    ],
+)
+def test_stack_layer_errors_are_one_line(invoke, layer, words):
+    r = invoke("plate", "--construction", "stack", "--layer", layer, "--design", "632.8nm")
+    assert r.exit_code == 2
+    assert_user_error(r, *words)
+
+
+def test_stack_needs_layers_and_layers_need_a_stack(invoke):
+    r = invoke("plate", "--construction", "stack", "--design", "632.8nm")
+    assert r.exit_code == 2
+    assert_user_error(r, "--layer", "at least one layer")
+    r = invoke("plate", "--material", "quartz", "--design", "632.8nm", "--layer", "quartz:1um:0")
+    assert r.exit_code == 2
+    assert_user_error(r, "--layer", "zero-order")
+    r = invoke("state", "--material", "quartz", *STACK, "--at", "632.8nm")
+    assert r.exit_code == 2
+    assert_user_error(r, "--material", "stack")
+    r = invoke("plate", *STACK)
+    assert r.exit_code == 2
+    assert_user_error(r, "--design", "stack")
+
+
+def test_help_texts_name_units_and_choices(invoke):
+    plate_help = " ".join(invoke("plate", "--help").output.split())
+    assert "--retardance LENGTH" in plate_help and "path difference" in plate_help
+    assert "--step INTERVAL" in plate_help and "[default: 10nm]" in plate_help
+    assert "--layer MATERIAL:THICKNESS:AXIS" in plate_help
+    assert "--step INTERVAL" in " ".join(invoke("aim", "--help").output.split())
+    for cmd in ("run", "demo", "report"):
+        assert "--format [png|svg|pdf]" in invoke(cmd, "--help").output, cmd
+
+
+def test_state_analyzer_at_the_cap_is_a_bound(invoke):
+    # [derived] a half-wave plate at 45 deg turns 0 deg light to 90 deg: a pure state through
+    # an ideal analyzer has an infinite ratio, capped at polarization.EXTINCTION_CAP_DB
+    from tolerance.polarization import EXTINCTION_CAP_DB
+
+    args = ("state", "--waves", "0.5", "--fast-axis", "45", "--input", "0", "--analyzer")
+    text = invoke(*args, "90").output
+    assert f"above {EXTINCTION_CAP_DB:g} dB" in text and "150.00" not in text
+    text = invoke(*args, "0").output
+    assert f"below -{EXTINCTION_CAP_DB:g} dB" in text
+    out = ok_json(invoke(*args, "90", "--json"))
+    assert out["extinction_db"] == EXTINCTION_CAP_DB and out["extinction_at_cap"] is True
+    # [derived] off the cap: linear light at 2*40 = 80 deg against an analyzer at 90 deg,
+    # Malus: ratio cos^2(10 deg) / sin^2(10 deg)
+    out = ok_json(invoke("state", "--waves", "0.5", "--fast-axis", "40", "--input", "0",
+                         "--analyzer", "90", "--json"))
+    expect = 10 * math.log10(math.cos(math.radians(10)) ** 2 / math.sin(math.radians(10)) ** 2)
+    assert out["extinction_db"] == pytest.approx(expect, rel=1e-12)
+    assert out["extinction_at_cap"] is False
+    assert f"{expect:.2f} dB" in invoke("state", "--waves", "0.5", "--fast-axis", "40", "--input",
+                                        "0", "--analyzer", "90").output

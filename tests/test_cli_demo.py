@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import os
 import tomllib
+from pathlib import Path
 
 import pytest
 from click.testing import CliRunner
@@ -116,3 +117,45 @@ def test_output_below_a_file_is_refused(tmp_path):
     assert "--out" in r.output
     assert "Traceback" not in r.output
     assert blocker.read_text() == "not a folder"
+
+
+def test_each_example_has_its_own_folder(tmp_path, monkeypatch):
+    """A plain `retol demo` writes reports/demo/; `retol demo NAME` writes reports/NAME/, so
+    running one after the other never refuses (a stub stands in for the run itself)."""
+    from tolerance.cli import run as run_cli
+
+    seen = []
+
+    def fake_execute(spec, spec_path, folder, *args, **kwargs):
+        folder = Path(folder)
+        assert not folder.exists(), f"{folder} would collide"
+        folder.mkdir(parents=True)
+        seen.append(folder.as_posix())
+        return None, folder
+
+    monkeypatch.chdir(tmp_path)
+    monkeypatch.setattr(run_cli, "execute", fake_execute)
+    for args in (["demo"], ["demo", "sld-circular"], ["demo", "rgb-rotator"]):
+        r = _run(args)
+        assert r.exit_code == 0, r.output
+    assert seen == ["reports/demo", "reports/sld-circular", "reports/rgb-rotator"]
+
+
+def test_spec_only_json_prints_json(tmp_path, monkeypatch):
+    import json
+
+    monkeypatch.chdir(tmp_path)
+    r = _run(["demo", "white-led", "--spec-only", "--json"])
+    assert r.exit_code == 0, r.output
+    doc = json.loads(r.output)
+    assert doc["example"] == "white-led" and doc["spec"] == "white-led.toml"
+    assert (tmp_path / "white-led.toml").is_file()
+    # its errors are JSON too, with the same exit status
+    r = _run(["demo", "white-led", "--spec-only", "--json"])
+    assert r.exit_code == 2
+    assert json.loads(r.output)["error"]["field"] == "--out"
+
+
+def test_format_help_lists_the_choices():
+    r = _run(["demo", "--help"])
+    assert "--format [png|svg|pdf]" in r.output

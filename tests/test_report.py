@@ -35,6 +35,7 @@ from __future__ import annotations
 import base64
 import csv
 import html
+import io
 import json
 import re
 
@@ -590,3 +591,30 @@ def test_goal_limit_circle_on_the_sphere():
     g.attrs.update(goal_metric="axial_ratio", goal_min=0.9)
     chi = np.arctan(0.9)
     assert plots._goal_cos_limit(g, goal) == pytest.approx(np.sin(2 * chi))
+
+
+def test_cli_report_shows_figure_progress_on_a_terminal(saved_grid, monkeypatch):
+    from tolerance.cli import run as run_cli
+    from tolerance.cli.main import cli
+
+    monkeypatch.setattr(plots, "figure_names", lambda grid: ["yield", "p05_overlay"])
+    monkeypatch.setattr(run_cli, "stderr_is_terminal", lambda: True)
+    res = CliRunner().invoke(cli, ["report", str(saved_grid)])
+    assert res.exit_code == 0, res.output
+    assert "figure 1/2 (yield)" in res.stderr and "figure 2/2 (p05_overlay)" in res.stderr
+    assert "figure 1/2" not in res.stdout
+    # not a terminal (a pipe, a log): no progress
+    monkeypatch.setattr(run_cli, "stderr_is_terminal", lambda: False)
+    res = CliRunner().invoke(cli, ["report", str(saved_grid), "--force"])
+    assert res.exit_code == 0 and "figure 1/2" not in res.stderr
+
+
+def test_figures_keep_their_layout_after_the_first_draw(small):
+    """The constrained layout is solved once; later saves reuse it (cheaper, same picture)."""
+    from matplotlib.layout_engine import ConstrainedLayoutEngine
+
+    fig = plots.FIGURES["yield"].payload(small)
+    assert not isinstance(fig.get_layout_engine(), ConstrainedLayoutEngine)
+    before = [ax.get_position().bounds for ax in fig.axes]
+    plots.render(fig, io.BytesIO(), "png")
+    assert [ax.get_position().bounds for ax in fig.axes] == before

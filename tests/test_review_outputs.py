@@ -349,3 +349,31 @@ def test_figures_follow_the_rank_order(fail_grid):
 
 def test_report_path_is_importable():
     assert Path(tolerance.__file__).exists()
+
+
+def test_readme_tells_the_truth_about_outputs(fail_grid):
+    """README's statements on summary.csv, grid.nc units and the caution match the code."""
+    import re
+
+    from tolerance.report import csv_table
+    from tolerance.safety import caution
+
+    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
+    text = " ".join(readme.split())
+    metric = fail_grid.attrs["goal_metric"]
+    header, _ = csv_table(fail_grid)
+    for col in header:
+        generic = re.sub(r"^layer\d+_", "layerK_", col)
+        generic = re.sub(rf"^(nominal|p05)_(worst|pass)_{metric}$", r"\1_\2_METRIC", generic)
+        generic = re.sub(r"^yield_(without|alone)_.*", r"yield_\1_TOL", generic)
+        assert f"`{generic}`" in text, col
+    # [pint] waves are stored as a count, shown as waves
+    assert fail_grid["nominal_retardance"].attrs["units"] == "1"
+    assert '`units = "1"`' in text and '`display_units = "waves"`' in text
+    assert "Every variable carries `units`" not in text  # text variables carry none [CF]
+    # the caution: the standard follows the source, the eyewear sentence stays
+    assert "IEC 62471" in caution("flat") and "IEC 62471" in text
+    assert "eyewear" in caution("flat") and "eyewear" in text
+    assert "ISO 21254" in caution("sech2", [("f", "film", ("polycarbonate",))])
+    assert "ISO 21254" in text
+    assert "writes to `reports/demo/`, `retol demo NAME` to `reports/NAME/`" in text

@@ -6,6 +6,7 @@ import click
 
 from .common import (
     FLOAT,
+    INTERVAL,
     LENGTH,
     WAVELENGTH,
     echo_json,
@@ -200,7 +201,12 @@ def _state(S, target=None) -> dict:
 @click.option("--at", type=WAVELENGTH, help="Wavelength to aim real plates at (default: design).")
 @click.option("--from", "start", type=WAVELENGTH, help="Band start for the output table.")
 @click.option("--to", "stop", type=WAVELENGTH, help="Band end for the output table.")
-@click.option("--step", type=WAVELENGTH, default=10.0, show_default=True, help="Band step.")
+@click.option(
+    "--step",
+    type=INTERVAL,
+    default=10.0,
+    help="Band step, a wavelength interval (a bare number is nm) [default: 10nm].",
+)
 @extrapolate_option
 @json_option
 @user_errors

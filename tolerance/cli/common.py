@@ -37,7 +37,15 @@ class WavelengthType(click.ParamType):
 
 
 class IntervalType(WavelengthType):
+    """A wavelength step (10nm, 0.01um); a bare number is nm.  Gives nm."""
+
     name = "interval"
+
+
+class PathDifferenceType(WavelengthType):
+    """A retardance as an optical path difference, a length (137.5nm); a bare number is nm."""
+
+    name = "length"
 
 
 class LengthType(click.ParamType):
@@ -105,7 +113,27 @@ TILT = BoundedFloat(
     fix="an angle of incidence in degrees, between -90 and 90 exclusive",
 )
 WAVELENGTH = WavelengthType()
+INTERVAL = IntervalType()
+PATH_DIFFERENCE = PathDifferenceType()
 LENGTH = LengthType()
+
+
+class FormatChoice(click.Choice):
+    """A figure file format; the help lists the choices, an unknown one says which exist."""
+
+    def convert(self, value, param, ctx):
+        try:
+            return super().convert(value, param, ctx)
+        except click.BadParameter:
+            self.fail(
+                f"unknown figure format {value!r}; use one of {', '.join(self.choices)}",
+                param,
+                ctx,
+            )
+
+
+#: Figure file formats of the report (``tolerance.plots.FORMATS``); the help lists them.
+FIGURE_FORMAT = FormatChoice(["png", "svg", "pdf"], case_sensitive=False)
 
 json_option = click.option("--json", "as_json", is_flag=True, help="Print JSON for scripts.")
 extrapolate_option = click.option(

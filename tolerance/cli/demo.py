@@ -7,7 +7,7 @@ from pathlib import Path
 
 import click
 
-from .common import echo_json, table, user_errors
+from .common import FIGURE_FORMAT, echo_json, table, user_errors
 
 DEFAULT = "sld-circular"
 
@@ -26,7 +26,7 @@ def examples() -> dict[str, tuple[str, str]]:
 
 
 @click.command()
-@click.argument("name", required=False, default=DEFAULT)
+@click.argument("name", required=False, default=None)
 @click.option("--list", "list_", is_flag=True, help="List the built-in examples.")
 @click.option(
     "--spec-only",
@@ -36,8 +36,8 @@ def examples() -> dict[str, tuple[str, str]]:
 @click.option(
     "--out",
     type=click.Path(path_type=Path),
-    help="Output folder [default: ./reports/demo/, or ./reports/NAME/ for the other examples] "
-    "(with --spec-only: the file).",
+    help="Output folder [default: ./reports/demo/ for a plain 'retol demo', ./reports/NAME/ "
+    "when NAME is given] (with --spec-only: the file).",
 )
 @click.option("--force", is_flag=True, help="Replace an existing output.")
 @click.option("--samples", type=int, help="Monte Carlo samples (default: the example's).")
@@ -45,6 +45,7 @@ def examples() -> dict[str, tuple[str, str]]:
     "--format",
     "formats",
     multiple=True,
+    type=FIGURE_FORMAT,
     default=("png",),
     show_default=True,
     help="Figure format for the report: png, svg or pdf (repeatable).",
@@ -55,6 +56,8 @@ def demo(name, list_, spec_only, out, force, samples, formats, as_json):
     """Run built-in example NAME (default sld-circular) and write its report."""
     from ..errors import RetolError
 
+    named = name is not None
+    name = name if named else DEFAULT
     ex = examples()
     if list_:
         if as_json:
@@ -86,16 +89,24 @@ def demo(name, list_, spec_only, out, force, samples, formats, as_json):
             raise RetolError(
                 "--out", f"cannot write {str(target)!r} ({exc.strerror})", "choose a writable place"
             ) from None
-        click.echo(f"wrote {target}; run it with: retol run {target}")
+        if as_json:
+            echo_json({"example": name, "spec": str(target), "run": f"retol run {target}"})
+        else:
+            click.echo(f"wrote {target}; run it with: retol run {target}")
         return
     from ..spec import loads
     from .run import check_formats, execute
 
     check_formats(formats)
     spec = loads(text, f"{name}.toml", base_dir=Path(str(resources.files("tolerance.examples"))))
-    # the default example writes to reports/demo/, the others to reports/<name>/
-    folder = Path(out) if out else Path("reports") / ("demo" if name == DEFAULT else name)
-    argv = ["retol", "demo", name] + (["--samples", str(samples)] if samples else [])
+    # a plain `retol demo` writes reports/demo/; `retol demo NAME` writes reports/NAME/, so no
+    # two of them share a folder (`retol demo sld-circular` after `retol demo` does not refuse)
+    folder = Path(out) if out else Path("reports") / (name if named else "demo")
+    argv = (
+        ["retol", "demo"]
+        + ([name] if named else [])
+        + (["--samples", str(samples)] if samples else [])
+    )
     _, folder = execute(
         spec, Path(f"{name}.toml"), folder, force, samples, None, None, as_json, formats, argv=argv
     )

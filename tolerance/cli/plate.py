@@ -6,7 +6,9 @@ import click
 
 from .common import (
     FLOAT,
+    INTERVAL,
     LENGTH,
+    PATH_DIFFERENCE,
     TEMPERATURE,
     WAVELENGTH,
     echo_json,
@@ -15,6 +17,48 @@ from .common import (
     table,
     user_errors,
 )
+
+#: The command-line option for a construction key, where it is not simply ``--key``.
+OPTION_FOR_KEY = {"layers": "--layer"}
+
+
+class LayerType(click.ParamType):
+    """One layer of a stack, ``MATERIAL:THICKNESS:AXIS``: a material name or file, a thickness
+    with a unit (a bare number is µm) and the layer's fast axis [deg].  Gives a layer table."""
+
+    name = "MATERIAL:THICKNESS:AXIS"
+
+    def convert(self, value, param, ctx):
+        import math
+
+        from ..dispersion import get_material
+        from ..errors import RetolError
+        from ..units import length_um
+
+        if isinstance(value, dict):
+            return value
+        fix = "write --layer MATERIAL:THICKNESS:AXIS, e.g. --layer quartz:1000um:0"
+        parts = str(value).rsplit(":", 2)
+        if len(parts) != 3 or not all(p.strip() for p in parts):
+            self.fail(f"cannot read {value!r} ({fix})", param, ctx)
+        material, thickness, axis = (p.strip() for p in parts)
+        try:
+            get_material(material)
+            um = length_um(thickness, "--layer")
+        except RetolError as exc:
+            self.fail(f"{value!r}: {exc.problem}; {exc.fix}", param, ctx)
+        if not um > 0:
+            self.fail(f"{value!r}: thickness must be positive ({fix})", param, ctx)
+        try:
+            axis_deg = float(axis)
+        except ValueError:
+            self.fail(f"{value!r}: axis {axis!r} is not a number of degrees", param, ctx)
+        if not math.isfinite(axis_deg):
+            self.fail(f"{value!r}: axis must be a finite angle in degrees", param, ctx)
+        return {"material": material, "thickness_um": um, "axis_deg": axis_deg}
+
+
+LAYER = LayerType()
 
 
 def plate_options(func):
@@ -58,8 +102,18 @@ def plate_options(func):
         click.option(
             "--retardance",
             "retardance_nm",
-            type=WAVELENGTH,
-            help="Film: retardance at the design wavelength, e.g. 137.5nm.",
+            type=PATH_DIFFERENCE,
+            help="Film: retardance at the design wavelength as a path difference, a length "
+            "(a bare number is nm), e.g. 137.5nm.",
+        ),
+        click.option(
+            "--layer",
+            "layers",
+            type=LAYER,
+            multiple=True,
+            help="Stack: one layer, MATERIAL:THICKNESS:AXIS (thickness with a unit, bare = um; "
+            "fast axis in deg), light meeting the first given first; repeat per layer, "
+            "e.g. --layer quartz:1000um:0 --layer quartz:982.5um:90.",
         ),
     ]
     for o in reversed(opts):
@@ -78,6 +132,7 @@ def build_plate(
     partner,
     match,
     retardance_nm,
+    layers=(),
 ):
     from ..errors import RetolError
     from ..plates import CONSTRUCTIONS, design_plate
@@ -88,10 +143,12 @@ def build_plate(
         "--partner": partner,
         "--match": match or None,
         "--retardance": retardance_nm,
+        "--layer": list(layers) or None,
     }
     # the options of a construction are its registry keys, written as options
     applies = {
-        n: tuple("--" + k.replace("_", "-") for k in e.key_names) for n, e in CONSTRUCTIONS.items()
+        n: tuple(OPTION_FOR_KEY.get(k, "--" + k.replace("_", "-")) for k in e.key_names)
+        for n, e in CONSTRUCTIONS.items()
     }
     for opt, value in given.items():
         if value is not None and opt not in applies.get(construction, ()):
@@ -104,6 +161,33 @@ def build_plate(
         raise RetolError("--match", "needs exactly two wavelengths", "give --match twice")
     if waves is not None and waves <= 0:
         raise RetolError("--waves", f"must be positive, got {waves:g}", "e.g. --waves 0.25")
+    if construction == "stack":
+        if not layers:
+            raise RetolError(
+                "--layer",
+                "a stack needs at least one layer",
+                "give --layer MATERIAL:THICKNESS:AXIS once per layer, e.g. --layer quartz:1000um:0",
+            )
+        if design is None:
+            raise RetolError(
+                "--design",
+                "a stack has no design wavelength of its own",
+                "give --design (retol state: or --at), e.g. --design 632.8nm",
+            )
+        if material is not None:
+            raise RetolError(
+                "--material",
+                "does not apply to a stack plate",
+                "name each layer's material in --layer",
+            )
+        return design_plate(
+            "stack",
+            waves=None,
+            design_nm=design,
+            axis_deg=fast_axis,
+            layers=[dict(la) for la in layers],
+            name=f"stack of {len(layers)} layer{'s' if len(layers) != 1 else ''}",
+        )
     return design_plate(
         construction,
         material=material,
@@ -129,7 +213,12 @@ def build_plate(
 )
 @click.option("--from", "start", type=WAVELENGTH, help="Band start for the table.")
 @click.option("--to", "stop", type=WAVELENGTH, help="Band end for the table.")
-@click.option("--step", type=WAVELENGTH, default=10.0, show_default=True, help="Band step.")
+@click.option(
+    "--step",
+    type=INTERVAL,
+    default=10.0,
+    help="Band step, a wavelength interval (a bare number is nm) [default: 10nm].",
+)
 @click.option("--temperature", type=TEMPERATURE, default=None, help="Plate temperature [C].")
 @extrapolate_option
 @json_option
@@ -145,6 +234,7 @@ def plate(
     partner,
     match,
     retardance_nm,
+    layers,
     start,
     stop,
     step,
@@ -172,6 +262,7 @@ def plate(
         partner,
         match,
         retardance_nm,
+        layers,
     )
     if start is None and stop is None:
         wl = np.array([p.design_nm])
@@ -186,6 +277,15 @@ def plate(
             raise RetolError("--step", "must be positive", "e.g. --step 10nm")
         n = int(np.floor((stop - start) / step + 1e-9)) + 1
         wl = start + step * np.arange(n)
+    if any(abs(((la.axis_deg - p.axis_deg) + 45.0) % 90.0 - 45.0) > 1e-9 for la in p.layers):
+        import warnings
+
+        warnings.warn(
+            "the layers are neither parallel nor crossed: the table gives the retardance "
+            "projected on the plate's fast axis (sum of cos 2(layer axis - fast axis) times "
+            "each layer's retardance); see retol state for the output state",
+            stacklevel=1,
+        )
     delta = plate_retardance(p, wl, temperature_c=temperature, extrapolate=extrapolate)
     w = delta / (2 * np.pi)
     layers = [
@@ -228,9 +328,13 @@ def plate(
     where = (
         " and ".join(f"{x:g}" for x in match) + " nm (matched)" if match else f"{p.design_nm:g} nm"
     )
-    click.echo(
-        f"{p.construction} plate, target {p.waves:g} waves at {where}, fast axis {p.axis_deg:g} deg"
-    )
+    if p.construction == "stack":
+        click.echo(f"{p.name}, design {p.design_nm:g} nm, fast axis {p.axis_deg:g} deg")
+    else:
+        click.echo(
+            f"{p.construction} plate, target {p.waves:g} waves at {where}, "
+            f"fast axis {p.axis_deg:g} deg"
+        )
     click.echo(
         table(
             [

@@ -8,7 +8,7 @@ from pathlib import Path
 
 import click
 
-from .common import echo_json, json_option, user_errors
+from .common import FIGURE_FORMAT, echo_json, json_option, user_errors
 
 
 def load_grid(path):
@@ -43,8 +43,9 @@ def load_grid(path):
     "--format",
     "formats",
     multiple=True,
-    metavar="png|svg|pdf",
-    help="Figure file format for figures/ (repeatable) [default: png]. The HTML always embeds PNG.",
+    type=FIGURE_FORMAT,
+    help="Figure file format for figures/: png, svg or pdf (repeatable) [default: png]. "
+    "The HTML always embeds PNG.",
 )
 @click.option("--force", is_flag=True, help="Replace a report already in the folder.")
 @json_option
@@ -67,7 +68,12 @@ def report(grid_path, out_dir, formats, force, as_json):
         if Path(sys.argv[0]).name.startswith("retol")
         else None
     )
-    path = write_report(grid, out, formats=formats, force=force, command=command)
+    from .run import figure_progress
+
+    # figures take seconds each: show which one is being drawn (stderr, a terminal only)
+    path = write_report(
+        grid, out, formats=formats, force=force, command=command, progress=figure_progress()
+    )
     files = {
         "report": str(path),
         "summary": str(path.parent / "summary.csv"),

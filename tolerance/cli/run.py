@@ -9,7 +9,7 @@ from pathlib import Path
 
 import click
 
-from .common import echo_json, fail, table, user_errors
+from .common import FIGURE_FORMAT, echo_json, fail, table, user_errors
 from .sweep import cluster_options
 
 #: Exit status when the results grid was written but the report was not.
@@ -331,9 +331,14 @@ def compile_notice(stream=None) -> bool:
     return True
 
 
+def stderr_is_terminal() -> bool:
+    """Whether stderr is a terminal (progress is shown only there)."""
+    return sys.stderr.isatty()
+
+
 def figure_progress():
     """A progress callback for the report's figures, on stderr when it is a terminal."""
-    if not sys.stderr.isatty():
+    if not stderr_is_terminal():
         return None
 
     def show(done, total, name):
@@ -481,7 +486,7 @@ def _report_into(ds, part: Path, formats, command, progress=None) -> str | None:
     "--format",
     "formats",
     multiple=True,
-    type=click.Choice(["png", "svg", "pdf"], case_sensitive=False),
+    type=FIGURE_FORMAT,
     help="Figure format for the report: png, svg or pdf (repeatable) "
     "[default: the spec's [report] formats, else png].",
 )

@@ -70,6 +70,7 @@ def state(
     partner,
     match,
     retardance_nm,
+    layers,
     at,
     tilt,
     tilt_azimuth,
@@ -99,7 +100,7 @@ def state(
     )
 
     E_in = linear_jones(input_deg)
-    if material is None:
+    if material is None and construction != "stack":
         if waves is None:
             raise RetolError(
                 "--waves", "give --waves for an ideal plate, or --material", "e.g. --waves 0.25"
@@ -124,6 +125,7 @@ def state(
             partner,
             match,
             retardance_nm,
+            layers,
         )
         wl = p.design_nm if at is None else at
         J = plate_jones(
@@ -134,7 +136,11 @@ def state(
             incidence_azimuth_deg=tilt_azimuth,
             extrapolate=extrapolate,
         )
-        label = f"{p.construction} {material} plate at {wl:g} nm"
+        label = (
+            f"{p.name} at {wl:g} nm"
+            if p.construction == "stack"
+            else f"{p.construction} {material} plate at {wl:g} nm"
+        )
     S = jones_to_stokes(J @ E_in)
     S = S / S[0]
     e = ellipse(S)
@@ -147,7 +153,11 @@ def state(
         "stokes": [float(x) + 0.0 for x in S],
     }
     if analyzer is not None:
+        from ..polarization import EXTINCTION_CAP_DB
+
         out["extinction_db"] = float(analyzer_extinction_db(S, analyzer))
+        # the value is the cap: the true ratio is at least this large (in magnitude)
+        out["extinction_at_cap"] = abs(out["extinction_db"]) >= EXTINCTION_CAP_DB - 1e-9
     if target is not None:
         import math
 
@@ -193,5 +203,20 @@ def state(
     if analyzer is not None:
         click.echo(
             f"  extinction through a linear analyzer at {analyzer:g} deg: "
-            f"{out['extinction_db']:.2f} dB"
+            + _extinction_words(out["extinction_db"])
         )
+
+
+def _extinction_words(db: float) -> str:
+    """An extinction ratio for the terminal; at the cap it is a bound, not a value.
+
+    ``polarization.extinction_db`` caps an exact match at ``EXTINCTION_CAP_DB`` (a pure state
+    through an ideal analyzer is infinite), so a capped value reads "above 150 dB".
+    """
+    from ..polarization import EXTINCTION_CAP_DB
+
+    if db >= EXTINCTION_CAP_DB - 1e-9:
+        return f"above {EXTINCTION_CAP_DB:g} dB"
+    if db <= -EXTINCTION_CAP_DB + 1e-9:
+        return f"below -{EXTINCTION_CAP_DB:g} dB (the analyzer blocks the state)"
+    return f"{db:.2f} dB"
