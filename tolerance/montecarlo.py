@@ -647,6 +647,21 @@ class Engine:
             sst[start:stop] = s
         return worst, sst
 
+    def pass_flags(self, case: Case, start: int, stop: int, active=None) -> np.ndarray:
+        """Whether each of samples [start, stop) meets the goal (``start`` a multiple of
+        :data:`tolerance.sampler.BLOCK`); the same values as :meth:`pass_rate` sees, so a
+        caller may evaluate a prefix and stop once it has decided what it needs."""
+        flags = np.empty(stop - start, dtype=bool)
+        ret_shift = np.zeros(self.grid.size)
+        for a, b in _chunks(stop - start, self.chunk):
+            lo, hi = start + a, start + b
+            inputs, extra = sample_inputs(case, self.study, self.draws, lo, hi, active=active)
+            w, s, _ = self._call(
+                case, inputs, extra, self._stats(None, hi - lo, False, ret_shift), hi - lo
+            )
+            flags[a:b] = self.pass_metric(w, s, case.goal) >= self.study.goal.min
+        return flags
+
     def pass_rate(self, case: Case, n: int | None = None, active=None) -> float:
         """The share of the first ``n`` samples that meet the goal (same draws every call)."""
         if self.client is not None:
