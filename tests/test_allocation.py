@@ -142,6 +142,55 @@ def test_yield_monotone_in_width_under_common_draws():
         assert all(b <= a for a, b in zip(ys, ys[1:], strict=False)), (key, ys)
 
 
+MONOTONE = [
+    # (tolerance, goal axial ratio): each moves the retardance error |δ| of the zero-order plate
+    # (axis 45°, one wavelength) monotonically in its width, and b/a = tan(π/4 − |δ|/2) falls
+    # monotonically in |δ| (closed form 2 above), so every sample that fails at a width fails at
+    # any larger one and the yield cannot rise.
+    # * tilt: at small incidence i the retardance changes by a term in sin² i times a factor of
+    #   the incidence plane's azimuth only [A. Yariv and P. Yeh, Optical Waves in Crystals,
+    #   Wiley (1984), sec. 5.4, from memory]; with the azimuth draw fixed, |i| = f |z| σ grows
+    #   with f.
+    ("tilt_deg = { sigma = 10.0 }", 0.999),
+    # * temperature: δ = δ₀ (1 + κ (T − T_ref)) (linear thermo-optic retardance, common
+    #   practice); a range centred on T_ref scaled by f about its centre puts each sample at
+    #   T_ref + f (u − ½)(high − low), so |T − T_ref| grows with f.  Quartz: T_ref 20 °C.
+    ("temperature_c = { low = 0, high = 40 }", 0.998),
+    # * retardance_waves: the drawn error is f w z (w the width, z the fixed standard draw), a
+    #   common thickness scale 1 + f w z / R (R = 0.25 wave), so |δ| = (π/2) f |w z| / R.
+    ('retardance_waves = { tolerance = 0.01, at = "632.8nm" }', 0.95),
+]
+
+
+@pytest.mark.parametrize("tol, amin", MONOTONE)
+def test_yield_monotone_in_tilt_temperature_retardance(tol, amin):
+    """Yield cannot rise when the width grows (same draws), and it does fall: not trivially 1."""
+    s = study(tol, amin=amin, n=4096)
+    key = next(iter(s.tolerances))
+    eng = Engine(s)
+    ys = [eng.pass_rate(eng.case(0, scale={key: f})) for f in np.linspace(0, 3, 13)]
+    assert all(b <= a for a, b in zip(ys, ys[1:], strict=False)), (key, ys)
+    assert ys[0] == 1.0 and ys[-1] < 0.9, ys
+
+
+def test_temperature_range_off_design_is_not_monotone():
+    """Where monotonicity fails: a range centred 30 °C off the design temperature.
+
+    At zero width every sample sits at 50 °C, |δ| = (π/2) |κ| 30 °C ≈ 5.8e-3 rad, b/a ≈ 0.9942
+    (closed forms 2 and the linear temperature law above) < 0.996: yield 0.  Widening the range
+    about 50 °C brings some samples nearer 20 °C, where they pass: the yield rises with the
+    width.  The search answers on its monotone envelope: zero width already fails, so no width
+    is allocated ("alone" null with the reason), never a far crossing on the rising branch.
+    """
+    s = study("temperature_c = { low = 40, high = 60 }", amin=0.996, n=4096)
+    eng = Engine(s)
+    ys = [eng.pass_rate(eng.case(0, scale={"temperature_c": f})) for f in (0.0, 1.0, 2.0, 3.0)]
+    assert ys[0] == 0.0 and ys[3] > ys[2] > ys[1] >= ys[0], ys
+    yc = A._Yields(eng, s.candidates[0], s.tolerances)
+    a = A.allocate_alone(yc, "temperature_c", 0.5)
+    assert a.width is None and "zero width" in a.reason and "centre" in a.reason
+
+
 COST = """
 [allocation]
 target_yield = 0.9

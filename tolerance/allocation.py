@@ -383,6 +383,15 @@ def allocate_alone(yc: _Yields, key: str, target: float) -> Alone:
 
     if f is None:
         pt = seen[0.0] = y(0.0)
+        why = "the others sink it"
+        nominal = yc.eng.study.environment.temperature_c if key == "temperature_c" else 0.0
+        if dist.kind == "range" and 0.5 * (dist.low + dist.high) != nominal:
+            # scaled about an off-nominal centre, the yield need not fall with the width
+            why = (
+                f"at zero width every sample sits at the range's centre "
+                f"{0.5 * (dist.low + dist.high):g}, not the nominal {nominal:g}; move the range "
+                "(a wider one may pass more: the yield is not monotone in its width)"
+            )
         return Alone(
             key,
             dist.form,
@@ -390,7 +399,7 @@ def allocate_alone(yc: _Yields, key: str, target: float) -> Alone:
             None,
             None,
             None,
-            reason=f"even zero width gives yield {pt.yield_:.4f} < {target:g}: the others sink it",
+            reason=f"even zero width gives yield {pt.yield_:.4f} < {target:g}: {why}",
             curve=curve(),
         )
     if f == f_max:
