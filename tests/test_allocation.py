@@ -275,8 +275,14 @@ def test_json_keys_and_outputs(tmp_path):
         assert a is None or {"width", "form", "yield", "yield_low", "yield_high"} <= set(a)
     assert {"scale", "widths", "yield", "yield_low", "yield_high"} <= set(c["balanced"])
     assert {"widths", "cost", "yield", "yield_low", "yield_high"} <= set(c["cheapest"])
-    for name in ("allocation.json", "drawing.csv", "yield_vs_width.png"):
+    for name in ("allocation.json", "drawing.csv", "yield_vs_width.png", "allocation.html"):
         assert (out / name).exists()
+    page = (out / "allocation.html").read_text(encoding="utf-8")
+    # one self-contained page: the drawing table, the figure embedded, every varied key
+    assert "Drawing and purchase order" in page and "retardance_tol_waves" in page
+    assert 'src="data:image/png;base64,' in page and "Yield versus width" in page
+    assert "clocking_deg" in page and "thickness_um" in page and "Cheapest" in page
+    assert "<script" not in page and "http" not in page
     head = (out / "drawing.csv").read_text().splitlines()[0].split(",")
     assert "layer1_thickness_tol_um" in head and "retardance_tol_waves" in head
     again = CliRunner().invoke(cli, ["allocate", str(p), "--out", str(out)])
