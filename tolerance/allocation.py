@@ -340,11 +340,20 @@ def _width_range(points: Mapping[float, Point], f_ans: float, f_fail: float | No
 
     The yield near the answer is taken as linear in the scale: a least-squares line through
     the evaluated points within a factor 1.3 of the bracket [answer, first failure]; the range
-    is where that line meets the interval's ends.  ``exact(f)`` finishes a point decided early
-    (only those in the window are finished: the far ones never enter the fit).
+    is where that line meets the interval's ends.  ``exact(f)`` evaluates a point in full: it
+    finishes the points in the window that were decided early, and, when the search left no
+    point 10-30 % below or above the answer (an interpolating search closes in tightly), adds
+    one 20 % away on that side, so that the slope is not taken over a 1 % step where a few
+    samples decide it.
     """
     p = points[f_ans]
     hi = f_fail if f_fail is not None else f_ans
+    if exact is not None:
+        f_top = max(points)
+        if not any(f_ans / 1.3 <= f <= f_ans / 1.1 for f in points):
+            points[f_ans / 1.2] = exact(f_ans / 1.2)
+        if f_ans * 1.2 <= f_top and not any(f_ans * 1.1 <= f <= hi * 1.3 for f in points):
+            points[f_ans * 1.2] = exact(f_ans * 1.2)
     near = [f for f in points if f_ans / 1.3 <= f <= hi * 1.3]
     if exact is not None:
         for f in near:

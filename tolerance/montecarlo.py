@@ -295,8 +295,19 @@ def retardance_scale(case: Case, study: Study, error_waves):
     by s as well: R(s) = s R.  R(s) = R + e gives s = 1 + e / R.  A compound or achromatic
     plate keeps its thickness ratios (its design), as a vendor's "λ/300 at 632.8 nm" implies.
     """
-    r = nominal_retardance_waves(case.plate, study.retardance_at(case.candidate))
-    return 1.0 + np.asarray(error_waves) / r
+    at = study.retardance_at(case.candidate)
+    key = (id(case.plate), at)
+    hit = _NOMINAL_RETARDANCE.get(key)
+    if hit is None or hit[0] is not case.plate:
+        if len(_NOMINAL_RETARDANCE) >= 256:
+            _NOMINAL_RETARDANCE.clear()
+        hit = (case.plate, nominal_retardance_waves(case.plate, at))
+        _NOMINAL_RETARDANCE[key] = hit
+    return 1.0 + np.asarray(error_waves) / hit[1]
+
+
+#: nominal retardance per (plate, test wavelength), so chunked loops compute it once
+_NOMINAL_RETARDANCE: dict = {}
 
 
 def first_sample(inputs: SampleInputs) -> tuple:
@@ -546,6 +557,17 @@ class Engine:
             self._optics[key] = hit
         return hit[1]
 
+    def _line_optics(self, plate: Plate, drift) -> LineOptics:
+        """The source lines' optics, kept per plate when the lines do not drift."""
+        if drift is not None:
+            return line_optics(plate, self.spectrum, drift)
+        key = ("lines", id(plate))
+        hit = self._optics.get(key)
+        if hit is None or hit[0] is not plate:
+            hit = (plate, line_optics(plate, self.spectrum, None))
+            self._optics[key] = hit
+        return hit[1]
+
     # ------------------------------------------------------------------ kernel calls
     def _call(self, case: Case, inputs, extra, stats: Statistics | None, n: int, keep_out=None):
         optics = self.optics(case.plate)
@@ -573,7 +595,7 @@ class Engine:
         chunk_pass(
             optics,
             np.array(self.spectrum.grid_weight, dtype=float),
-            line_optics(case.plate, self.spectrum, extra["drift"]),
+            self._line_optics(case.plate, extra["drift"]),
             inputs,
             Target(case.plate.signs(), case.goal, self.metric_code, case.w_design),
             stats,
