@@ -63,7 +63,7 @@ RTOL = 0.01
 #: Largest number of combinations the cheapest search may evaluate.
 MAX_EVALUATIONS = 300
 ALTERNATIVES = 3
-#: Samples between the checks of an evaluation that may stop early (at least; n/16 for large n).
+#: Samples in the first (and any later) step of an evaluation that may stop early, at least.
 PREFIX = 2048
 #: Physical bounds on a tolerance's reach (6 σ, the half width or half range). [key's unit]
 ANGLE_BOUND = {"clocking_deg": 45.0, "crossing_deg": 45.0, "input_azimuth_deg": 45.0}
@@ -155,6 +155,9 @@ class CandidateAllocation:
     allocated: Mapping[str, Distribution]  # the tolerances the drawing table shows
     basis: str  # "cheapest" or "balanced"
     yield_: float
+    #: scale combinations evaluated, and samples run through the kernel over all of them
+    evaluations: int = 0
+    samples_run: int = 0
 
 
 @dataclass(frozen=True)
@@ -174,7 +177,7 @@ class _Yields:
 
     Scale factors of exactly 1 are the tolerances as given, so they are left out of the cache
     key: every "alone" search, the balanced one and the as-given yield share that evaluation.
-    With ``decide=Y`` the samples are run in steps of :data:`PREFIX` (or n/16 if larger)
+    With ``decide=Y`` the samples are run in steps (:meth:`_step`)
     and the evaluation stops as soon as the failures seen exceed n (1 - Y): the full yield is
     then below Y whatever the remaining samples do, so a comparison with Y is exact.  A point
     decided early is finished (from where it stopped) when its exact yield is asked for.
@@ -208,9 +211,8 @@ class _Yields:
             return self._store(key, Point(f_mean, k, n, *wilson(k, n, self.conf)))
         passes, seen = self._partial.pop(key, (0, 0))
         case = self._case(scales)
-        step = max(PREFIX, -(-n // (16 * BLOCK)) * BLOCK)
         while seen < n:
-            stop = n if decide is None else min(n, seen + step)
+            stop = n if decide is None else min(n, seen + self._step(n, seen, passes, decide))
             passes += int(np.count_nonzero(eng.pass_flags(case, seen, stop)))
             self.samples_run += stop - seen
             seen = stop
@@ -219,6 +221,23 @@ class _Yields:
                 lo, hi = wilson(passes, seen, self.conf)
                 return self._store(key, Point(f_mean, passes, seen, lo, hi, seen=seen))
         return self._store(key, Point(f_mean, passes, n, *wilson(passes, n, self.conf)))
+
+    @staticmethod
+    def _step(n: int, seen: int, passes: int, decide: float) -> int:
+        """Samples to run before the next check: :data:`PREFIX` first, then as many as the
+        failure rate seen so far needs to exceed n (1 - Y) failures (whole draw blocks; all
+        the rest when that rate cannot get there), so an evaluation takes two or three kernel
+        calls rather than one per prefix."""
+        if seen == 0:
+            return PREFIX
+        fails = seen - passes
+        need = n * (1.0 - decide) - fails  # more failures before the yield is surely below Y
+        if fails == 0:
+            return n - seen
+        more = 1.1 * need / fails * seen  # 10 % beyond the expected count: one call, usually
+        if more >= n - seen:
+            return n - seen
+        return max(PREFIX, -(-int(more) // BLOCK) * BLOCK)
 
     def _case(self, scales):
         return self.eng.case(self.cand, tolerances=self.tol, scale=dict(scales))
@@ -658,7 +677,20 @@ def allocate(
         else:
             allocated = {**tol, **{k: tol[k].with_width(w) for k, w in bal.widths.items()}}
             basis, y = "balanced", bal.yield_
-        out.append(CandidateAllocation(cand.name, alone, bal, cheap, tol, allocated, basis, y))
+        out.append(
+            CandidateAllocation(
+                cand.name,
+                alone,
+                bal,
+                cheap,
+                tol,
+                allocated,
+                basis,
+                y,
+                yc.evaluations,
+                yc.samples_run,
+            )
+        )
     return Allocation(target, eng.samples, eng.seed, keys, tuple(out))
 
 
