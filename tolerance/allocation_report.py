@@ -18,7 +18,7 @@ _CAPTION = (
     "Yield versus width of each varied tolerance alone, the others as specified, on the same "
     "draws (the points the search evaluated; a point it decided early, once its failures "
     "already put the yield below the target, shows the yield of the samples it ran). Dashed: "
-    "the target; dotted: the loosest width found."
+    "the target; dotted: the loosest width found; the axis ends at three times that width."
 )
 
 
@@ -126,8 +126,8 @@ def allocation_html(doc: dict, rows: list[dict], figure_png: bytes | None, title
         "table below shows the cheapest combination, else the balanced widths.</p>",
     ]
     p += [_candidate(c) for c in doc["candidates"]]
-    section = drawing_section(None, rows, None)
-    p.append(section)
+    # the drawing table is wide (a column per toleranced quantity): let it scroll on its own
+    p.append(f'<div style="overflow-x:auto">{drawing_section(None, rows, None)}</div>')
     if figure_png is not None:
         import base64
 
