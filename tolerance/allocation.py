@@ -199,12 +199,14 @@ class _Yields:
         """The yield at ``scales``; with ``decide`` only as far as needed to compare with it."""
         key = tuple(sorted((k, round(float(f), 12)) for k, f in scales.items() if f != 1.0))
         hit = self.cache.get(key)
-        if hit is not None and (hit.exact or decide is not None):
-            return hit
+        n = self.eng.samples
+        if hit is not None and (
+            hit.exact or (decide is not None and (n - hit.seen + hit.k) / n < decide)
+        ):
+            return hit  # exact, or decided early and below this target even at best
         if hit is None:
             self.evaluations += 1
         eng = self.eng
-        n = eng.samples
         f_mean = float(np.mean(list(scales.values()))) if scales else 1.0
         if eng.client is not None:  # a cluster evaluates whole runs
             k = int(round(eng.pass_rate(self._case(scales)) * n))
