@@ -142,6 +142,79 @@ def test_yield_monotone_in_width_under_common_draws():
         assert all(b <= a for a, b in zip(ys, ys[1:], strict=False)), (key, ys)
 
 
+MONOTONE = [
+    # (tolerance, goal axial ratio): each moves the retardance error |δ| of the zero-order plate
+    # (axis 45°, one wavelength) monotonically in its width, and b/a = tan(π/4 − |δ|/2) falls
+    # monotonically in |δ| (closed form 2 above), so every sample that fails at a width fails at
+    # any larger one and the yield cannot rise.
+    # * tilt: at small incidence i the retardance changes by a term in sin² i times a factor of
+    #   the incidence plane's azimuth only [A. Yariv and P. Yeh, Optical Waves in Crystals,
+    #   Wiley (1984), sec. 5.4, from memory]; with the azimuth draw fixed, |i| = f |z| σ grows
+    #   with f.
+    ("tilt_deg = { sigma = 10.0 }", 0.999),
+    # * temperature: δ = δ₀ (1 + κ (T − T_ref)) (linear thermo-optic retardance, common
+    #   practice); a range centred on T_ref scaled by f about its centre puts each sample at
+    #   T_ref + f (u − ½)(high − low), so |T − T_ref| grows with f.  Quartz: T_ref 20 °C.
+    ("temperature_c = { low = 0, high = 40 }", 0.998),
+    # * retardance_waves: the drawn error is f w z (w the width, z the fixed standard draw), a
+    #   common thickness scale 1 + f w z / R (R = 0.25 wave), so |δ| = (π/2) f |w z| / R.
+    ('retardance_waves = { tolerance = 0.01, at = "632.8nm" }', 0.95),
+]
+
+
+@pytest.mark.parametrize("tol, amin", MONOTONE)
+def test_yield_monotone_in_tilt_temperature_retardance(tol, amin):
+    """Yield cannot rise when the width grows (same draws), and it does fall: not trivially 1."""
+    s = study(tol, amin=amin, n=4096)
+    key = next(iter(s.tolerances))
+    eng = Engine(s)
+    ys = [eng.pass_rate(eng.case(0, scale={key: f})) for f in np.linspace(0, 3, 13)]
+    assert all(b <= a for a, b in zip(ys, ys[1:], strict=False)), (key, ys)
+    assert ys[0] == 1.0 and ys[-1] < 0.9, ys
+
+
+def test_temperature_range_off_design_is_not_monotone():
+    """Where monotonicity fails: a range centred 30 °C off the design temperature.
+
+    At zero width every sample sits at 50 °C, |δ| = (π/2) |κ| 30 °C ≈ 5.8e-3 rad, b/a ≈ 0.9942
+    (closed forms 2 and the linear temperature law above) < 0.996: yield 0.  Widening the range
+    about 50 °C brings some samples nearer 20 °C, where they pass: the yield rises with the
+    width.  The search answers on its monotone envelope: zero width already fails, so no width
+    is allocated ("alone" null with the reason), never a far crossing on the rising branch.
+    """
+    s = study("temperature_c = { low = 40, high = 60 }", amin=0.996, n=4096)
+    eng = Engine(s)
+    ys = [eng.pass_rate(eng.case(0, scale={"temperature_c": f})) for f in (0.0, 1.0, 2.0, 3.0)]
+    assert ys[0] == 0.0 and ys[3] > ys[2] > ys[1] >= ys[0], ys
+    yc = A._Yields(eng, s.candidates[0], s.tolerances)
+    a = A.allocate_alone(yc, "temperature_c", 0.5)
+    assert a.width is None and "zero width" in a.reason and "centre" in a.reason
+
+
+def test_early_decision_is_exact():
+    """A point decided early compares with the target as the full yield does, and finishing it
+    gives the full yield (the same per-sample values as Engine.pass_rate, chunking aside).
+
+    The rule: after s of n samples with F failures, the full yield is at most (n − F)/n; once
+    that is below Y the comparison is settled whatever the other n − s samples do."""
+    s = study("clocking_deg = { uniform = 2.0 }\nthickness_um = { sigma = 0.3 }", n=6000)
+    eng = Engine(s)
+    case = eng.case(0)
+    assert np.mean(eng.pass_flags(case, 0, eng.samples)) == eng.pass_rate(case)
+    tol = s.tolerances
+    early = 0
+    for f in (0.25, 0.8, 1.5, 3.0, 6.0):
+        yc = A._Yields(eng, s.candidates[0], tol)
+        full = eng.pass_rate(eng.case(0, scale={"clocking_deg": f, "thickness_um": f}))
+        for target in (0.9, 0.5, 0.95):  # a point decided against 0.9 is not reused for 0.5
+            p = yc.at({"clocking_deg": f, "thickness_um": f}, decide=target)
+            assert (p.yield_ >= target) == (full >= target), (f, target, p, full)
+            early += not p.exact
+        done = yc.at({"clocking_deg": f, "thickness_um": f})
+        assert done.exact and done.yield_ == full
+    assert early >= 2  # the check is not vacuous: some points were decided early
+
+
 COST = """
 [allocation]
 target_yield = 0.9
@@ -226,8 +299,14 @@ def test_json_keys_and_outputs(tmp_path):
         assert a is None or {"width", "form", "yield", "yield_low", "yield_high"} <= set(a)
     assert {"scale", "widths", "yield", "yield_low", "yield_high"} <= set(c["balanced"])
     assert {"widths", "cost", "yield", "yield_low", "yield_high"} <= set(c["cheapest"])
-    for name in ("allocation.json", "drawing.csv", "yield_vs_width.png"):
+    for name in ("allocation.json", "drawing.csv", "yield_vs_width.png", "allocation.html"):
         assert (out / name).exists()
+    page = (out / "allocation.html").read_text(encoding="utf-8")
+    # one self-contained page: the drawing table, the figure embedded, every varied key
+    assert "Drawing and purchase order" in page and "retardance_tol_waves" in page
+    assert 'src="data:image/png;base64,' in page and "Yield versus width" in page
+    assert "clocking_deg" in page and "thickness_um" in page and "Cheapest" in page
+    assert "<script" not in page and "http" not in page
     head = (out / "drawing.csv").read_text().splitlines()[0].split(",")
     assert "layer1_thickness_tol_um" in head and "retardance_tol_waves" in head
     again = CliRunner().invoke(cli, ["allocate", str(p), "--out", str(out)])

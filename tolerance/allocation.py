@@ -14,12 +14,26 @@ Yield under common random numbers is a step function of the widths: each pass co
 when a sample crosses the goal.  With every draw fixed, a tolerance's value is its width times a
 fixed standard draw, so widening moves every sample's error outward; the pass test is then, for
 the usual single-optimum goal, non-increasing in each width (checked in the tests), and a search
-on the scale factor is a monotone root-finding problem.  We solve it by bracketing and bisection
-in log(scale) on the *first* failure (the monotone envelope: the answer is the largest scale
-evaluated whose yield, and that of every smaller scale evaluated, is >= Y), so a rare
-non-monotone sample cannot send the search to a far crossing.  The answer is reproducible for a
-seed and moves between seeds by about its reported width range: the widths whose yields reach
-the ends of the Wilson interval at the answer (the Monte Carlo uncertainty of the width).
+on the scale factor is a monotone root-finding problem.  We solve it by bracketing (factors of 2)
+and then a safeguarded interpolation in log(scale) (:func:`_guess`, bisection whenever a step
+does not halve the bracket) on the *first* failure (the monotone envelope: the answer is the
+largest scale evaluated whose yield, and that of every smaller scale evaluated, is >= Y), so a
+rare non-monotone sample cannot send the search to a far crossing.  The answer is reproducible
+for a seed, resolved to :data:`RTOL`, and moves between seeds by about its reported width range:
+the widths whose yields reach the ends of the Wilson interval at the answer (the Monte Carlo
+uncertainty of the width).
+
+Only the comparison with Y matters at most evaluated points, so an evaluation runs its samples
+in steps and stops once the failures seen already exceed n (1 - Y) (:class:`_Yields`):
+the full yield is then surely below Y, and the comparison is exact.  The as-given yield (every
+scale 1) is evaluated once and shared by all searches.
+
+Where the yield is not monotone in a width: a temperature range whose centre is not the design
+temperature (scaling it about its centre first brings the plate nearer its design point, then
+away), and two tolerances that act on the same quantity with opposite signs (a thickness error
+can cancel a ``retardance_waves`` error, a tilt can cancel a thickness error), so that one
+sample may pass at a larger width and fail at a smaller one.  The search copes by the envelope
+rule above: it answers the first crossing from below, which is the safe (tighter) width.
 
 References
 ----------
@@ -40,6 +54,7 @@ import numpy as np
 from .distributions import DEFAULT_COVERAGE, Distribution
 from .errors import RetolError
 from .montecarlo import Engine, nominal_retardance_waves, wilson
+from .sampler import BLOCK
 from .study import Candidate, Study
 
 DEFAULT_TARGET = 0.99
@@ -48,6 +63,8 @@ RTOL = 0.01
 #: Largest number of combinations the cheapest search may evaluate.
 MAX_EVALUATIONS = 300
 ALTERNATIVES = 3
+#: Samples in the first (and any later) step of an evaluation that may stop early, at least.
+PREFIX = 2048
 #: Physical bounds on a tolerance's reach (6 σ, the half width or half range). [key's unit]
 ANGLE_BOUND = {"clocking_deg": 45.0, "crossing_deg": 45.0, "input_azimuth_deg": 45.0}
 TILT_BOUND = 88.0
@@ -60,17 +77,26 @@ TEMPERATURE_BOUND = 100.0
 
 @dataclass(frozen=True)
 class Point:
-    """A yield evaluated at one scale factor: pass count k of n, Wilson interval."""
+    """A yield evaluated at one scale factor: pass count k of n, Wilson interval.
+
+    ``seen`` < n marks a point decided early: its first ``seen`` samples already hold more
+    failures than a yield >= the target allows, so the full yield is surely below it; k and the
+    interval are then those of the ``seen`` samples (an estimate below the target)."""
 
     scale: float
     k: int
     n: int
     low: float
     high: float
+    seen: int | None = None
 
     @property
     def yield_(self) -> float:
         return self.k / self.n
+
+    @property
+    def exact(self) -> bool:
+        return self.seen is None
 
 
 @dataclass(frozen=True)
@@ -129,6 +155,9 @@ class CandidateAllocation:
     allocated: Mapping[str, Distribution]  # the tolerances the drawing table shows
     basis: str  # "cheapest" or "balanced"
     yield_: float
+    #: scale combinations evaluated, and samples run through the kernel over all of them
+    evaluations: int = 0
+    samples_run: int = 0
 
 
 @dataclass(frozen=True)
@@ -144,7 +173,15 @@ class Allocation:
 
 
 class _Yields:
-    """Cached yields of one candidate at scale factors on some tolerances (same draws)."""
+    """Cached yields of one candidate at scale factors on some tolerances (same draws).
+
+    Scale factors of exactly 1 are the tolerances as given, so they are left out of the cache
+    key: every "alone" search, the balanced one and the as-given yield share that evaluation.
+    With ``decide=Y`` the samples are run in steps (:meth:`_step`)
+    and the evaluation stops as soon as the failures seen exceed n (1 - Y): the full yield is
+    then below Y whatever the remaining samples do, so a comparison with Y is exact.  A point
+    decided early is finished (from where it stopped) when its exact yield is asked for.
+    """
 
     def __init__(self, eng: Engine, cand: Candidate, tol: Mapping[str, Distribution]):
         self.eng = eng
@@ -152,19 +189,64 @@ class _Yields:
         self.tol = dict(tol)
         self.conf = eng.study.run.confidence
         self.cache: dict = {}
+        self._partial: dict = {}  # key -> (passes, seen) of a point decided early
+        #: distinct scale combinations evaluated (fully or decided early)
+        self.evaluations = 0
+        #: samples × evaluations run through the kernel
+        self.samples_run = 0
 
-    def at(self, scales: Mapping[str, float]) -> Point:
-        key = tuple(sorted((k, round(float(f), 12)) for k, f in scales.items()))
+    def at(self, scales: Mapping[str, float], decide: float | None = None) -> Point:
+        """The yield at ``scales``; with ``decide`` only as far as needed to compare with it."""
+        key = tuple(sorted((k, round(float(f), 12)) for k, f in scales.items() if f != 1.0))
         hit = self.cache.get(key)
+        n = self.eng.samples
+        if hit is not None and (
+            hit.exact or (decide is not None and (n - hit.seen + hit.k) / n < decide)
+        ):
+            return hit  # exact, or decided early and below this target even at best
         if hit is None:
-            case = self.eng.case(self.cand, tolerances=self.tol, scale=dict(scales))
-            y = self.eng.pass_rate(case)
-            n = self.eng.samples
-            k = int(round(y * n))
-            lo, hi = wilson(k, n, self.conf)
-            hit = Point(float(np.mean(list(scales.values()))) if scales else 1.0, k, n, lo, hi)
-            self.cache[key] = hit
-        return hit
+            self.evaluations += 1
+        eng = self.eng
+        f_mean = float(np.mean(list(scales.values()))) if scales else 1.0
+        if eng.client is not None:  # a cluster evaluates whole runs
+            k = int(round(eng.pass_rate(self._case(scales)) * n))
+            return self._store(key, Point(f_mean, k, n, *wilson(k, n, self.conf)))
+        passes, seen = self._partial.pop(key, (0, 0))
+        case = self._case(scales)
+        while seen < n:
+            stop = n if decide is None else min(n, seen + self._step(n, seen, passes, decide))
+            passes += int(np.count_nonzero(eng.pass_flags(case, seen, stop)))
+            self.samples_run += stop - seen
+            seen = stop
+            if decide is not None and seen < n and (n - (seen - passes)) / n < decide:
+                self._partial[key] = (passes, seen)
+                lo, hi = wilson(passes, seen, self.conf)
+                return self._store(key, Point(f_mean, passes, seen, lo, hi, seen=seen))
+        return self._store(key, Point(f_mean, passes, n, *wilson(passes, n, self.conf)))
+
+    @staticmethod
+    def _step(n: int, seen: int, passes: int, decide: float) -> int:
+        """Samples to run before the next check: :data:`PREFIX` first, then as many as the
+        failure rate seen so far needs to exceed n (1 - Y) failures (whole draw blocks; all
+        the rest when that rate cannot get there), so an evaluation takes two or three kernel
+        calls rather than one per prefix."""
+        if seen == 0:
+            return PREFIX
+        fails = seen - passes
+        need = n * (1.0 - decide) - fails  # more failures before the yield is surely below Y
+        if fails == 0:
+            return n - seen
+        more = 1.1 * need / fails * seen  # 10 % beyond the expected count: one call, usually
+        if more >= n - seen:
+            return n - seen
+        return max(PREFIX, -(-int(more) // BLOCK) * BLOCK)
+
+    def _case(self, scales):
+        return self.eng.case(self.cand, tolerances=self.tol, scale=dict(scales))
+
+    def _store(self, key, point: Point) -> Point:
+        self.cache[key] = point
+        return point
 
 
 def _largest_passing(
@@ -172,14 +254,15 @@ def _largest_passing(
 ):
     """The largest scale f in [0, f_max] with y(f) >= target, on the monotone envelope.
 
-    ``y(f)`` returns a :class:`Point`.  Returns (f, point at f, f_fail or None); f is None when
-    even f = 0 fails.  Bracketing by factors of 2 from ``start``, then bisection in log f.
+    ``y(f, decide)`` returns a :class:`Point` (exact, or decided early against ``decide``).
+    Returns (f, point at f, f_fail or None); f is None when even f = 0 fails.  Bracketing by
+    factors of 2 from ``start``, then bisection in log f.
     """
     seen = {} if seen is None else seen
 
     def ev(f):
         if f not in seen:
-            seen[f] = y(f)
+            seen[f] = y(f, target)
         return seen[f]
 
     if ev(0.0).yield_ < target:
@@ -207,15 +290,43 @@ def _largest_passing(
                 lo = f
                 break
             hi = f
+    halve = False
     while hi - lo > rtol * max(lo, 1e-12) and (lo > 0 or hi > 1e-4 * f_max):
-        mid = math.sqrt(lo * hi) if lo > 0 else hi / 2.0
+        span = math.log(hi / lo) if lo > 0 else math.inf
+        if lo == 0:
+            mid = hi / 2.0
+        elif halve:
+            mid = math.sqrt(lo * hi)
+        else:
+            mid = _guess(lo, hi, seen[lo].yield_, seen[hi].yield_, target, rtol)
         if ev(mid).yield_ >= target:
             lo = mid
         else:
             hi = mid
+        # a step that did not halve the bracket (in log f) is followed by a plain bisection
+        halve = not halve and lo > 0 and math.log(hi / lo) > 0.5 * span
         if lo == 0 and hi < 1e-4 * f_max:
             break
     return lo, ev(lo), hi
+
+
+def _guess(lo: float, hi: float, y_lo: float, y_hi: float, target: float, rtol: float) -> float:
+    """The next scale inside the bracket: the yield interpolated linearly in log f, kept at least
+    one resolution step from either end so that a good guess closes the bracket next time.
+
+    A near-root guess that passes is followed by one that lies a resolution step above it (and
+    fails), so a search whose interpolation is good needs about two evaluations per bracket
+    instead of the seven of bisection from a factor-2 bracket to 1 % (the safeguarded
+    interpolation of Dekker and Brent: R. P. Brent, Algorithms for Minimization without
+    Derivatives, Prentice-Hall (1973), ch. 4).
+    """
+    step = 1.0 + 0.999 * rtol
+    a, b = lo * step, hi / step
+    if a >= b:
+        return math.sqrt(lo * hi)
+    t = (y_lo - target) / (y_lo - y_hi) if y_lo > y_hi else 0.5
+    g = lo * (hi / lo) ** min(max(t, 0.0), 1.0)
+    return min(max(g, a), b)
 
 
 def reach_offset(dist: Distribution) -> float:
@@ -245,16 +356,31 @@ def _scale_bound(key: str, dist: Distribution, cand: Candidate) -> float:
     return physical_bound(key, cand) / reach_offset(dist)
 
 
-def _width_range(points: Mapping[float, Point], f_ans: float, f_fail: float | None):
+def _width_range(points: Mapping[float, Point], f_ans: float, f_fail: float | None, exact=None):
     """Scales whose yields reach the ends of the Wilson interval at the answer.
 
     The yield near the answer is taken as linear in the scale: a least-squares line through
-    the evaluated points within a factor 1.3 of the bracket [answer, first failure] (costs no
-    further evaluation); the range is where that line meets the interval's ends.
+    the evaluated points within a factor 1.3 of the bracket [answer, first failure]; the range
+    is where that line meets the interval's ends.  ``exact(f)`` evaluates a point in full: it
+    finishes the points in the window that were decided early, and, when the search left no
+    point 10-30 % below or above the answer (an interpolating search closes in tightly), adds
+    one 20 % away on that side, so that the slope is not taken over a 1 % step where a few
+    samples decide it.
     """
     p = points[f_ans]
     hi = f_fail if f_fail is not None else f_ans
-    sel = [(f, q.yield_) for f, q in points.items() if f_ans / 1.3 <= f <= hi * 1.3]
+    if exact is not None:
+        f_top = max(points)
+        if not any(f_ans / 1.3 <= f <= f_ans / 1.1 for f in points):
+            points[f_ans / 1.2] = exact(f_ans / 1.2)
+        if f_ans * 1.2 <= f_top and not any(f_ans * 1.1 <= f <= hi * 1.3 for f in points):
+            points[f_ans * 1.2] = exact(f_ans * 1.2)
+    near = [f for f in points if f_ans / 1.3 <= f <= hi * 1.3]
+    if exact is not None:
+        for f in near:
+            if not points[f].exact:
+                points[f] = exact(f)
+    sel = [(f, points[f].yield_) for f in near]
     if len(sel) < 2:
         return f_ans, f_ans
     f, yv = np.array(sel).T
@@ -275,13 +401,27 @@ def allocate_alone(yc: _Yields, key: str, target: float) -> Alone:
     w0 = dist.width
     f_max = _scale_bound(key, dist, yc.cand)
 
-    def y(f):
-        return yc.at({key: f})
+    def y(f, decide=None):
+        return yc.at({key: f}, decide)
 
     seen: dict = {}
     f, pt, f_fail = _largest_passing(y, target, f_max, seen=seen)
-    curve = tuple(sorted((s * w0, p.yield_) for (((_, s),), p) in _single(yc, key)))
+
+    def curve():
+        # (width, yield) of the points evaluated; a point decided early shows its prefix's yield
+        return tuple(sorted((s * w0, p.yield_) for s, p in seen.items()))
+
     if f is None:
+        pt = seen[0.0] = y(0.0)
+        why = "the others sink it"
+        nominal = yc.eng.study.environment.temperature_c if key == "temperature_c" else 0.0
+        if dist.kind == "range" and 0.5 * (dist.low + dist.high) != nominal:
+            # scaled about an off-nominal centre, the yield need not fall with the width
+            why = (
+                f"at zero width every sample sits at the range's centre "
+                f"{0.5 * (dist.low + dist.high):g}, not the nominal {nominal:g}; move the range "
+                "(a wider one may pass more: the yield is not monotone in its width)"
+            )
         return Alone(
             key,
             dist.form,
@@ -289,8 +429,8 @@ def allocate_alone(yc: _Yields, key: str, target: float) -> Alone:
             None,
             None,
             None,
-            reason=f"even zero width gives yield {pt.yield_:.4f} < {target:g}: the others sink it",
-            curve=curve,
+            reason=f"even zero width gives yield {pt.yield_:.4f} < {target:g}: {why}",
+            curve=curve(),
         )
     if f == f_max:
         return Alone(
@@ -302,31 +442,26 @@ def allocate_alone(yc: _Yields, key: str, target: float) -> Alone:
             None,
             reason=f"no width up to the physical bound {f_max * w0:.6g} fails",
             bound=f_max * w0,
-            curve=curve,
+            curve=curve(),
         )
-    f_lo, f_hi = _width_range(seen, f, f_fail)
-    curve = tuple(sorted((s * w0, p.yield_) for (((_, s),), p) in _single(yc, key)))
+    f_lo, f_hi = _width_range(seen, f, f_fail, y)
     return Alone(
-        key, dist.form, f * w0, pt.yield_, pt.low, pt.high, f_lo * w0, f_hi * w0, curve=curve
+        key, dist.form, f * w0, pt.yield_, pt.low, pt.high, f_lo * w0, f_hi * w0, curve=curve()
     )
-
-
-def _single(yc: _Yields, key: str):
-    return [(k, p) for k, p in yc.cache.items() if len(k) == 1 and k[0][0] == key]
 
 
 def allocate_balanced(yc: _Yields, vary: Sequence[str], target: float) -> Balanced:
     """One common scale factor on every varied width that brings the yield to the target."""
     f_max = min(_scale_bound(k, yc.tol[k], yc.cand) for k in vary)
 
-    def y(f):
-        return yc.at(dict.fromkeys(vary, f))
+    def y(f, decide=None):
+        return yc.at(dict.fromkeys(vary, f), decide)
 
     seen: dict = {}
     f, pt, f_fail = _largest_passing(y, target, f_max, seen=seen)
     if f is None:
-        raise _unreachable(yc, vary, target, pt)
-    f_lo, f_hi = (f, f) if f == f_max else _width_range(seen, f, f_fail)
+        raise _unreachable(yc, vary, target, y(0.0))
+    f_lo, f_hi = (f, f) if f == f_max else _width_range(seen, f, f_fail, y)
     return Balanced(
         f,
         {k: yc.tol[k].width * f for k in vary},
@@ -386,11 +521,11 @@ def allocate_cheapest(
     m = [len(opts[k]) for k in keys]
     evals = [0]
 
-    def y(idx) -> Point:
+    def y(idx, decide=target) -> Point:
         scales = {k: opts[k][i][0] / yc.tol[k].width for k, i in zip(keys, idx, strict=True)}
-        n0 = len(yc.cache)
-        p = yc.at(scales)
-        evals[0] += len(yc.cache) - n0
+        n0 = yc.evaluations
+        p = yc.at(scales, decide)
+        evals[0] += yc.evaluations - n0
         return p
 
     tightest = tuple(x - 1 for x in m)
@@ -398,7 +533,7 @@ def allocate_cheapest(
         raise RetolError(
             f"[allocation.cost] for candidate {yc.cand.name!r}",
             f"target yield {target:g} is unreachable: the tightest widths give yield "
-            f"{y(tightest).yield_:.4f}",
+            f"{y(tightest, None).yield_:.4f}",
             "offer tighter widths or lower --target-yield",
         )
     low = []
@@ -547,7 +682,20 @@ def allocate(
         else:
             allocated = {**tol, **{k: tol[k].with_width(w) for k, w in bal.widths.items()}}
             basis, y = "balanced", bal.yield_
-        out.append(CandidateAllocation(cand.name, alone, bal, cheap, tol, allocated, basis, y))
+        out.append(
+            CandidateAllocation(
+                cand.name,
+                alone,
+                bal,
+                cheap,
+                tol,
+                allocated,
+                basis,
+                y,
+                yc.evaluations,
+                yc.samples_run,
+            )
+        )
     return Allocation(target, eng.samples, eng.seed, keys, tuple(out))
 
 

@@ -295,8 +295,19 @@ def retardance_scale(case: Case, study: Study, error_waves):
     by s as well: R(s) = s R.  R(s) = R + e gives s = 1 + e / R.  A compound or achromatic
     plate keeps its thickness ratios (its design), as a vendor's "λ/300 at 632.8 nm" implies.
     """
-    r = nominal_retardance_waves(case.plate, study.retardance_at(case.candidate))
-    return 1.0 + np.asarray(error_waves) / r
+    at = study.retardance_at(case.candidate)
+    key = (id(case.plate), at)
+    hit = _NOMINAL_RETARDANCE.get(key)
+    if hit is None or hit[0] is not case.plate:
+        if len(_NOMINAL_RETARDANCE) >= 256:
+            _NOMINAL_RETARDANCE.clear()
+        hit = (case.plate, nominal_retardance_waves(case.plate, at))
+        _NOMINAL_RETARDANCE[key] = hit
+    return 1.0 + np.asarray(error_waves) / hit[1]
+
+
+#: nominal retardance per (plate, test wavelength), so chunked loops compute it once
+_NOMINAL_RETARDANCE: dict = {}
 
 
 def first_sample(inputs: SampleInputs) -> tuple:
@@ -546,6 +557,17 @@ class Engine:
             self._optics[key] = hit
         return hit[1]
 
+    def _line_optics(self, plate: Plate, drift) -> LineOptics:
+        """The source lines' optics, kept per plate when the lines do not drift."""
+        if drift is not None:
+            return line_optics(plate, self.spectrum, drift)
+        key = ("lines", id(plate))
+        hit = self._optics.get(key)
+        if hit is None or hit[0] is not plate:
+            hit = (plate, line_optics(plate, self.spectrum, None))
+            self._optics[key] = hit
+        return hit[1]
+
     # ------------------------------------------------------------------ kernel calls
     def _call(self, case: Case, inputs, extra, stats: Statistics | None, n: int, keep_out=None):
         optics = self.optics(case.plate)
@@ -573,7 +595,7 @@ class Engine:
         chunk_pass(
             optics,
             np.array(self.spectrum.grid_weight, dtype=float),
-            line_optics(case.plate, self.spectrum, extra["drift"]),
+            self._line_optics(case.plate, extra["drift"]),
             inputs,
             Target(case.plate.signs(), case.goal, self.metric_code, case.w_design),
             stats,
@@ -647,6 +669,21 @@ class Engine:
                 sst[start:stop] = st
             return worst, sst
         return _range_values(self, case, 0, n, active)
+
+    def pass_flags(self, case: Case, start: int, stop: int, active=None) -> np.ndarray:
+        """Whether each of samples [start, stop) meets the goal (``start`` a multiple of
+        :data:`tolerance.sampler.BLOCK`); the same values as :meth:`pass_rate` sees, so a
+        caller may evaluate a prefix and stop once it has decided what it needs."""
+        flags = np.empty(stop - start, dtype=bool)
+        ret_shift = np.zeros(self.grid.size)
+        for a, b in _chunks(stop - start, self.chunk):
+            lo, hi = start + a, start + b
+            inputs, extra = sample_inputs(case, self.study, self.draws, lo, hi, active=active)
+            w, s, _ = self._call(
+                case, inputs, extra, self._stats(None, hi - lo, False, ret_shift), hi - lo
+            )
+            flags[a:b] = self.pass_metric(w, s, case.goal) >= self.study.goal.min
+        return flags
 
     def pass_rate(self, case: Case, n: int | None = None, active=None) -> float:
         """The share of the first ``n`` samples that meet the goal (same draws every call)."""

@@ -1562,16 +1562,23 @@ def yield_vs_width_figure(allocation):
         fig = _figure(3.2 * min(n, 3), 2.6 * math.ceil(n / 3))
         axes = fig.subplots(math.ceil(n / 3), min(n, 3), squeeze=False).ravel()
         for ax, key in zip(axes, keys, strict=False):
+            right = 0.0
             for i, ca in enumerate(allocation.candidates):
                 a = ca.alone.get(key)
                 if a is None or not a.curve:
                     continue
                 w, y = np.array(a.curve).T
-                ax.step(w, y, where="post", color=_colour(i), label=ca.name)
-                ax.plot(w, y, "o", ms=3, color=_colour(i))
+                ax.plot(w, y, "-o", ms=3, lw=1.0, color=_colour(i), label=ca.name)
                 if a.width is not None:
                     ax.axvline(a.width, color=_colour(i), lw=0.8, ls=":")
+                    # the search probes out to the physical bound: show the answer's
+                    # neighbourhood, not the bound (the points beyond stay in the data)
+                    right = max(right, 3.0 * a.width)
+                else:
+                    right = max(right, float(np.max(w)))
             ax.axhline(allocation.target_yield, color="0.4", lw=0.8, ls="--")
+            if right > 0:
+                ax.set_xlim(0.0, right)
             ax.set_xlabel(key)
             ax.set_ylabel("yield")
             ax.set_ylim(-0.02, 1.02)

@@ -812,7 +812,8 @@ def _cell(v) -> str:
 
 def drawing_section(grid, rows=None, figure_png: bytes | None = None) -> str:
     """The drawing and purchase-order table, the margin-based sensitivity and (from
-    ``retol allocate``) the yield-versus-width figure, as one HTML section."""
+    ``retol allocate``) the yield-versus-width figure, as one HTML section.  ``grid`` may be
+    None when ``rows`` are given (an allocation has no results grid, so no margin table)."""
     from .allocation import drawing_rows_for_grid
 
     try:
@@ -833,7 +834,7 @@ def drawing_section(grid, rows=None, figure_png: bytes | None = None) -> str:
         "<code>retol allocate</code> finds the widths that reach a yield target.</p>",
         f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>",
     ]
-    if "margin_gain" in grid:
+    if grid is not None and "margin_gain" in grid:
         mh = "".join(f"<th>{_e(t)}</th>" for t in grid["tolerance_name"].values)
         mb = "".join(
             f"<tr><td>{_e(c)}</td><td>{_e(_fmt(float(grid['margin_p05'].sel(candidate=c)), 4))}"

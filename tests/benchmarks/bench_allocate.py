@@ -65,9 +65,16 @@ def main():
     study = loads(SPEC.replace("{n}", str(args.samples)).replace("{{", "{").replace("}}", "}"))
     allocation.allocate(study, samples=512)  # warm-up: numba compilation
     t0 = time.perf_counter()
+    c0 = time.process_time()
     res = allocation.allocate(study)
     dt = time.perf_counter() - t0
+    cpu = time.process_time() - c0
     ca = res.candidates[0]
+    runs = getattr(ca, "samples_run", 0)
+    print(
+        f"evaluations {getattr(ca, 'evaluations', '?')}, samples run through the kernel {runs} "
+        f"(= {runs / res.samples:.1f} full evaluations); process CPU time {cpu:.1f} s"
+    )
     for k, a in ca.alone.items():
         print(f"alone {k}: {a.width} ({a.reason or ''})")
     print(f"balanced scale {ca.balanced.scale:.4g}, yield {ca.balanced.yield_:.4f}")

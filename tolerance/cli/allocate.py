@@ -12,7 +12,7 @@ from .common import _clean, echo_json, table, user_errors
 from .sweep import cluster_options
 
 #: What an allocation writes into its output folder; nothing else there is touched.
-OUTPUTS = ("allocation.json", "drawing.csv", "yield_vs_width.png")
+OUTPUTS = ("allocation.json", "drawing.csv", "yield_vs_width.png", "allocation.html")
 
 
 def _check_out(out: Path, force: bool) -> Path:
@@ -31,12 +31,13 @@ def _check_out(out: Path, force: bool) -> Path:
 
 
 def write_outputs(result, study, doc: dict, rows: list[dict], out: Path) -> None:
-    """Write allocation.json, drawing.csv and the figure into a temporary folder, then move them
-    into ``out`` (each an atomic replace)."""
+    """Write allocation.json, drawing.csv, the figure and allocation.html into a temporary
+    folder, then move them into ``out`` (each an atomic replace)."""
     import json
     import os
 
     from ..allocation import write_drawing_csv
+    from ..allocation_report import allocation_html
     from ..plots import yield_vs_width_figure
 
     parent = out.resolve().parent
@@ -48,6 +49,9 @@ def write_outputs(result, study, doc: dict, rows: list[dict], out: Path) -> None
         write_drawing_csv(rows, tmp / "drawing.csv")
         fig = yield_vs_width_figure(result)
         fig.savefig(tmp / "yield_vs_width.png", dpi=120)
+        png = (tmp / "yield_vs_width.png").read_bytes()
+        page = allocation_html(doc, rows, png, study.title or "Tolerance allocation")
+        (tmp / "allocation.html").write_text(page, encoding="utf-8")
         out.mkdir(parents=True, exist_ok=True)
         for name in OUTPUTS:
             os.replace(tmp / name, out / name)
@@ -113,7 +117,7 @@ def _print(doc: dict, rows: list[dict]) -> None:
 @click.option(
     "--out",
     type=click.Path(path_type=Path),
-    help="Write allocation.json, drawing.csv and yield_vs_width.png into this folder.",
+    help="Write allocation.json, drawing.csv, yield_vs_width.png and allocation.html here.",
 )
 @click.option("--force", is_flag=True, help="Replace those files if the folder holds them.")
 @cluster_options
@@ -174,4 +178,7 @@ def allocate(
     else:
         _print(doc, rows)
         if out is not None:
-            click.echo(f"\nwrote {out / 'allocation.json'}, drawing.csv and yield_vs_width.png")
+            click.echo(
+                f"\nwrote {out / 'allocation.json'}, drawing.csv, yield_vs_width.png and "
+                "allocation.html"
+            )
