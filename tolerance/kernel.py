@@ -36,6 +36,11 @@ METRICS = CODES  # metric name -> kernel code, from the metric registry
 METRIC_AXIAL_RATIO = CODES["axial_ratio"]
 METRIC_FIDELITY = CODES["fidelity"]
 METRIC_EXTINCTION = CODES["extinction_db"]
+METRIC_SPHERE = CODES["sphere_angle_deg"]
+METRIC_AZIMUTH_ERROR = CODES["azimuth_error_deg"]
+METRIC_ELLIPTICITY_ERROR = CODES["ellipticity_error_deg"]
+#: s1² + s2² at or below which a state (or goal) counts as circular: no major axis
+CIRCULAR_RHO2 = 1e-18  # (polarization.CIRCULAR_TOLERANCE)²
 
 EXTINCTION_FLOOR = 1e-15  # 150 dB cap, as polarization.EXTINCTION_CAP_DB
 
@@ -259,7 +264,15 @@ def _atan2(y, x):
 
 @nb.njit(inline="always", **_OPTS)
 def _metric(s1, s2, s3, p, g1, g2, g3, kind):
-    """Goal metric of a normalised Stokes vector of polarized length p (1 for monochromatic)."""
+    """Goal metric of a normalised Stokes vector of polarized length p (1 for monochromatic).
+
+    The angle metrics (sphere angle, azimuth and ellipticity errors [deg]) follow
+    :func:`tolerance.polarization.sphere_angle_deg`, :func:`~tolerance.polarization.
+    azimuth_error_deg` and :func:`~tolerance.polarization.ellipticity_error_deg` (absolute
+    values), for the direction of the polarized part; smaller is better for them.
+    """
+    if kind >= METRIC_SPHERE:
+        return _angle_metric(s1, s2, s3, g1, g2, g3, kind)
     if kind == METRIC_AXIAL_RATIO:
         q = s3 / p if p > 0.0 else 0.0
         if q > 1.0:
@@ -274,6 +287,46 @@ def _metric(s1, s2, s3, p, g1, g2, g3, kind):
     a = max(f, EXTINCTION_FLOOR)
     b = max(1.0 - f, EXTINCTION_FLOOR)
     return 10.0 * math.log10(a / b)
+
+
+@nb.njit(inline="always", **_OPTS)
+def _is_max(kind):
+    """True for a metric whose worst value over the band is its largest (smaller is better)."""
+    return kind == METRIC_SPHERE or kind == METRIC_AZIMUTH_ERROR or kind == METRIC_ELLIPTICITY_ERROR
+
+
+@nb.njit(inline="always", **_OPTS)
+def _angle_metric(s1, s2, s3, g1, g2, g3, kind):
+    """Sphere angle, |azimuth error| or |ellipticity error| [deg] of a Stokes vector to a goal.
+
+    Notes
+    -----
+    Sphere angle Θ = atan2(|s × g|, s·g) with s the polarized part's direction (unpolarized: 90°).
+    Azimuth error ½·atan2(s₂g₁ − s₁g₂, s₁g₁ + s₂g₂), the halved angle between the two
+    projections on the equator, in [0, 90] after |·|; a circular goal asks for no azimuth (0),
+    a circular state under a goal with an axis offers none (90).  Ellipticity error
+    |χ − χ_g| with χ = ½·atan2(s₃, (s₁² + s₂²)^½).  Azzam and Bashara, *Ellipsometry and
+    Polarized Light* (1977), sec. 1.3 and 2.6.
+    """
+    if kind == METRIC_SPHERE:
+        n = math.sqrt(s1 * s1 + s2 * s2 + s3 * s3)
+        if n == 0.0:
+            return 90.0
+        c1 = s2 * g3 - s3 * g2
+        c2 = s3 * g1 - s1 * g3
+        c3 = s1 * g2 - s2 * g1
+        cr = math.sqrt(c1 * c1 + c2 * c2 + c3 * c3) / n
+        return math.degrees(_atan2(cr, (s1 * g1 + s2 * g2 + s3 * g3) / n))
+    if kind == METRIC_AZIMUTH_ERROR:
+        if g1 * g1 + g2 * g2 <= CIRCULAR_RHO2:
+            return 0.0
+        r2 = s1 * s1 + s2 * s2
+        if r2 <= CIRCULAR_RHO2 * (r2 + s3 * s3) or r2 == 0.0:
+            return 90.0
+        return abs(0.5 * math.degrees(_atan2(s2 * g1 - s1 * g2, s1 * g1 + s2 * g2)))
+    chi = 0.5 * math.degrees(_atan2(s3, math.sqrt(s1 * s1 + s2 * s2)))
+    chi_g = 0.5 * math.degrees(_atan2(g3, math.sqrt(g1 * g1 + g2 * g2)))
+    return abs(chi - chi_g)
 
 
 @nb.njit(inline="always", **_OPTS)
@@ -452,9 +505,12 @@ def _metric_row(work, g1, g2, g3, kind):
     elif kind == METRIC_FIDELITY:
         for w in range(W):
             m[w] = _metric(st1[w], st2[w], st3[w], 1.0, g1, g2, g3, METRIC_FIDELITY)
-    else:
+    elif kind == METRIC_AXIAL_RATIO:
         for w in range(W):
             m[w] = _metric(st1[w], st2[w], st3[w], 1.0, g1, g2, g3, METRIC_AXIAL_RATIO)
+    else:
+        for w in range(W):
+            m[w] = _angle_metric(st1[w], st2[w], st3[w], g1, g2, g3, kind)
 
 
 @nb.njit(inline="always", **_OPTS)
@@ -529,9 +585,11 @@ def stokes_one(optics, sample, proj, out):
 
 
 @nb.njit(inline="always", **_OPTS)
-def _band_summary(m, st1, st2, st3, grid_weight):
-    """Worst metric over the band and the source-weighted Stokes sums of one sample."""
+def _band_summary(m, st1, st2, st3, grid_weight, worst_is_max):
+    """Worst metric over the band (its least, or its largest when ``worst_is_max``) and the
+    source-weighted Stokes sums of one sample."""
     wmin = np.inf
+    wmax = -np.inf
     a1 = 0.0
     a2 = 0.0
     a3 = 0.0
@@ -539,12 +597,14 @@ def _band_summary(m, st1, st2, st3, grid_weight):
         mw = m[w]
         if mw < wmin:
             wmin = mw
+        if mw > wmax:
+            wmax = mw
         gw = grid_weight[w]
         if gw != 0.0:
             a1 += gw * st1[w]
             a2 += gw * st2[w]
             a3 += gw * st3[w]
-    return wmin, a1, a2, a3
+    return (wmax if worst_is_max else wmin), a1, a2, a3
 
 
 @nb.njit(inline="always", **_OPTS)
@@ -655,6 +715,7 @@ def chunk_pass(optics, grid_weight, lines, samples, target, stats, outs):
     g1 = goal[0]
     g2 = goal[1]
     g3 = goal[2]
+    worst_is_max = _is_max(metric_kind)
     no2T = np.ascontiguousarray(no2.T)
     ne2T = np.ascontiguousarray(ne2.T)
     ratT = np.ascontiguousarray(rat.T)
@@ -699,7 +760,7 @@ def chunk_pass(optics, grid_weight, lines, samples, target, stats, outs):
                     work,
                 )
                 _metric_row(work, g1, g2, g3, metric_kind)
-                wmin, a1, a2, a3 = _band_summary(m, st1, st2, st3, grid_weight)
+                wmin, a1, a2, a3 = _band_summary(m, st1, st2, st3, grid_weight, worst_is_max)
                 if w_design >= 0 and w_design < W:
                     design_stokes[s, 0] = st1[w_design]
                     design_stokes[s, 1] = st2[w_design]
@@ -761,6 +822,13 @@ def spectral_metric(spec_stokes: np.ndarray, goal: np.ndarray, metric: str):
         q = np.clip(q, -1.0, 1.0)
         ar = np.abs(q) / (1.0 + np.sqrt(np.maximum(0.0, 1.0 - q * q)))
         return np.where(q * goal[2] >= 0.0, ar, -ar)
+    if metric in ("sphere_angle_deg", "azimuth_error_deg", "ellipticity_error_deg"):
+        from . import polarization as pol
+
+        if metric == "sphere_angle_deg":
+            return pol.sphere_angle_deg(s, goal)
+        fn = pol.azimuth_error_deg if metric == "azimuth_error_deg" else pol.ellipticity_error_deg
+        return np.abs(fn(s, goal))
     f = 0.5 * (1.0 + s @ np.asarray(goal, dtype=float))
     if metric == "fidelity":
         return f

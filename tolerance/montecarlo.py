@@ -525,8 +525,9 @@ class Engine:
                 hand = self._nominal_handedness(plate)
             gvec = goal_vector("circular", handedness=hand)
         else:
-            hand = 1
-            gvec = goal_vector("linear", goal.azimuth_deg)
+            gvec = goal.vector()
+            # the goal's sense of rotation (+1 for a linear goal, which has none)
+            hand = -1 if gvec[2] < 0 else 1
         return Case(cand, plate, ReadOnlyMapping(tol), gvec, hand, w_design)
 
     def _nominal_handedness(self, plate: Plate) -> int:
@@ -658,7 +659,7 @@ class Engine:
             return passes / n
         worst, sst = self.pass_values(case, n, active)
         pm = self.pass_metric(worst, sst, case.goal)
-        return float(np.mean(pm >= self.study.goal.min))
+        return float(np.mean(self.study.goal.passes(pm)))
 
     # ------------------------------------------------------------------ one candidate
     def evaluate(self, case: Case, keep_samples: bool = False, progress=None) -> CandidateResult:
@@ -748,18 +749,20 @@ class Engine:
 
     def _sensitivity(self, case: Case, nom: Nominal, acc: Accumulator, progress):
         """Yield with each tolerance alone, and with all but it, on the same draws."""
-        goal_min = self.study.goal.min
+        goal = self.study.goal
         n_sens = self.sensitivity_samples()
         active = case.active
         names = tolerance_names(self.cases)
         pm_full = self.pass_metric(acc.worst[:n_sens], acc.spec_stokes[:n_sens], case.goal)
-        full = float(np.mean(pm_full >= goal_min))
+        full = float(np.mean(goal.passes(pm_full)))
         pm_nom = self.pass_metric(np.array([nom.worst]), nom.spec_stokes[None, :], case.goal)
-        nominal_pass = float(pm_nom[0] >= goal_min)
+        nominal_pass = float(goal.passes(pm_nom[0]))
         alone, without = {}, {}
         # margin: the 5th percentile of the pass metric, and how much removing each tolerance
-        # raises it (says something even when every yield is 0 or 1)
-        p05_full = float(np.quantile(pm_full, 0.05))
+        # raises it (says something even when every yield is 0 or 1); for a goal with a max
+        # (smaller is better) the 95th percentile, and how much removing a tolerance lowers it
+        q_tail, sgn = (0.95, -1.0) if goal.sense == "max" else (0.05, 1.0)
+        p05_full = float(np.quantile(pm_full, q_tail))
         margin: dict = {}
         for name in names:
             for mode in ("alone", "without"):
@@ -776,12 +779,12 @@ class Engine:
                 elif not [k for k in subset if k in active]:
                     y = nominal_pass
                     if mode == "without":
-                        margin[name] = float(pm_nom[0]) - p05_full
+                        margin[name] = sgn * (float(pm_nom[0]) - p05_full)
                 else:
                     pm = self.pass_metric(*self.pass_values(case, n_sens, subset), case.goal)
-                    y = float(np.mean(pm >= goal_min))
+                    y = float(np.mean(goal.passes(pm)))
                     if mode == "without":
-                        margin[name] = float(np.quantile(pm, 0.05)) - p05_full
+                        margin[name] = sgn * (float(np.quantile(pm, q_tail)) - p05_full)
                 (alone if mode == "alone" else without)[name] = y
                 if progress:
                     progress(n_sens)
@@ -837,7 +840,7 @@ def _pass_task(sample_range, eng: Engine, case: Case, active) -> int:
         worst[a:b] = w
         sst[a:b] = st
     pm = eng.pass_metric(worst, sst, case.goal)
-    return int(np.sum(pm >= eng.study.goal.min))
+    return int(np.sum(eng.study.goal.passes(pm)))
 
 
 def tolerance_names(cases) -> tuple[str, ...]:
@@ -870,8 +873,8 @@ def _finish(
     var = np.maximum(acc.sums[:, 1] / n - mean_d**2, 0.0) * (n / max(n - 1, 1))
     spec_metric = spectral_metric(acc.spec_stokes, case.goal, goal.metric)
     pass_metric = acc.worst if goal.over == "band" else spec_metric
-    k = int(np.sum(pass_metric >= goal.min))
-    ylo, yhi = yield_interval(pass_metric >= goal.min, eng.replicates, conf)
+    k = int(np.sum(goal.passes(pass_metric)))
+    ylo, yhi = yield_interval(goal.passes(pass_metric), eng.replicates, conf)
     # the yield the decision ranks on counts unpolarized light: for an axial-ratio goal over the
     # spectrum (which looks at the polarized part only) it is the share of samples whose
     # spectral fidelity reaches that of a pure state with b/a = min

@@ -61,8 +61,12 @@ GOAL_KEYS = (
     "handedness",
     "acceptance_limit_waves",
     "yield",
+    "max",
+    "axial_ratio",
+    "ellipticity_deg",
+    "stokes",
 )
-GOAL_STATES = ("circular", "linear")
+GOAL_STATES = ("circular", "linear", "elliptical", "stokes")
 GOAL_OVER = ("band", "spectrum")
 CANDIDATE_KEYS = (
     "name",
@@ -470,28 +474,37 @@ def _goal(ctx: _Ctx, raw: dict) -> Goal:
     g = ctx.table(raw, "goal", required=True)
     ctx.check_keys(g, GOAL_KEYS, "[goal].")
     state = ctx.name(g, "state", "[goal].", GOAL_STATES, default="circular")
-    metric = ctx.name(
-        g,
-        "metric",
-        "[goal].",
-        list(metrics),
-        default="axial_ratio" if state == "circular" else "extinction_db",
+    default_metric = {"circular": "axial_ratio", "linear": "extinction_db"}.get(
+        state, "sphere_angle_deg"
     )
+    metric = ctx.name(g, "metric", "[goal].", list(metrics), default=default_metric)
     entry = metrics[metric]
     if state not in entry.extra["states"]:
         raise ctx.err(
             "[goal].metric",
             f"{metric} needs a {' or '.join(entry.extra['states'])} goal",
-            "use extinction_db or fidelity for a linear goal",
+            f"use {', '.join(k for k, e in metrics.items() if state in e.extra['states'])} "
+            f"for a {state} goal",
         )
     over = ctx.name(g, "over", "[goal].", GOAL_OVER, default="band")
-    gmin = ctx.number(g, "min", "[goal].", required=True)
-    lo, hi = entry.extra["range"]
-    if not lo <= gmin <= hi:
+    sense = entry.extra["sense"]
+    if "min" in g and "max" in g:
+        raise ctx.err("[goal]", "gives both min and max", f"{metric} takes only {sense}")
+    other = "max" if sense == "min" else "min"
+    if other in g:
+        better = "larger" if sense == "min" else "smaller"
         raise ctx.err(
-            "[goal].min",
-            f"{metric} lies between {lo:g} and {hi:g}, so min = {gmin:g} cannot be the goal",
-            "e.g. min = 0.95",
+            f"[goal].{other}",
+            f"{metric} is better when {better}, so its goal is a {sense}, not a {other}",
+            f"write {sense} = ... instead",
+        )
+    limit = ctx.number(g, sense, "[goal].", required=True)
+    lo, hi = entry.extra["range"]
+    if not lo <= limit <= hi:
+        raise ctx.err(
+            f"[goal].{sense}",
+            f"{metric} lies between {lo:g} and {hi:g}, so {sense} = {limit:g} cannot be the goal",
+            "e.g. min = 0.95" if sense == "min" else "e.g. max = 5",
         )
     hand = g.get("handedness")
     if hand is not None and hand not in ("right", "left"):
@@ -507,10 +520,11 @@ def _goal(ctx: _Ctx, raw: dict) -> Goal:
             f"the required fraction of passing builds must lie in (0, 1], got {required!r}",
             "give a fraction, e.g. yield = 0.95 for 95 %",
         )
-    return Goal(
+    shape = _goal_shape(ctx, g, state)
+    goal = Goal(
         state=state,
         metric=metric,
-        min=float(gmin),
+        min=float(limit) if sense == "min" else math.nan,
         over=over,
         azimuth_deg=float(ctx.number(g, "azimuth_deg", "[goal].", default=0.0)),
         handedness=hand,
@@ -520,7 +534,55 @@ def _goal(ctx: _Ctx, raw: dict) -> Goal:
             )
         ),
         required_yield=None if required is None else float(required),
+        max=float(limit) if sense == "max" else None,
+        **shape,
     )
+    try:
+        goal.vector()  # the physics checks the ellipse (axial ratio, handedness, Stokes length)
+    except RetolError as e:
+        raise ctx.err(f"[goal].{e.field}", e.problem, e.fix) from None
+    return goal
+
+
+def _goal_shape(ctx: _Ctx, g: dict, state: str) -> dict:
+    """The keys that shape an elliptical or Stokes goal, each allowed only with its state."""
+    out: dict = {}
+    for key in ("axial_ratio", "ellipticity_deg"):
+        if key in g:
+            if state != "elliptical":
+                raise ctx.err(
+                    f"[goal].{key}",
+                    f"applies to an elliptical goal, not {state}",
+                    'set state = "elliptical" or drop it',
+                )
+            out[key] = float(ctx.number(g, key, "[goal]."))
+    if state == "elliptical" and not out:
+        raise ctx.err(
+            "[goal].axial_ratio",
+            "missing for an elliptical goal",
+            "add axial_ratio = b/a in [0, 1] or ellipticity_deg in [-45, 45]",
+        )
+    if "stokes" in g or state == "stokes":
+        v = g.get("stokes")
+        if state != "stokes":
+            raise ctx.err(
+                "[goal].stokes",
+                f"applies to a stokes goal, not {state}",
+                'set state = "stokes" or drop it',
+            )
+        if (
+            not isinstance(v, list)
+            or len(v) != 3
+            or any(isinstance(x, bool) or not isinstance(x, int | float) for x in v)
+            or not all(math.isfinite(x) for x in v)
+        ):
+            raise ctx.err(
+                "[goal].stokes",
+                f"must be three finite numbers, got {v!r}",
+                "e.g. stokes = [0.6, 0.0, 0.8]",
+            )
+        out["stokes"] = tuple(float(x) for x in v)
+    return out
 
 
 def _environment(ctx: _Ctx, raw: dict) -> Environment:

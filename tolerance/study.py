@@ -83,6 +83,33 @@ class Goal:
     acceptance_limit_waves: float = 0.01
     #: Required yield (``[goal] yield``, a fraction), or None: then any yield above zero. [1]
     required_yield: float | None = None
+    #: The largest allowed value of a metric where smaller is better (then ``min`` is NaN).
+    max: float | None = None
+    #: An elliptical goal's b/a [1] or ellipticity angle [deg] (one of the two), or None.
+    axial_ratio: float | None = None
+    ellipticity_deg: float | None = None
+    #: A "stokes" goal's (s1, s2, s3), or None.
+    stokes: tuple[float, float, float] | None = None
+
+    @property
+    def sense(self) -> str:
+        """ "min" when the goal gives a least value (larger is better), "max" for a largest."""
+        return "max" if self.max is not None else "min"
+
+    @property
+    def limit(self) -> float:
+        """The goal's ``min`` or ``max``, whichever it gives."""
+        return float(self.max) if self.max is not None else float(self.min)
+
+    def passes(self, values) -> np.ndarray:
+        """Whether each metric value meets the goal: >= min, or <= max. [bool array]"""
+        v = np.asarray(values)
+        return v <= self.max if self.max is not None else v >= self.min
+
+    def margin(self, values) -> np.ndarray:
+        """How far each value is inside the goal (negative: outside), in the metric's unit."""
+        v = np.asarray(values)
+        return self.max - v if self.max is not None else v - self.min
 
     def to_dict(self) -> dict:
         d = {
@@ -94,9 +121,41 @@ class Goal:
             "handedness": self.handedness,
             "acceptance_limit_waves": self.acceptance_limit_waves,
         }
+        if self.max is not None:  # a goal gives min or max, never both
+            del d["min"]
+            d["max"] = self.max
         if self.required_yield is not None:  # only when set, so older studies' JSON is unchanged
             d["yield"] = self.required_yield
+        for k in ("axial_ratio", "ellipticity_deg"):
+            if getattr(self, k) is not None:
+                d[k] = getattr(self, k)
+        if self.stokes is not None:
+            d["stokes"] = list(self.stokes)
         return d
+
+    def vector(self, nominal_handedness: int = 1) -> np.ndarray:
+        """The goal's normalised Stokes 3-vector (s1, s2, s3).
+
+        ``nominal_handedness`` (+1/−1) stands in for a circular goal that names no handedness.
+        """
+        from .polarization import goal_vector
+
+        if self.state == "circular":
+            hand = nominal_handedness
+            if self.handedness is not None:
+                hand = 1 if self.handedness == "right" else -1
+            return goal_vector("circular", handedness=hand)
+        if self.state == "linear":
+            return goal_vector("linear", self.azimuth_deg)
+        if self.state == "stokes":
+            return goal_vector("stokes", stokes=self.stokes)
+        return goal_vector(
+            "elliptical",
+            self.azimuth_deg,
+            self.handedness,
+            axial_ratio=self.axial_ratio,
+            ellipticity_deg=self.ellipticity_deg,
+        )
 
 
 @dataclass(frozen=True)

@@ -163,7 +163,7 @@ def design(spec_file, candidate, objective, free, samples, seed, out, force, as_
     if not d.met:
         click.echo(
             "retol: warning: the best design found does not meet the goal "
-            f"({spec.goal.metric} >= {spec.goal.min:g}"
+            f"({spec.goal.metric} {'<=' if spec.goal.sense == 'max' else '>='} {spec.goal.limit:g}"
             + (", yield 0" if d.yield_ == 0 else "")
             + "); it is reported above",
             err=True,

@@ -172,7 +172,11 @@ def json_summary(ds, rows, folder) -> dict:
         },
         "goal": {
             "state": str(ds.attrs.get("goal_state", "")),
-            "min": float(ds.attrs["goal_min"]),
+            **(
+                {"max": float(ds.attrs["goal_max"])}
+                if "goal_max" in ds.attrs
+                else {"min": float(ds.attrs["goal_min"])}
+            ),
             "over": str(ds.attrs.get("goal_over", "")),
             "yield": float(ds.attrs["goal_yield"]) if "goal_yield" in ds.attrs else None,
             "rule": str(ds.attrs.get("goal_rule", "")),
@@ -207,9 +211,12 @@ def print_summary(ds, rows, wide: bool = False):
     metric = ds.attrs.get("goal_metric", "")
     shown = f" {unit}" if unit not in ("", "1") else ""
     conf = float(ds.attrs.get("confidence", ds["yield"].attrs.get("confidence", 0.95)))
+    rel, lim = (
+        (">=", ds.attrs.get("goal_min")) if "goal_min" in ds.attrs else ("<=", ds.attrs["goal_max"])
+    )
     click.echo(
-        f"{ds.attrs.get('title', '')}: goal {ds.attrs['goal_state']} with {metric} >= "
-        f"{ds.attrs['goal_min']:g}{shown} over the "
+        f"{ds.attrs.get('title', '')}: goal {ds.attrs['goal_state']} with {metric} {rel} "
+        f"{lim:g}{shown} over the "
         f"{ds.attrs['goal_over']}; source {ds.attrs.get('source_description', '')}; "
         f"{ds.attrs['samples']} samples, seed {ds.attrs['seed']}"
     )
