@@ -69,7 +69,9 @@ class LineOptics(NamedTuple):
 class SampleInputs(NamedTuple):
     """Per sample (S) and layer (L): thickness [µm], temperature factor, cos/sin of twice the
     fast-axis angle, sin² of the angle of incidence (S,), cos²/sin² of the plane of incidence
-    against the optic axis, and cos/sin of the input azimuth (S,)."""
+    against the optic axis, and the input: its Jones vector (ca + i·cai, sa + i·sai) of unit
+    length (S,) (a linear state at α: cos α, sin α and zero imaginary parts) and the degree of
+    polarization ``dop`` (S,) that scales the output Stokes vector (1 for a pure state)."""
 
     thick: np.ndarray
     tfac: np.ndarray
@@ -80,6 +82,9 @@ class SampleInputs(NamedTuple):
     sphi2: np.ndarray
     ca: np.ndarray
     sa: np.ndarray
+    cai: np.ndarray
+    sai: np.ndarray
+    dop: np.ndarray
 
 
 class Target(NamedTuple):
@@ -351,14 +356,33 @@ def _azimuth(st1, st2):
 
 @nb.njit(inline="always", **_OPTS)
 def _propagate(
-    k0, no2, ne2, rat, dn, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, n_layers
+    k0,
+    no2,
+    ne2,
+    rat,
+    dn,
+    thick,
+    tfac,
+    c2,
+    s2,
+    sin2i,
+    cphi2,
+    sphi2,
+    ca,
+    sa,
+    proj,
+    n_layers,
+    cai=0.0,
+    sai=0.0,
+    dop=1.0,
 ):
-    """Jones vector of linear input (ca, sa) after the layers, one wavelength; returns Stokes
-    and retardance with the arithmetic of :func:`_spectrum` (used for discrete source lines)."""
+    """Jones vector of the input (ca + i·cai, sa + i·sai) after the layers, one wavelength;
+    returns Stokes (times ``dop``) and retardance with the arithmetic of :func:`_spectrum`
+    (used for discrete source lines)."""
     xr = ca
-    xi = 0.0
+    xi = cai
     yr = sa
-    yi = 0.0
+    yi = sai
     ret = 0.0
     for l in range(n_layers):
         if sin2i == 0.0:
@@ -384,9 +408,9 @@ def _propagate(
         xi = nxi
         yr = nyr
         yi = nyi
-    st1 = xr * xr + xi * xi - yr * yr - yi * yi
-    st2 = 2.0 * (xr * yr + xi * yi)
-    st3 = 2.0 * (xi * yr - xr * yi)
+    st1 = (xr * xr + xi * xi - yr * yr - yi * yi) * dop
+    st2 = (2.0 * (xr * yr + xi * yi)) * dop
+    st3 = (2.0 * (xi * yr - xr * yi)) * dop
     return st1, st2, st3, ret
 
 
@@ -399,10 +423,35 @@ N_WORK = 10
 
 @nb.njit(inline="always", **_OPTS)
 def _spectrum(
-    k0, no2T, ne2T, ratT, dnT, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, work
+    k0,
+    no2T,
+    ne2T,
+    ratT,
+    dnT,
+    thick,
+    tfac,
+    c2,
+    s2,
+    sin2i,
+    cphi2,
+    sphi2,
+    ca,
+    sa,
+    proj,
+    work,
+    cai=0.0,
+    sai=0.0,
+    dop=1.0,
 ):
     """One sample's output over the grid: Stokes (s1, s2, s3) into work rows _XR, _XI, _YR and
     the retardance [rad] along the plate's axis into row _RET.
+
+    The input is the Jones vector (ca + i·cai, sa + i·sai) of the polarized part; the output
+    Stokes vector is scaled by the input's degree of polarization ``dop``: an ideal retarder
+    (non-depolarizing, no diattenuation) passes unpolarized light unchanged, so the output is
+    the retarded polarized part plus the same unpolarized part (Goldstein, *Polarized Light*,
+    3rd ed., CRC Press 2011, ch. 5 and 6: a retarder's Mueller matrix has first row and column
+    (1, 0, 0, 0)).  A zero imaginary part and ``dop`` = 1 give exactly the linear-input bits.
 
     ``no2T`` … ``dnT`` are (L, W).  Every loop over wavelength vectorizes; a layer whose
     half-retardance leaves :data:`SINCOS_LIMIT` somewhere takes the scalar path, which makes
@@ -418,9 +467,9 @@ def _spectrum(
     ret = work[_RET]
     for w in range(W):
         xr[w] = ca
-        xi[w] = 0.0
+        xi[w] = cai
         yr[w] = sa
-        yi[w] = 0.0
+        yi[w] = sai
         ret[w] = 0.0
     for l in range(L):
         th = thick[l]
@@ -486,14 +535,14 @@ def _spectrum(
         b = xi[w]
         e = yr[w]
         f = yi[w]
-        xr[w] = a * a + b * b - e * e - f * f
-        xi[w] = 2.0 * (a * e + b * f)
-        yr[w] = 2.0 * (b * e - a * f)
+        xr[w] = (a * a + b * b - e * e - f * f) * dop
+        xi[w] = (2.0 * (a * e + b * f)) * dop
+        yr[w] = (2.0 * (b * e - a * f)) * dop
 
 
 @nb.njit(inline="always", **_OPTS)
-def _metric_row(work, g1, g2, g3, kind):
-    """Goal metric of every wavelength into work row _M."""
+def _metric_row(work, g1, g2, g3, kind, dop=1.0):
+    """Goal metric of every wavelength into work row _M (``dop``: the polarized length)."""
     st1 = work[_XR]
     st2 = work[_XI]
     st3 = work[_YR]
@@ -507,15 +556,16 @@ def _metric_row(work, g1, g2, g3, kind):
             m[w] = _metric(st1[w], st2[w], st3[w], 1.0, g1, g2, g3, METRIC_FIDELITY)
     elif kind == METRIC_AXIAL_RATIO:
         for w in range(W):
-            m[w] = _metric(st1[w], st2[w], st3[w], 1.0, g1, g2, g3, METRIC_AXIAL_RATIO)
+            m[w] = _metric(st1[w], st2[w], st3[w], dop, g1, g2, g3, METRIC_AXIAL_RATIO)
     else:
         for w in range(W):
             m[w] = _angle_metric(st1[w], st2[w], st3[w], g1, g2, g3, kind)
 
 
 @nb.njit(inline="always", **_OPTS)
-def _observable_rows(work):
-    """Retardance [waves], axial ratio and azimuth [deg] into work rows _RW, _AR, _AZ."""
+def _observable_rows(work, dop=1.0):
+    """Retardance [waves], axial ratio (of the polarized part, length ``dop``) and azimuth
+    [deg] into work rows _RW, _AR, _AZ."""
     st1 = work[_XR]
     st2 = work[_XI]
     st3 = work[_YR]
@@ -526,7 +576,7 @@ def _observable_rows(work):
     W = rw.shape[0]
     for w in range(W):
         rw[w] = ret[w] / (2.0 * math.pi)
-        ar[w] = _axial_ratio(st3[w])
+        ar[w] = _axial_ratio(st3[w] / dop)
         az[w] = _azimuth(st1[w], st2[w])
 
 
@@ -534,7 +584,7 @@ def _observable_rows(work):
 def _one_sample(optics, sample, proj):
     """The work rows of one sample at every wavelength (the one-sample kernels' common part)."""
     k0, no2, ne2, rat, dn = optics
-    thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa = sample
+    thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, cai, sai, dop = sample
     work = np.empty((N_WORK, k0.shape[0]))
     _spectrum(
         k0,
@@ -553,6 +603,9 @@ def _one_sample(optics, sample, proj):
         sa,
         proj,
         work,
+        cai,
+        sai,
+        dop,
     )
     return work
 
@@ -564,8 +617,9 @@ def per_wavelength_values(optics, sample, proj, goal, metric_kind, out):
     fields of :class:`SampleInputs` for one sample."""
     k0 = optics[0]
     work = _one_sample(optics, sample, proj)
-    _metric_row(work, goal[0], goal[1], goal[2], metric_kind)
-    _observable_rows(work)
+    dop = sample[11]
+    _metric_row(work, goal[0], goal[1], goal[2], metric_kind, dop)
+    _observable_rows(work, dop)
     for w in range(k0.shape[0]):
         out[0, w] = work[_RW, w]
         out[1, w] = work[_AR, w]
@@ -645,7 +699,9 @@ def _keep_sample(work, kept_s):
 
 
 @nb.njit(inline="always", **_OPTS)
-def _lines_average(lines, s, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, L):
+def _lines_average(
+    lines, s, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, L, cai, sai, dop
+):
     """Power-weighted Stokes sums of one sample over the discrete source lines."""
     lk0, lno2, lne2, lrat, ldn, line_weight = lines
     ss = s if lk0.shape[0] > 1 else 0
@@ -670,6 +726,9 @@ def _lines_average(lines, s, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, p
             sa,
             proj,
             L,
+            cai,
+            sai,
+            dop,
         )
         lw = line_weight[k]
         a1 += lw * l1
@@ -703,7 +762,7 @@ def chunk_pass(optics, grid_weight, lines, samples, target, stats, outs):
     depend on T.
     """
     k0, no2, ne2, rat, dn = optics
-    thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa = samples
+    thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, cai, sai, dop = samples
     proj, goal, metric_kind, w_design = target
     do_hist, lo, inv_width, hist, vmin, vmax, block_sums, block_size, ret_shift = stats
     worst, spec_stokes, design_stokes, keep, kept = outs
@@ -758,15 +817,18 @@ def chunk_pass(optics, grid_weight, lines, samples, target, stats, outs):
                     sa[s],
                     proj,
                     work,
+                    cai[s],
+                    sai[s],
+                    dop[s],
                 )
-                _metric_row(work, g1, g2, g3, metric_kind)
+                _metric_row(work, g1, g2, g3, metric_kind, dop[s])
                 wmin, a1, a2, a3 = _band_summary(m, st1, st2, st3, grid_weight, worst_is_max)
                 if w_design >= 0 and w_design < W:
                     design_stokes[s, 0] = st1[w_design]
                     design_stokes[s, 1] = st2[w_design]
                     design_stokes[s, 2] = st3[w_design]
                 if do_hist:
-                    _observable_rows(work)
+                    _observable_rows(work, dop[s])
                     _fold_sample(
                         work,
                         ret_shift,
@@ -796,6 +858,9 @@ def chunk_pass(optics, grid_weight, lines, samples, target, stats, outs):
                     sa[s],
                     proj,
                     L,
+                    cai[s],
+                    sai[s],
+                    dop[s],
                 )
                 a1 += l1
                 a2 += l2

@@ -229,15 +229,25 @@ def sample_inputs(case: Case, study: Study, draws: Draws, start: int, stop: int,
     clock = value("clocking_deg") if "clocking_deg" in tol else np.zeros(n)
     scale = (
         retardance_scale(case, study, value("retardance_waves"))
-        if "retardance_waves" in tol
+        if "retardance_waves" in tol and plate.construction != "train"
         else 1.0
     )
+    owner = plate.details.get("element_of_layer") if plate.construction == "train" else None
+    if owner is not None:
+        clocks, scales = _train_draws(case, study, tol, value, n)
     for j, la in enumerate(plate.layers):
+        if owner is not None:
+            # a train: each element's mount has its own clocking (stream index = element) and
+            # its own retardance scale; crossing acts between the layers of one element only
+            clock, scale = clocks[owner[j]], scales[owner[j]]
+            first = j == 0 or owner[j - 1] != owner[j]
+        else:
+            first = j == 0
         if "thickness_um" in tol:
             thick[:, j] = la.thickness_um * scale + value("thickness_um", j)
         else:
             thick[:, j] = la.thickness_um * scale
-        cross = value("crossing_deg", j) if j > 0 and "crossing_deg" in tol else 0.0
+        cross = value("crossing_deg", j) if not first and "crossing_deg" in tol else 0.0
         axis[:, j] = la.axis_deg + clock + cross
         optic[:, j] = la.optic_axis_deg + clock + cross
         m = la.material
@@ -256,6 +266,8 @@ def sample_inputs(case: Case, study: Study, draws: Draws, start: int, stop: int,
     if "input_azimuth_deg" in tol:
         alpha = alpha + value("input_azimuth_deg")
     alpha = np.radians(np.broadcast_to(alpha, (n,)))
+    ca, sa, cai, sai = study.input.jones(alpha)
+    dop = np.full(n, study.input.degree_of_polarization)
     drift = value("drift") if "drift" in tol else None
     th = np.radians(2.0 * axis)
     c = np.ascontiguousarray
@@ -267,10 +279,30 @@ def sample_inputs(case: Case, study: Study, draws: Draws, start: int, stop: int,
         c(sin2i),
         c(np.cos(phi) ** 2),
         c(np.sin(phi) ** 2),
-        c(np.cos(alpha)),
-        c(np.sin(alpha)),
+        c(ca),
+        c(sa),
+        c(cai),
+        c(sai),
+        c(dop),
     )
     return inputs, {"drift": drift, "temperature": temp, "aoi": aoi}
+
+
+def _train_draws(case: Case, study: Study, tol, value, n: int):
+    """Per element of a train: the mount's clocking [deg] and the retardance scale factor.
+
+    Element e reads stream index e of ``clocking_deg`` and ``retardance_waves`` (independent
+    mounts and plates); its retardance error is read at its own design wavelength.
+    """
+    clocks, scales = [], []
+    for e, el in enumerate(case.plate.details["elements"]):
+        clocks.append(value("clocking_deg", e) if "clocking_deg" in tol else np.zeros(n))
+        if "retardance_waves" in tol:
+            r = nominal_retardance_waves(el, float(el.design_nm))
+            scales.append(1.0 + np.asarray(value("retardance_waves", e)) / r)
+        else:
+            scales.append(1.0)
+    return clocks, scales
 
 
 def nominal_retardance_waves(plate: Plate, at_nm: float) -> float:
@@ -536,7 +568,13 @@ class Engine:
         from .polarization import jones_to_stokes, linear_jones
 
         J = plate_jones(plate, plate.design_nm, extrapolate=True)
-        S = jones_to_stokes(J @ linear_jones(self.study.input.azimuth_deg))
+        inp = self.study.input
+        if inp.ellipticity_deg == 0.0:
+            E = linear_jones(inp.azimuth_deg)
+        else:
+            xr, yr, xi, yi = inp.jones(np.radians(inp.azimuth_deg))
+            E = np.array([xr + 1j * xi, yr + 1j * yi])
+        S = jones_to_stokes(J @ E)
         return 1 if S[3] >= 0 else -1
 
     def optics(self, plate: Plate) -> WavelengthOptics:

@@ -51,7 +51,7 @@ TOP_KEYS = (
 )
 ALLOCATION_KEYS = ("target_yield", "cost")
 WAVELENGTH_KEYS = ("start", "stop", "step")
-INPUT_KEYS = ("azimuth_deg",)
+INPUT_KEYS = ("azimuth_deg", "ellipticity_deg", "dop", "extinction_db")
 GOAL_KEYS = (
     "state",
     "metric",
@@ -77,6 +77,7 @@ CANDIDATE_KEYS = (
     "axis_deg",
     *CONSTRUCTION_KEYS,
     "tolerances",
+    "elements",
 )
 RUN_KEYS = (
     "samples",
@@ -372,6 +373,8 @@ def _candidate(ctx: _Ctx, c, i: int, default_design) -> Candidate:
     if not isinstance(name, str) or not name.strip():
         raise ctx.err(f"{where}name", "must be a non-empty string")
     where = f"[[candidate]] {name!r}."
+    if "elements" in c:
+        return _train(ctx, c, name, where, default_design)
     if "construction" not in c:
         raise ctx.err(f"{where}construction", "missing", f"one of {', '.join(CONSTRUCTIONS)}")
     cons = ctx.name(c, "construction", where, list(CONSTRUCTIONS))
@@ -585,6 +588,28 @@ def _goal_shape(ctx: _Ctx, g: dict, state: str) -> dict:
     return out
 
 
+def _input(ctx: _Ctx, inp: dict) -> InputState:
+    """``[input]``: azimuth, ellipticity and degree of polarization, or a polarizer's extinction."""
+    az = float(ctx.number(inp, "azimuth_deg", "[input].", default=0.0))
+    chi = float(ctx.number(inp, "ellipticity_deg", "[input].", default=0.0))
+    if abs(chi) > 45.0:
+        raise ctx.err(
+            "[input].ellipticity_deg",
+            f"must lie in [-45, 45], got {chi:g}",
+            "give the ellipticity angle, tan|chi| = b/a, positive right-handed",
+        )
+    dop = float(ctx.number(inp, "dop", "[input].", default=1.0, minimum=0.0, maximum=1.0))
+    er = ctx.number(inp, "extinction_db", "[input].", minimum=0.0, strict_min=True)
+    if er is not None and ("dop" in inp or "ellipticity_deg" in inp):
+        raise ctx.err(
+            "[input].extinction_db",
+            "describes the light behind a linear polarizer, so dop and ellipticity_deg "
+            "cannot be given with it",
+            "give either extinction_db or dop/ellipticity_deg",
+        )
+    return InputState(az, chi, dop, None if er is None else float(er))
+
+
 def _environment(ctx: _Ctx, raw: dict) -> Environment:
     env = ctx.table(raw, "environment")
     ctx.check_keys(env, ENV_KEYS, "[environment].")
@@ -696,7 +721,7 @@ def validate(raw: dict, path: str = "<spec>", base_dir=None, source_text=None) -
     source = _source(ctx, raw, grid, base_dir)
     inp = ctx.table(raw, "input")
     ctx.check_keys(inp, INPUT_KEYS, "[input].")
-    input_state = InputState(float(ctx.number(inp, "azimuth_deg", "[input].", default=0.0)))
+    input_state = _input(ctx, inp)
     goal = _goal(ctx, raw)
     environment = _environment(ctx, raw)
 
@@ -809,7 +834,62 @@ def _raw_distribution(d: dict) -> dict:
     return out
 
 
+def _train(ctx: _Ctx, c: dict, name: str, where: str, default_design) -> Candidate:
+    """A train: ``elements = [{plate}, {plate}, ...]``, each a plate in its own mount."""
+    from .study import train_plate
+
+    for k in c:
+        if k not in ("name", "elements", "tolerances", "construction"):
+            raise ctx.err(
+                f"{where}{k}",
+                "belongs inside an element of a train",
+                "move it into its element's table in elements = [...]",
+            )
+    if c.get("construction", "train") != "train":
+        raise ctx.err(f"{where}construction", "must be train (or left out) with elements")
+    els = c["elements"]
+    if not isinstance(els, list) or not els or not all(isinstance(e, dict) for e in els):
+        raise ctx.err(
+            f"{where}elements",
+            f"must be a list of plate tables, got {els!r}",
+            'e.g. elements = [{construction = "zero-order", material = "quartz", waves = 0.5}]',
+        )
+    elements = []
+    for k, e in enumerate(els):
+        if "elements" in e or "tolerances" in e or "name" in e:
+            bad = next(x for x in ("elements", "tolerances", "name") if x in e)
+            raise ctx.err(
+                f"{where}elements[{k}].{bad}",
+                "is not allowed in an element",
+                "elements are plates; tolerances go in the candidate's own table",
+            )
+        elements.append(_candidate(ctx, {**e, "name": f"{name} #{k}"}, k, default_design))
+    tol, at_nm = {}, None
+    if "tolerances" in c:
+        if not isinstance(c["tolerances"], dict):
+            raise ctx.err(f"{where}tolerances", "must be a table")
+        tol, at_nm = _tolerances(ctx, c["tolerances"], f"{where}tolerances")
+    first = elements[0]
+    cand = Candidate(
+        name=name,
+        construction="train",
+        material=None,
+        waves=elements[-1].waves,
+        design_nm=first.design_nm,
+        axis_deg=elements[-1].axis_deg,
+        tolerances=_proxy(tol),
+        retardance_at_nm=at_nm,
+        elements=tuple(elements),
+    )
+    return dataclasses.replace(cand, plate=train_plate(name, cand.elements))
+
+
 def _raw_candidate(c: dict) -> dict:
+    if "elements" in c:
+        out = {"name": c["name"], "elements": [_raw_candidate(e) for e in c["elements"]]}
+        if "tolerances" in c:
+            out["tolerances"] = {k: _raw_distribution(v) for k, v in c["tolerances"].items()}
+        return out
     out = {k: c[k] for k in ("name", "construction", "material", "waves", "axis_deg") if k in c}
     if c.get("design_nm") is not None:
         out["design"] = c["design_nm"]
