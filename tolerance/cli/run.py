@@ -64,7 +64,8 @@ def summary_rows(ds):
                 "yield_high": float(ds["yield_high"].sel(candidate=c)),
                 "nominal_worst": float(ds["nominal_worst"].sel(candidate=c)),
                 "median_worst": float(np.quantile(worst, 0.5)),
-                "p05_worst": float(np.quantile(worst, 0.05)),
+                # the worse tail: 5th percentile, or the 95th for a goal max (smaller is better)
+                "p05_worst": float(np.quantile(worst, _tail(ds))),
                 "nominal_pass": float(
                     ds[
                         "nominal_worst"
@@ -73,7 +74,7 @@ def summary_rows(ds):
                     ].sel(candidate=c)
                 ),
                 "median_pass": float(np.quantile(ds["pass_metric"].sel(candidate=c), 0.5)),
-                "p05_pass": float(np.quantile(ds["pass_metric"].sel(candidate=c), 0.05)),
+                "p05_pass": float(np.quantile(ds["pass_metric"].sel(candidate=c), _tail(ds))),
                 "rank_yield": float(ds["rank_yield"].sel(candidate=c)),
                 "dominant": str(ds["dominant"].sel(candidate=c).values),
                 "margin_p05": float(ds["margin_p05"].sel(candidate=c)),
@@ -187,6 +188,15 @@ def json_summary(ds, rows, folder) -> dict:
     }
 
 
+def _tail(ds) -> float:
+    """The worse-tail quantile: 0.05, or 0.95 for a goal max (smaller is better)."""
+    return 0.95 if "goal_max" in ds.attrs else 0.05
+
+
+def _tail_name(ds) -> str:
+    return "p95" if "goal_max" in ds.attrs else "p05"
+
+
 def _yield_cell(r) -> str:
     from ..decision import pct_interval
 
@@ -237,8 +247,8 @@ def print_summary(ds, rows, wide: bool = False):
             "thicknesses [um]",
             "nominal worst",
             "median worst",
-            "p05 worst",
-            *(["nominal (spectrum)", "p05 (spectrum)"] if spectrum else []),
+            f"{_tail_name(ds)} worst",
+            *(["nominal (spectrum)", f"{_tail_name(ds)} (spectrum)"] if spectrum else []),
             ci,
             "meets",
             "dominant",
@@ -267,7 +277,7 @@ def print_summary(ds, rows, wide: bool = False):
                 ]
             )
     else:
-        which = "p05 (spectrum)" if spectrum else "p05 worst"
+        which = f"{_tail_name(ds)} (spectrum)" if spectrum else f"{_tail_name(ds)} worst"
         head = ["#", "candidate", "construction", which, ci, "meets", "dominant"]
         for r in ordered:
             body.append(
