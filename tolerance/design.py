@@ -705,7 +705,8 @@ class _Yield:
 
         self.eng = Engine(study, samples=samples, seed=seed, client=client)
         self.cand = cand
-        self.goal_min = study.goal.min
+        self.goal = study.goal
+        self.goal_min = study.goal.limit
         self.conf = study.run.confidence
         self.scale = None
         self.has_tolerances = bool(self.eng.case(cand).active)
@@ -713,7 +714,7 @@ class _Yield:
     def margins(self, plate: Plate) -> np.ndarray:
         case = self.eng.case(self.cand, plate=plate)
         worst, sst = self.eng.pass_values(case)
-        return self.eng.pass_metric(worst, sst, case.goal) - self.goal_min
+        return self.goal.margin(self.eng.pass_metric(worst, sst, case.goal))
 
     def rate(self, plate: Plate) -> tuple[float, float, float]:
         m = self.margins(plate)
@@ -742,7 +743,7 @@ class _Yield:
         case = self.eng.case(self.cand, plate=plate)
         nom = self.eng.nominal(case)
         pm = self.eng.pass_metric(np.array([nom.worst]), nom.spec_stokes[None, :], case.goal)
-        return bool(pm[0] >= self.goal_min)
+        return bool(self.goal.passes(pm[0]))
 
 
 def _polish_yield(v: Variant, ev: _Yield, x0, maxfev: int):

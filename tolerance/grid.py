@@ -480,7 +480,12 @@ def _attrs(eng, cases, mu, mlong) -> dict:
         "material_sources": json.dumps(list(mats.values())),
         "goal_state": study.goal.state,
         "goal_metric": study.goal.metric,
-        "goal_min": float(study.goal.min),
+        # a goal gives min (larger is better) or max (smaller is better); goal_sense says which
+        **(
+            {"goal_max": float(study.goal.max), "goal_sense": "max"}
+            if study.goal.sense == "max"
+            else {"goal_min": float(study.goal.min)}
+        ),
         "goal_over": study.goal.over,
         "metric_units": mu,
         "metric_long_name": mlong,

@@ -36,6 +36,11 @@ METRICS = CODES  # metric name -> kernel code, from the metric registry
 METRIC_AXIAL_RATIO = CODES["axial_ratio"]
 METRIC_FIDELITY = CODES["fidelity"]
 METRIC_EXTINCTION = CODES["extinction_db"]
+METRIC_SPHERE = CODES["sphere_angle_deg"]
+METRIC_AZIMUTH_ERROR = CODES["azimuth_error_deg"]
+METRIC_ELLIPTICITY_ERROR = CODES["ellipticity_error_deg"]
+#: s1² + s2² at or below which a state (or goal) counts as circular: no major axis
+CIRCULAR_RHO2 = 1e-18  # (polarization.CIRCULAR_TOLERANCE)²
 
 EXTINCTION_FLOOR = 1e-15  # 150 dB cap, as polarization.EXTINCTION_CAP_DB
 
@@ -64,7 +69,9 @@ class LineOptics(NamedTuple):
 class SampleInputs(NamedTuple):
     """Per sample (S) and layer (L): thickness [µm], temperature factor, cos/sin of twice the
     fast-axis angle, sin² of the angle of incidence (S,), cos²/sin² of the plane of incidence
-    against the optic axis, and cos/sin of the input azimuth (S,)."""
+    against the optic axis, and the input: its Jones vector (ca + i·cai, sa + i·sai) of unit
+    length (S,) (a linear state at α: cos α, sin α and zero imaginary parts) and the degree of
+    polarization ``dop`` (S,) that scales the output Stokes vector (1 for a pure state)."""
 
     thick: np.ndarray
     tfac: np.ndarray
@@ -75,6 +82,9 @@ class SampleInputs(NamedTuple):
     sphi2: np.ndarray
     ca: np.ndarray
     sa: np.ndarray
+    cai: np.ndarray
+    sai: np.ndarray
+    dop: np.ndarray
 
 
 class Target(NamedTuple):
@@ -259,7 +269,15 @@ def _atan2(y, x):
 
 @nb.njit(inline="always", **_OPTS)
 def _metric(s1, s2, s3, p, g1, g2, g3, kind):
-    """Goal metric of a normalised Stokes vector of polarized length p (1 for monochromatic)."""
+    """Goal metric of a normalised Stokes vector of polarized length p (1 for monochromatic).
+
+    The angle metrics (sphere angle, azimuth and ellipticity errors [deg]) follow
+    :func:`tolerance.polarization.sphere_angle_deg`, :func:`~tolerance.polarization.
+    azimuth_error_deg` and :func:`~tolerance.polarization.ellipticity_error_deg` (absolute
+    values), for the direction of the polarized part; smaller is better for them.
+    """
+    if kind >= METRIC_SPHERE:
+        return _angle_metric(s1, s2, s3, g1, g2, g3, kind)
     if kind == METRIC_AXIAL_RATIO:
         q = s3 / p if p > 0.0 else 0.0
         if q > 1.0:
@@ -274,6 +292,46 @@ def _metric(s1, s2, s3, p, g1, g2, g3, kind):
     a = max(f, EXTINCTION_FLOOR)
     b = max(1.0 - f, EXTINCTION_FLOOR)
     return 10.0 * math.log10(a / b)
+
+
+@nb.njit(inline="always", **_OPTS)
+def _is_max(kind):
+    """True for a metric whose worst value over the band is its largest (smaller is better)."""
+    return kind == METRIC_SPHERE or kind == METRIC_AZIMUTH_ERROR or kind == METRIC_ELLIPTICITY_ERROR
+
+
+@nb.njit(inline="always", **_OPTS)
+def _angle_metric(s1, s2, s3, g1, g2, g3, kind):
+    """Sphere angle, |azimuth error| or |ellipticity error| [deg] of a Stokes vector to a goal.
+
+    Notes
+    -----
+    Sphere angle Θ = atan2(|s × g|, s·g) with s the polarized part's direction (unpolarized: 90°).
+    Azimuth error ½·atan2(s₂g₁ − s₁g₂, s₁g₁ + s₂g₂), the halved angle between the two
+    projections on the equator, in [0, 90] after |·|; a circular goal asks for no azimuth (0),
+    a circular state under a goal with an axis offers none (90).  Ellipticity error
+    |χ − χ_g| with χ = ½·atan2(s₃, (s₁² + s₂²)^½).  Azzam and Bashara, *Ellipsometry and
+    Polarized Light* (1977), sec. 1.3 and 2.6.
+    """
+    if kind == METRIC_SPHERE:
+        n = math.sqrt(s1 * s1 + s2 * s2 + s3 * s3)
+        if n == 0.0:
+            return 90.0
+        c1 = s2 * g3 - s3 * g2
+        c2 = s3 * g1 - s1 * g3
+        c3 = s1 * g2 - s2 * g1
+        cr = math.sqrt(c1 * c1 + c2 * c2 + c3 * c3) / n
+        return math.degrees(_atan2(cr, (s1 * g1 + s2 * g2 + s3 * g3) / n))
+    if kind == METRIC_AZIMUTH_ERROR:
+        if g1 * g1 + g2 * g2 <= CIRCULAR_RHO2:
+            return 0.0
+        r2 = s1 * s1 + s2 * s2
+        if r2 <= CIRCULAR_RHO2 * (r2 + s3 * s3) or r2 == 0.0:
+            return 90.0
+        return abs(0.5 * math.degrees(_atan2(s2 * g1 - s1 * g2, s1 * g1 + s2 * g2)))
+    chi = 0.5 * math.degrees(_atan2(s3, math.sqrt(s1 * s1 + s2 * s2)))
+    chi_g = 0.5 * math.degrees(_atan2(g3, math.sqrt(g1 * g1 + g2 * g2)))
+    return abs(chi - chi_g)
 
 
 @nb.njit(inline="always", **_OPTS)
@@ -298,14 +356,33 @@ def _azimuth(st1, st2):
 
 @nb.njit(inline="always", **_OPTS)
 def _propagate(
-    k0, no2, ne2, rat, dn, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, n_layers
+    k0,
+    no2,
+    ne2,
+    rat,
+    dn,
+    thick,
+    tfac,
+    c2,
+    s2,
+    sin2i,
+    cphi2,
+    sphi2,
+    ca,
+    sa,
+    proj,
+    n_layers,
+    cai=0.0,
+    sai=0.0,
+    dop=1.0,
 ):
-    """Jones vector of linear input (ca, sa) after the layers, one wavelength; returns Stokes
-    and retardance with the arithmetic of :func:`_spectrum` (used for discrete source lines)."""
+    """Jones vector of the input (ca + i·cai, sa + i·sai) after the layers, one wavelength;
+    returns Stokes (times ``dop``) and retardance with the arithmetic of :func:`_spectrum`
+    (used for discrete source lines)."""
     xr = ca
-    xi = 0.0
+    xi = cai
     yr = sa
-    yi = 0.0
+    yi = sai
     ret = 0.0
     for l in range(n_layers):
         if sin2i == 0.0:
@@ -331,9 +408,9 @@ def _propagate(
         xi = nxi
         yr = nyr
         yi = nyi
-    st1 = xr * xr + xi * xi - yr * yr - yi * yi
-    st2 = 2.0 * (xr * yr + xi * yi)
-    st3 = 2.0 * (xi * yr - xr * yi)
+    st1 = (xr * xr + xi * xi - yr * yr - yi * yi) * dop
+    st2 = (2.0 * (xr * yr + xi * yi)) * dop
+    st3 = (2.0 * (xi * yr - xr * yi)) * dop
     return st1, st2, st3, ret
 
 
@@ -346,10 +423,35 @@ N_WORK = 10
 
 @nb.njit(inline="always", **_OPTS)
 def _spectrum(
-    k0, no2T, ne2T, ratT, dnT, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, work
+    k0,
+    no2T,
+    ne2T,
+    ratT,
+    dnT,
+    thick,
+    tfac,
+    c2,
+    s2,
+    sin2i,
+    cphi2,
+    sphi2,
+    ca,
+    sa,
+    proj,
+    work,
+    cai=0.0,
+    sai=0.0,
+    dop=1.0,
 ):
     """One sample's output over the grid: Stokes (s1, s2, s3) into work rows _XR, _XI, _YR and
     the retardance [rad] along the plate's axis into row _RET.
+
+    The input is the Jones vector (ca + i·cai, sa + i·sai) of the polarized part; the output
+    Stokes vector is scaled by the input's degree of polarization ``dop``: an ideal retarder
+    (non-depolarizing, no diattenuation) passes unpolarized light unchanged, so the output is
+    the retarded polarized part plus the same unpolarized part (Goldstein, *Polarized Light*,
+    3rd ed., CRC Press 2011, ch. 5 and 6: a retarder's Mueller matrix has first row and column
+    (1, 0, 0, 0)).  A zero imaginary part and ``dop`` = 1 give exactly the linear-input bits.
 
     ``no2T`` … ``dnT`` are (L, W).  Every loop over wavelength vectorizes; a layer whose
     half-retardance leaves :data:`SINCOS_LIMIT` somewhere takes the scalar path, which makes
@@ -365,9 +467,9 @@ def _spectrum(
     ret = work[_RET]
     for w in range(W):
         xr[w] = ca
-        xi[w] = 0.0
+        xi[w] = cai
         yr[w] = sa
-        yi[w] = 0.0
+        yi[w] = sai
         ret[w] = 0.0
     for l in range(L):
         th = thick[l]
@@ -433,14 +535,14 @@ def _spectrum(
         b = xi[w]
         e = yr[w]
         f = yi[w]
-        xr[w] = a * a + b * b - e * e - f * f
-        xi[w] = 2.0 * (a * e + b * f)
-        yr[w] = 2.0 * (b * e - a * f)
+        xr[w] = (a * a + b * b - e * e - f * f) * dop
+        xi[w] = (2.0 * (a * e + b * f)) * dop
+        yr[w] = (2.0 * (b * e - a * f)) * dop
 
 
 @nb.njit(inline="always", **_OPTS)
-def _metric_row(work, g1, g2, g3, kind):
-    """Goal metric of every wavelength into work row _M."""
+def _metric_row(work, g1, g2, g3, kind, dop=1.0):
+    """Goal metric of every wavelength into work row _M (``dop``: the polarized length)."""
     st1 = work[_XR]
     st2 = work[_XI]
     st3 = work[_YR]
@@ -452,14 +554,18 @@ def _metric_row(work, g1, g2, g3, kind):
     elif kind == METRIC_FIDELITY:
         for w in range(W):
             m[w] = _metric(st1[w], st2[w], st3[w], 1.0, g1, g2, g3, METRIC_FIDELITY)
+    elif kind == METRIC_AXIAL_RATIO:
+        for w in range(W):
+            m[w] = _metric(st1[w], st2[w], st3[w], dop, g1, g2, g3, METRIC_AXIAL_RATIO)
     else:
         for w in range(W):
-            m[w] = _metric(st1[w], st2[w], st3[w], 1.0, g1, g2, g3, METRIC_AXIAL_RATIO)
+            m[w] = _angle_metric(st1[w], st2[w], st3[w], g1, g2, g3, kind)
 
 
 @nb.njit(inline="always", **_OPTS)
-def _observable_rows(work):
-    """Retardance [waves], axial ratio and azimuth [deg] into work rows _RW, _AR, _AZ."""
+def _observable_rows(work, dop=1.0):
+    """Retardance [waves], axial ratio (of the polarized part, length ``dop``) and azimuth
+    [deg] into work rows _RW, _AR, _AZ."""
     st1 = work[_XR]
     st2 = work[_XI]
     st3 = work[_YR]
@@ -470,7 +576,7 @@ def _observable_rows(work):
     W = rw.shape[0]
     for w in range(W):
         rw[w] = ret[w] / (2.0 * math.pi)
-        ar[w] = _axial_ratio(st3[w])
+        ar[w] = _axial_ratio(st3[w] / dop)
         az[w] = _azimuth(st1[w], st2[w])
 
 
@@ -478,7 +584,7 @@ def _observable_rows(work):
 def _one_sample(optics, sample, proj):
     """The work rows of one sample at every wavelength (the one-sample kernels' common part)."""
     k0, no2, ne2, rat, dn = optics
-    thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa = sample
+    thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, cai, sai, dop = sample
     work = np.empty((N_WORK, k0.shape[0]))
     _spectrum(
         k0,
@@ -497,6 +603,9 @@ def _one_sample(optics, sample, proj):
         sa,
         proj,
         work,
+        cai,
+        sai,
+        dop,
     )
     return work
 
@@ -508,8 +617,9 @@ def per_wavelength_values(optics, sample, proj, goal, metric_kind, out):
     fields of :class:`SampleInputs` for one sample."""
     k0 = optics[0]
     work = _one_sample(optics, sample, proj)
-    _metric_row(work, goal[0], goal[1], goal[2], metric_kind)
-    _observable_rows(work)
+    dop = sample[11]
+    _metric_row(work, goal[0], goal[1], goal[2], metric_kind, dop)
+    _observable_rows(work, dop)
     for w in range(k0.shape[0]):
         out[0, w] = work[_RW, w]
         out[1, w] = work[_AR, w]
@@ -529,9 +639,11 @@ def stokes_one(optics, sample, proj, out):
 
 
 @nb.njit(inline="always", **_OPTS)
-def _band_summary(m, st1, st2, st3, grid_weight):
-    """Worst metric over the band and the source-weighted Stokes sums of one sample."""
+def _band_summary(m, st1, st2, st3, grid_weight, worst_is_max):
+    """Worst metric over the band (its least, or its largest when ``worst_is_max``) and the
+    source-weighted Stokes sums of one sample."""
     wmin = np.inf
+    wmax = -np.inf
     a1 = 0.0
     a2 = 0.0
     a3 = 0.0
@@ -539,12 +651,14 @@ def _band_summary(m, st1, st2, st3, grid_weight):
         mw = m[w]
         if mw < wmin:
             wmin = mw
+        if mw > wmax:
+            wmax = mw
         gw = grid_weight[w]
         if gw != 0.0:
             a1 += gw * st1[w]
             a2 += gw * st2[w]
             a3 += gw * st3[w]
-    return wmin, a1, a2, a3
+    return (wmax if worst_is_max else wmin), a1, a2, a3
 
 
 @nb.njit(inline="always", **_OPTS)
@@ -585,7 +699,9 @@ def _keep_sample(work, kept_s):
 
 
 @nb.njit(inline="always", **_OPTS)
-def _lines_average(lines, s, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, L):
+def _lines_average(
+    lines, s, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, L, cai, sai, dop
+):
     """Power-weighted Stokes sums of one sample over the discrete source lines."""
     lk0, lno2, lne2, lrat, ldn, line_weight = lines
     ss = s if lk0.shape[0] > 1 else 0
@@ -610,6 +726,9 @@ def _lines_average(lines, s, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, p
             sa,
             proj,
             L,
+            cai,
+            sai,
+            dop,
         )
         lw = line_weight[k]
         a1 += lw * l1
@@ -643,7 +762,7 @@ def chunk_pass(optics, grid_weight, lines, samples, target, stats, outs):
     depend on T.
     """
     k0, no2, ne2, rat, dn = optics
-    thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa = samples
+    thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, cai, sai, dop = samples
     proj, goal, metric_kind, w_design = target
     do_hist, lo, inv_width, hist, vmin, vmax, block_sums, block_size, ret_shift = stats
     worst, spec_stokes, design_stokes, keep, kept = outs
@@ -655,6 +774,7 @@ def chunk_pass(optics, grid_weight, lines, samples, target, stats, outs):
     g1 = goal[0]
     g2 = goal[1]
     g3 = goal[2]
+    worst_is_max = _is_max(metric_kind)
     no2T = np.ascontiguousarray(no2.T)
     ne2T = np.ascontiguousarray(ne2.T)
     ratT = np.ascontiguousarray(rat.T)
@@ -697,15 +817,18 @@ def chunk_pass(optics, grid_weight, lines, samples, target, stats, outs):
                     sa[s],
                     proj,
                     work,
+                    cai[s],
+                    sai[s],
+                    dop[s],
                 )
-                _metric_row(work, g1, g2, g3, metric_kind)
-                wmin, a1, a2, a3 = _band_summary(m, st1, st2, st3, grid_weight)
+                _metric_row(work, g1, g2, g3, metric_kind, dop[s])
+                wmin, a1, a2, a3 = _band_summary(m, st1, st2, st3, grid_weight, worst_is_max)
                 if w_design >= 0 and w_design < W:
                     design_stokes[s, 0] = st1[w_design]
                     design_stokes[s, 1] = st2[w_design]
                     design_stokes[s, 2] = st3[w_design]
                 if do_hist:
-                    _observable_rows(work)
+                    _observable_rows(work, dop[s])
                     _fold_sample(
                         work,
                         ret_shift,
@@ -735,6 +858,9 @@ def chunk_pass(optics, grid_weight, lines, samples, target, stats, outs):
                     sa[s],
                     proj,
                     L,
+                    cai[s],
+                    sai[s],
+                    dop[s],
                 )
                 a1 += l1
                 a2 += l2
@@ -761,6 +887,13 @@ def spectral_metric(spec_stokes: np.ndarray, goal: np.ndarray, metric: str):
         q = np.clip(q, -1.0, 1.0)
         ar = np.abs(q) / (1.0 + np.sqrt(np.maximum(0.0, 1.0 - q * q)))
         return np.where(q * goal[2] >= 0.0, ar, -ar)
+    if metric in ("sphere_angle_deg", "azimuth_error_deg", "ellipticity_error_deg"):
+        from . import polarization as pol
+
+        if metric == "sphere_angle_deg":
+            return pol.sphere_angle_deg(s, goal)
+        fn = pol.azimuth_error_deg if metric == "azimuth_error_deg" else pol.ellipticity_error_deg
+        return np.abs(fn(s, goal))
     f = 0.5 * (1.0 + s @ np.asarray(goal, dtype=float))
     if metric == "fidelity":
         return f

@@ -229,15 +229,25 @@ def sample_inputs(case: Case, study: Study, draws: Draws, start: int, stop: int,
     clock = value("clocking_deg") if "clocking_deg" in tol else np.zeros(n)
     scale = (
         retardance_scale(case, study, value("retardance_waves"))
-        if "retardance_waves" in tol
+        if "retardance_waves" in tol and plate.construction != "train"
         else 1.0
     )
+    owner = plate.details.get("element_of_layer") if plate.construction == "train" else None
+    if owner is not None:
+        clocks, scales = _train_draws(case, study, tol, value, n)
     for j, la in enumerate(plate.layers):
+        if owner is not None:
+            # a train: each element's mount has its own clocking (stream index = element) and
+            # its own retardance scale; crossing acts between the layers of one element only
+            clock, scale = clocks[owner[j]], scales[owner[j]]
+            first = j == 0 or owner[j - 1] != owner[j]
+        else:
+            first = j == 0
         if "thickness_um" in tol:
             thick[:, j] = la.thickness_um * scale + value("thickness_um", j)
         else:
             thick[:, j] = la.thickness_um * scale
-        cross = value("crossing_deg", j) if j > 0 and "crossing_deg" in tol else 0.0
+        cross = value("crossing_deg", j) if not first and "crossing_deg" in tol else 0.0
         axis[:, j] = la.axis_deg + clock + cross
         optic[:, j] = la.optic_axis_deg + clock + cross
         m = la.material
@@ -256,6 +266,8 @@ def sample_inputs(case: Case, study: Study, draws: Draws, start: int, stop: int,
     if "input_azimuth_deg" in tol:
         alpha = alpha + value("input_azimuth_deg")
     alpha = np.radians(np.broadcast_to(alpha, (n,)))
+    ca, sa, cai, sai = study.input.jones(alpha)
+    dop = np.full(n, study.input.degree_of_polarization)
     drift = value("drift") if "drift" in tol else None
     th = np.radians(2.0 * axis)
     c = np.ascontiguousarray
@@ -267,10 +279,30 @@ def sample_inputs(case: Case, study: Study, draws: Draws, start: int, stop: int,
         c(sin2i),
         c(np.cos(phi) ** 2),
         c(np.sin(phi) ** 2),
-        c(np.cos(alpha)),
-        c(np.sin(alpha)),
+        c(ca),
+        c(sa),
+        c(cai),
+        c(sai),
+        c(dop),
     )
     return inputs, {"drift": drift, "temperature": temp, "aoi": aoi}
+
+
+def _train_draws(case: Case, study: Study, tol, value, n: int):
+    """Per element of a train: the mount's clocking [deg] and the retardance scale factor.
+
+    Element e reads stream index e of ``clocking_deg`` and ``retardance_waves`` (independent
+    mounts and plates); its retardance error is read at its own design wavelength.
+    """
+    clocks, scales = [], []
+    for e, el in enumerate(case.plate.details["elements"]):
+        clocks.append(value("clocking_deg", e) if "clocking_deg" in tol else np.zeros(n))
+        if "retardance_waves" in tol:
+            r = nominal_retardance_waves(el, float(el.design_nm))
+            scales.append(1.0 + np.asarray(value("retardance_waves", e)) / r)
+        else:
+            scales.append(1.0)
+    return clocks, scales
 
 
 def nominal_retardance_waves(plate: Plate, at_nm: float) -> float:
@@ -536,8 +568,9 @@ class Engine:
                 hand = self._nominal_handedness(plate)
             gvec = goal_vector("circular", handedness=hand)
         else:
-            hand = 1
-            gvec = goal_vector("linear", goal.azimuth_deg)
+            gvec = goal.vector()
+            # the goal's sense of rotation (+1 for a linear goal, which has none)
+            hand = -1 if gvec[2] < 0 else 1
         return Case(cand, plate, ReadOnlyMapping(tol), gvec, hand, w_design)
 
     def _nominal_handedness(self, plate: Plate) -> int:
@@ -546,7 +579,13 @@ class Engine:
         from .polarization import jones_to_stokes, linear_jones
 
         J = plate_jones(plate, plate.design_nm, extrapolate=True)
-        S = jones_to_stokes(J @ linear_jones(self.study.input.azimuth_deg))
+        inp = self.study.input
+        if inp.ellipticity_deg == 0.0:
+            E = linear_jones(inp.azimuth_deg)
+        else:
+            xr, yr, xi, yi = inp.jones(np.radians(inp.azimuth_deg))
+            E = np.array([xr + 1j * xi, yr + 1j * yi])
+        S = jones_to_stokes(J @ E)
         return 1 if S[3] >= 0 else -1
 
     def optics(self, plate: Plate) -> WavelengthOptics:
@@ -696,7 +735,7 @@ class Engine:
             return passes / n
         worst, sst = self.pass_values(case, n, active)
         pm = self.pass_metric(worst, sst, case.goal)
-        return float(np.mean(pm >= self.study.goal.min))
+        return float(np.mean(self.study.goal.passes(pm)))
 
     # ------------------------------------------------------------------ one candidate
     def evaluate(self, case: Case, keep_samples: bool = False, progress=None) -> CandidateResult:
@@ -786,18 +825,20 @@ class Engine:
 
     def _sensitivity(self, case: Case, nom: Nominal, acc: Accumulator, progress):
         """Yield with each tolerance alone, and with all but it, on the same draws."""
-        goal_min = self.study.goal.min
+        goal = self.study.goal
         n_sens = self.sensitivity_samples()
         active = case.active
         names = tolerance_names(self.cases)
         pm_full = self.pass_metric(acc.worst[:n_sens], acc.spec_stokes[:n_sens], case.goal)
-        full = float(np.mean(pm_full >= goal_min))
+        full = float(np.mean(goal.passes(pm_full)))
         pm_nom = self.pass_metric(np.array([nom.worst]), nom.spec_stokes[None, :], case.goal)
-        nominal_pass = float(pm_nom[0] >= goal_min)
+        nominal_pass = float(goal.passes(pm_nom[0]))
         alone, without = {}, {}
         # margin: the 5th percentile of the pass metric, and how much removing each tolerance
-        # raises it (says something even when every yield is 0 or 1)
-        p05_full = float(np.quantile(pm_full, 0.05))
+        # raises it (says something even when every yield is 0 or 1); for a goal with a max
+        # (smaller is better) the 95th percentile, and how much removing a tolerance lowers it
+        q_tail, sgn = (0.95, -1.0) if goal.sense == "max" else (0.05, 1.0)
+        p05_full = float(np.quantile(pm_full, q_tail))
         margin: dict = {}
         for name in names:
             for mode in ("alone", "without"):
@@ -814,12 +855,12 @@ class Engine:
                 elif not [k for k in subset if k in active]:
                     y = nominal_pass
                     if mode == "without":
-                        margin[name] = float(pm_nom[0]) - p05_full
+                        margin[name] = sgn * (float(pm_nom[0]) - p05_full)
                 else:
                     pm = self.pass_metric(*self.pass_values(case, n_sens, subset), case.goal)
-                    y = float(np.mean(pm >= goal_min))
+                    y = float(np.mean(goal.passes(pm)))
                     if mode == "without":
-                        margin[name] = float(np.quantile(pm, 0.05)) - p05_full
+                        margin[name] = sgn * (float(np.quantile(pm, q_tail)) - p05_full)
                 (alone if mode == "alone" else without)[name] = y
                 if progress:
                     progress(n_sens)
@@ -888,7 +929,7 @@ def _pass_task(sample_range, eng: Engine, case: Case, active) -> int:
     cap_threads()
     worst, sst = _range_values(eng, case, *sample_range, active)
     pm = eng.pass_metric(worst, sst, case.goal)
-    return int(np.sum(pm >= eng.study.goal.min))
+    return int(np.sum(eng.study.goal.passes(pm)))
 
 
 def tolerance_names(cases) -> tuple[str, ...]:
@@ -943,8 +984,8 @@ def _finish(
     spec_metric = spectral_metric(acc.spec_stokes, case.goal, goal.metric)
     pass_metric = acc.worst if goal.over == "band" else spec_metric
     check_finite(case, acc, nom, pass_metric)
-    k = int(np.sum(pass_metric >= goal.min))
-    ylo, yhi = yield_interval(pass_metric >= goal.min, eng.replicates, conf)
+    k = int(np.sum(goal.passes(pass_metric)))
+    ylo, yhi = yield_interval(goal.passes(pass_metric), eng.replicates, conf)
     # the yield the decision ranks on counts unpolarized light: for an axial-ratio goal over the
     # spectrum (which looks at the polarized part only) it is the share of samples whose
     # spectral fidelity reaches that of a pure state with b/a = min

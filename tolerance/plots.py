@@ -168,6 +168,12 @@ def _attr_float(grid, name):
     return value if np.isfinite(value) else None
 
 
+def _goal_limit(grid):
+    """The goal's limit: its ``goal_min``, or ``goal_max`` for a metric where smaller is better."""
+    m = _attr_float(grid, "goal_min")
+    return m if m is not None else _attr_float(grid, "goal_max")
+
+
 def _quantile(grid, var, c, q):
     """One quantile curve of ``var`` for candidate index ``c``, or None if ``q`` is absent."""
     if var not in grid.variables or "quantile" not in grid.coords:
@@ -336,7 +342,7 @@ def metric_bands(grid):
 
     names = _names(grid)
     wl = np.asarray(grid["wavelength"].values, dtype=float)
-    goal = _attr_float(grid, "goal_min")
+    goal = _goal_limit(grid)
     with _style():
         fig = _figure(7.6, 0.6 + 2.3 * len(names))
         axes = fig.subplots(len(names), 1, sharex=True, squeeze=False)[:, 0]
@@ -406,14 +412,17 @@ def p05_overlay(grid):
     """
     names = _names(grid)
     wl = np.asarray(grid["wavelength"].values, dtype=float)
-    goal = _attr_float(grid, "goal_min")
+    goal = _goal_limit(grid)
+    # the worse tail: the 5th percentile, or the 95th where smaller is better (a goal max)
+    high = str(grid.attrs.get("goal_sense", "min")) == "max"
+    tail, tail_name = (0.95, "95th") if high else (0.05, "5th")
     with _style():
         fig = _figure(7.6, 3.4)
         ax = fig.subplots()
         curves, labelled, looks = [], [], []
         mark_every = max(1, wl.size // 8)
         for c in rank_order(grid):
-            p05 = _quantile(grid, "metric_quantile", c, 0.05)
+            p05 = _quantile(grid, "metric_quantile", c, tail)
             if p05 is None:
                 continue
             curves.append(p05)
@@ -449,12 +458,18 @@ def p05_overlay(grid):
                 color="#6b665d",
             )
         if goal is not None:
-            bottom = ax.get_ylim()[0]
-            ax.axhspan(bottom, goal, color=GOAL_INK, alpha=0.035, linewidth=0)
-            ax.set_ylim(bottom=bottom)
+            bottom, top = ax.get_ylim()
+            ax.axhspan(
+                goal if high else bottom,
+                top if high else goal,
+                color=GOAL_INK,
+                alpha=0.035,
+                linewidth=0,
+            )
+            ax.set_ylim(bottom=bottom, top=top if high else None)
         units = _metric_units(grid)
-        ax.set_ylabel("5th percentile" + (f" [{units}]" if units else ""))
-        ax.set_title(_wrap(f"5th percentile of the samples: {_metric_label(grid)}", 88))
+        ax.set_ylabel(f"{tail_name} percentile" + (f" [{units}]" if units else ""))
+        ax.set_title(_wrap(f"{tail_name} percentile of the samples: {_metric_label(grid)}", 88))
         _wavelength_axis(ax, grid)
         _direct_labels(ax, wl, curves, labelled, looks)
         ax.legend(loc="upper left", bbox_to_anchor=(1.12, 1.0), fontsize=7.5)
@@ -951,11 +966,13 @@ def _goal_cos_limit(grid, goal):
     ratio b/a = |tan χ| with s3 = sin 2χ = 2 tan χ/(1 + tan² χ), so b/a ≥ m  ⇔
     s·g ≥ 2m/(1 + m²).
     """
-    m = _attr_float(grid, "goal_min")
+    m = _goal_limit(grid)
     metric = str(grid.attrs.get("goal_metric", "")).lower()
     if m is None:
         return None
-    if metric == "fidelity":
+    if metric == "sphere_angle_deg":  # the states within Θ of the goal: s·g >= cos Θ
+        cos = float(np.cos(np.radians(m)))
+    elif metric == "fidelity":
         cos = 2 * m - 1
     elif metric in ("extinction_db", "extinction"):
         r = 10.0 ** (m / 10)

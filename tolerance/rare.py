@@ -127,7 +127,7 @@ def reject_estimate(eng, case, res, budget: int = EVALUATIONS) -> RejectEstimate
     rng = np.random.default_rng(seed_seq)
 
     def g(xi):
-        return evaluate_points(eng, case, streams, xi)[1] - eng.study.goal.min
+        return eng.study.goal.margin(evaluate_points(eng, case, streams, xi)[1])
 
     found = importance_sampling(g, len(streams), rng, budget, run.confidence)
     if found is None:

@@ -437,10 +437,13 @@ def _goal_text(grid) -> str:
     metric = _s(grid.attrs.get("metric_long_name") or grid.attrs.get("goal_metric") or "metric")
     state = _s(grid.attrs.get("goal_state", "")).strip()
     gmin = _num(grid.attrs.get("goal_min"))
+    gmax = _num(grid.attrs.get("goal_max"))
     over = _s(grid.attrs.get("goal_over", "band"))
     text = metric
     if gmin is not None:
         text = f"{text} ≥ {gmin:g} {_metric_unit(grid)}".rstrip()
+    elif gmax is not None:
+        text = f"{text} ≤ {gmax:g} {_metric_unit(grid)}".rstrip()
     text += " over the " + (
         "source spectrum (source-weighted)"
         if over == "spectrum"

@@ -51,7 +51,7 @@ TOP_KEYS = (
 )
 ALLOCATION_KEYS = ("target_yield", "cost")
 WAVELENGTH_KEYS = ("start", "stop", "step")
-INPUT_KEYS = ("azimuth_deg",)
+INPUT_KEYS = ("azimuth_deg", "ellipticity_deg", "dop", "extinction_db")
 GOAL_KEYS = (
     "state",
     "metric",
@@ -61,8 +61,12 @@ GOAL_KEYS = (
     "handedness",
     "acceptance_limit_waves",
     "yield",
+    "max",
+    "axial_ratio",
+    "ellipticity_deg",
+    "stokes",
 )
-GOAL_STATES = ("circular", "linear")
+GOAL_STATES = ("circular", "linear", "elliptical", "stokes")
 GOAL_OVER = ("band", "spectrum")
 CANDIDATE_KEYS = (
     "name",
@@ -73,6 +77,7 @@ CANDIDATE_KEYS = (
     "axis_deg",
     *CONSTRUCTION_KEYS,
     "tolerances",
+    "elements",
 )
 RUN_KEYS = (
     "samples",
@@ -368,6 +373,8 @@ def _candidate(ctx: _Ctx, c, i: int, default_design) -> Candidate:
     if not isinstance(name, str) or not name.strip():
         raise ctx.err(f"{where}name", "must be a non-empty string")
     where = f"[[candidate]] {name!r}."
+    if "elements" in c:
+        return _train(ctx, c, name, where, default_design)
     if "construction" not in c:
         raise ctx.err(f"{where}construction", "missing", f"one of {', '.join(CONSTRUCTIONS)}")
     cons = ctx.name(c, "construction", where, list(CONSTRUCTIONS))
@@ -470,28 +477,37 @@ def _goal(ctx: _Ctx, raw: dict) -> Goal:
     g = ctx.table(raw, "goal", required=True)
     ctx.check_keys(g, GOAL_KEYS, "[goal].")
     state = ctx.name(g, "state", "[goal].", GOAL_STATES, default="circular")
-    metric = ctx.name(
-        g,
-        "metric",
-        "[goal].",
-        list(metrics),
-        default="axial_ratio" if state == "circular" else "extinction_db",
+    default_metric = {"circular": "axial_ratio", "linear": "extinction_db"}.get(
+        state, "sphere_angle_deg"
     )
+    metric = ctx.name(g, "metric", "[goal].", list(metrics), default=default_metric)
     entry = metrics[metric]
     if state not in entry.extra["states"]:
         raise ctx.err(
             "[goal].metric",
             f"{metric} needs a {' or '.join(entry.extra['states'])} goal",
-            "use extinction_db or fidelity for a linear goal",
+            f"use {', '.join(k for k, e in metrics.items() if state in e.extra['states'])} "
+            f"for a {state} goal",
         )
     over = ctx.name(g, "over", "[goal].", GOAL_OVER, default="band")
-    gmin = ctx.number(g, "min", "[goal].", required=True)
-    lo, hi = entry.extra["range"]
-    if not lo <= gmin <= hi:
+    sense = entry.extra["sense"]
+    if "min" in g and "max" in g:
+        raise ctx.err("[goal]", "gives both min and max", f"{metric} takes only {sense}")
+    other = "max" if sense == "min" else "min"
+    if other in g:
+        better = "larger" if sense == "min" else "smaller"
         raise ctx.err(
-            "[goal].min",
-            f"{metric} lies between {lo:g} and {hi:g}, so min = {gmin:g} cannot be the goal",
-            "e.g. min = 0.95",
+            f"[goal].{other}",
+            f"{metric} is better when {better}, so its goal is a {sense}, not a {other}",
+            f"write {sense} = ... instead",
+        )
+    limit = ctx.number(g, sense, "[goal].", required=True)
+    lo, hi = entry.extra["range"]
+    if not lo <= limit <= hi:
+        raise ctx.err(
+            f"[goal].{sense}",
+            f"{metric} lies between {lo:g} and {hi:g}, so {sense} = {limit:g} cannot be the goal",
+            "e.g. min = 0.95" if sense == "min" else "e.g. max = 5",
         )
     hand = g.get("handedness")
     if hand is not None and hand not in ("right", "left"):
@@ -507,10 +523,11 @@ def _goal(ctx: _Ctx, raw: dict) -> Goal:
             f"the required fraction of passing builds must lie in (0, 1], got {required!r}",
             "give a fraction, e.g. yield = 0.95 for 95 %",
         )
-    return Goal(
+    shape = _goal_shape(ctx, g, state)
+    goal = Goal(
         state=state,
         metric=metric,
-        min=float(gmin),
+        min=float(limit) if sense == "min" else math.nan,
         over=over,
         azimuth_deg=float(ctx.number(g, "azimuth_deg", "[goal].", default=0.0)),
         handedness=hand,
@@ -520,7 +537,77 @@ def _goal(ctx: _Ctx, raw: dict) -> Goal:
             )
         ),
         required_yield=None if required is None else float(required),
+        max=float(limit) if sense == "max" else None,
+        **shape,
     )
+    try:
+        goal.vector()  # the physics checks the ellipse (axial ratio, handedness, Stokes length)
+    except RetolError as e:
+        raise ctx.err(f"[goal].{e.field}", e.problem, e.fix) from None
+    return goal
+
+
+def _goal_shape(ctx: _Ctx, g: dict, state: str) -> dict:
+    """The keys that shape an elliptical or Stokes goal, each allowed only with its state."""
+    out: dict = {}
+    for key in ("axial_ratio", "ellipticity_deg"):
+        if key in g:
+            if state != "elliptical":
+                raise ctx.err(
+                    f"[goal].{key}",
+                    f"applies to an elliptical goal, not {state}",
+                    'set state = "elliptical" or drop it',
+                )
+            out[key] = float(ctx.number(g, key, "[goal]."))
+    if state == "elliptical" and not out:
+        raise ctx.err(
+            "[goal].axial_ratio",
+            "missing for an elliptical goal",
+            "add axial_ratio = b/a in [0, 1] or ellipticity_deg in [-45, 45]",
+        )
+    if "stokes" in g or state == "stokes":
+        v = g.get("stokes")
+        if state != "stokes":
+            raise ctx.err(
+                "[goal].stokes",
+                f"applies to a stokes goal, not {state}",
+                'set state = "stokes" or drop it',
+            )
+        if (
+            not isinstance(v, list)
+            or len(v) != 3
+            or any(isinstance(x, bool) or not isinstance(x, int | float) for x in v)
+            or not all(math.isfinite(x) for x in v)
+        ):
+            raise ctx.err(
+                "[goal].stokes",
+                f"must be three finite numbers, got {v!r}",
+                "e.g. stokes = [0.6, 0.0, 0.8]",
+            )
+        out["stokes"] = tuple(float(x) for x in v)
+    return out
+
+
+def _input(ctx: _Ctx, inp: dict) -> InputState:
+    """``[input]``: azimuth, ellipticity and degree of polarization, or a polarizer's extinction."""
+    az = float(ctx.number(inp, "azimuth_deg", "[input].", default=0.0))
+    chi = float(ctx.number(inp, "ellipticity_deg", "[input].", default=0.0))
+    if abs(chi) > 45.0:
+        raise ctx.err(
+            "[input].ellipticity_deg",
+            f"must lie in [-45, 45], got {chi:g}",
+            "give the ellipticity angle, tan|chi| = b/a, positive right-handed",
+        )
+    dop = float(ctx.number(inp, "dop", "[input].", default=1.0, minimum=0.0, maximum=1.0))
+    er = ctx.number(inp, "extinction_db", "[input].", minimum=0.0, strict_min=True)
+    if er is not None and ("dop" in inp or "ellipticity_deg" in inp):
+        raise ctx.err(
+            "[input].extinction_db",
+            "describes the light behind a linear polarizer, so dop and ellipticity_deg "
+            "cannot be given with it",
+            "give either extinction_db or dop/ellipticity_deg",
+        )
+    return InputState(az, chi, dop, None if er is None else float(er))
 
 
 def _environment(ctx: _Ctx, raw: dict) -> Environment:
@@ -634,7 +721,7 @@ def validate(raw: dict, path: str = "<spec>", base_dir=None, source_text=None) -
     source = _source(ctx, raw, grid, base_dir)
     inp = ctx.table(raw, "input")
     ctx.check_keys(inp, INPUT_KEYS, "[input].")
-    input_state = InputState(float(ctx.number(inp, "azimuth_deg", "[input].", default=0.0)))
+    input_state = _input(ctx, inp)
     goal = _goal(ctx, raw)
     environment = _environment(ctx, raw)
 
@@ -747,7 +834,62 @@ def _raw_distribution(d: dict) -> dict:
     return out
 
 
+def _train(ctx: _Ctx, c: dict, name: str, where: str, default_design) -> Candidate:
+    """A train: ``elements = [{plate}, {plate}, ...]``, each a plate in its own mount."""
+    from .study import train_plate
+
+    for k in c:
+        if k not in ("name", "elements", "tolerances", "construction"):
+            raise ctx.err(
+                f"{where}{k}",
+                "belongs inside an element of a train",
+                "move it into its element's table in elements = [...]",
+            )
+    if c.get("construction", "train") != "train":
+        raise ctx.err(f"{where}construction", "must be train (or left out) with elements")
+    els = c["elements"]
+    if not isinstance(els, list) or not els or not all(isinstance(e, dict) for e in els):
+        raise ctx.err(
+            f"{where}elements",
+            f"must be a list of plate tables, got {els!r}",
+            'e.g. elements = [{construction = "zero-order", material = "quartz", waves = 0.5}]',
+        )
+    elements = []
+    for k, e in enumerate(els):
+        if "elements" in e or "tolerances" in e or "name" in e:
+            bad = next(x for x in ("elements", "tolerances", "name") if x in e)
+            raise ctx.err(
+                f"{where}elements[{k}].{bad}",
+                "is not allowed in an element",
+                "elements are plates; tolerances go in the candidate's own table",
+            )
+        elements.append(_candidate(ctx, {**e, "name": f"{name} #{k}"}, k, default_design))
+    tol, at_nm = {}, None
+    if "tolerances" in c:
+        if not isinstance(c["tolerances"], dict):
+            raise ctx.err(f"{where}tolerances", "must be a table")
+        tol, at_nm = _tolerances(ctx, c["tolerances"], f"{where}tolerances")
+    first = elements[0]
+    cand = Candidate(
+        name=name,
+        construction="train",
+        material=None,
+        waves=elements[-1].waves,
+        design_nm=first.design_nm,
+        axis_deg=elements[-1].axis_deg,
+        tolerances=_proxy(tol),
+        retardance_at_nm=at_nm,
+        elements=tuple(elements),
+    )
+    return dataclasses.replace(cand, plate=train_plate(name, cand.elements))
+
+
 def _raw_candidate(c: dict) -> dict:
+    if "elements" in c:
+        out = {"name": c["name"], "elements": [_raw_candidate(e) for e in c["elements"]]}
+        if "tolerances" in c:
+            out["tolerances"] = {k: _raw_distribution(v) for k, v in c["tolerances"].items()}
+        return out
     out = {k: c[k] for k in ("name", "construction", "material", "waves", "axis_deg") if k in c}
     if c.get("design_nm") is not None:
         out["design"] = c["design_nm"]

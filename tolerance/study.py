@@ -62,12 +62,56 @@ class Source:
 
 @dataclass(frozen=True)
 class InputState:
-    """The light entering the plate: a linear state at ``azimuth_deg`` [deg]."""
+    """The light entering the plate.
+
+    A state of major-axis azimuth ``azimuth_deg`` [deg], ellipticity angle ``ellipticity_deg``
+    [deg] (0: linear; positive right-handed) and degree of polarization ``dop`` [1]; or, with
+    ``extinction_db`` [dB], the light behind a linear polarizer of that extinction ratio at
+    ``azimuth_deg`` lit by unpolarized light (linear, with the polarizer's degree of
+    polarization; the ``input_azimuth_deg`` tolerance turns the polarizer).
+    """
 
     azimuth_deg: float = 0.0
+    ellipticity_deg: float = 0.0
+    dop: float = 1.0
+    extinction_db: float | None = None
+
+    @property
+    def degree_of_polarization(self) -> float:
+        """The input's degree of polarization: ``dop``, or (ER − 1)/(ER + 1) behind a polarizer."""
+        if self.extinction_db is None:
+            return float(self.dop)
+        from .polarization import polarizer_output_stokes
+
+        return float(polarizer_output_stokes(0.0, self.extinction_db)[1])
+
+    def jones(self, azimuth_rad) -> tuple:
+        """(Re Ex, Re Ey, Im Ex, Im Ey) of the polarized part for azimuths [rad] (S,).
+
+        Notes
+        -----
+        R(ψ)·(cos χ, −i sin χ): S3 = 2 Im(Ex Ey*) = sin 2χ, positive right-handed as in
+        :func:`tolerance.polarization.stokes_from_ellipse`.  A linear input (χ = 0) is exactly
+        (cos ψ, sin ψ) with zero imaginary parts.
+        """
+        a = np.asarray(azimuth_rad, dtype=float)
+        ca, sa = np.cos(a), np.sin(a)
+        if self.ellipticity_deg == 0.0:
+            return ca, sa, np.zeros_like(a), np.zeros_like(a)
+        chi = np.radians(self.ellipticity_deg)
+        cc, sc = np.cos(chi), np.sin(chi)
+        return ca * cc, sa * cc, sa * sc, -ca * sc
 
     def to_dict(self) -> dict:
-        return {"azimuth_deg": self.azimuth_deg}
+        d: dict = {"azimuth_deg": self.azimuth_deg}
+        # the other keys only when set, so that linear studies keep their JSON
+        if self.ellipticity_deg != 0.0:
+            d["ellipticity_deg"] = self.ellipticity_deg
+        if self.dop != 1.0:
+            d["dop"] = self.dop
+        if self.extinction_db is not None:
+            d["extinction_db"] = self.extinction_db
+        return d
 
 
 @dataclass(frozen=True)
@@ -83,6 +127,33 @@ class Goal:
     acceptance_limit_waves: float = 0.01
     #: Required yield (``[goal] yield``, a fraction), or None: then any yield above zero. [1]
     required_yield: float | None = None
+    #: The largest allowed value of a metric where smaller is better (then ``min`` is NaN).
+    max: float | None = None
+    #: An elliptical goal's b/a [1] or ellipticity angle [deg] (one of the two), or None.
+    axial_ratio: float | None = None
+    ellipticity_deg: float | None = None
+    #: A "stokes" goal's (s1, s2, s3), or None.
+    stokes: tuple[float, float, float] | None = None
+
+    @property
+    def sense(self) -> str:
+        """ "min" when the goal gives a least value (larger is better), "max" for a largest."""
+        return "max" if self.max is not None else "min"
+
+    @property
+    def limit(self) -> float:
+        """The goal's ``min`` or ``max``, whichever it gives."""
+        return float(self.max) if self.max is not None else float(self.min)
+
+    def passes(self, values) -> np.ndarray:
+        """Whether each metric value meets the goal: >= min, or <= max. [bool array]"""
+        v = np.asarray(values)
+        return v <= self.max if self.max is not None else v >= self.min
+
+    def margin(self, values) -> np.ndarray:
+        """How far each value is inside the goal (negative: outside), in the metric's unit."""
+        v = np.asarray(values)
+        return self.max - v if self.max is not None else v - self.min
 
     def to_dict(self) -> dict:
         d = {
@@ -94,9 +165,41 @@ class Goal:
             "handedness": self.handedness,
             "acceptance_limit_waves": self.acceptance_limit_waves,
         }
+        if self.max is not None:  # a goal gives min or max, never both
+            del d["min"]
+            d["max"] = self.max
         if self.required_yield is not None:  # only when set, so older studies' JSON is unchanged
             d["yield"] = self.required_yield
+        for k in ("axial_ratio", "ellipticity_deg"):
+            if getattr(self, k) is not None:
+                d[k] = getattr(self, k)
+        if self.stokes is not None:
+            d["stokes"] = list(self.stokes)
         return d
+
+    def vector(self, nominal_handedness: int = 1) -> np.ndarray:
+        """The goal's normalised Stokes 3-vector (s1, s2, s3).
+
+        ``nominal_handedness`` (+1/−1) stands in for a circular goal that names no handedness.
+        """
+        from .polarization import goal_vector
+
+        if self.state == "circular":
+            hand = nominal_handedness
+            if self.handedness is not None:
+                hand = 1 if self.handedness == "right" else -1
+            return goal_vector("circular", handedness=hand)
+        if self.state == "linear":
+            return goal_vector("linear", self.azimuth_deg)
+        if self.state == "stokes":
+            return goal_vector("stokes", stokes=self.stokes)
+        return goal_vector(
+            "elliptical",
+            self.azimuth_deg,
+            self.handedness,
+            axial_ratio=self.axial_ratio,
+            ellipticity_deg=self.ellipticity_deg,
+        )
 
 
 @dataclass(frozen=True)
@@ -154,6 +257,9 @@ class Candidate:
     plate: object = field(default=None, compare=False, repr=False)
     #: The test wavelength of this candidate's own ``retardance_waves`` override. [nm]
     retardance_at_nm: float | None = None
+    #: A train's elements (each a plate in its own mount; light meets element 0 first), or
+    #: None for a single plate.  ``plate`` is then their layers in order (:func:`train_plate`).
+    elements: tuple[Candidate, ...] | None = None
 
     def design_keys(self) -> dict:
         """The construction's own keywords for :func:`tolerance.plates.design_plate`."""
@@ -170,6 +276,8 @@ class Candidate:
         """Design this candidate's plate (raises RetolError naming the bad key)."""
         from .plates import design_plate
 
+        if self.elements is not None:
+            return train_plate(self.name, self.elements)
         return design_plate(
             self.construction,
             material=self.material,
@@ -181,6 +289,14 @@ class Candidate:
         )
 
     def to_dict(self) -> dict:
+        if self.elements is not None:
+            d = {"name": self.name, "construction": self.construction}
+            d["elements"] = [
+                {k: v for k, v in e.to_dict().items() if k != "name"} for e in self.elements
+            ]
+            if self.tolerances:
+                d["tolerances"] = _tolerance_dicts(self.tolerances, self.retardance_at_nm)
+            return d
         d: dict = {"name": self.name, "construction": self.construction}
         if self.material is not None:
             d["material"] = self.material
@@ -192,6 +308,30 @@ class Candidate:
         if self.tolerances:
             d["tolerances"] = _tolerance_dicts(self.tolerances, self.retardance_at_nm)
         return d
+
+
+def train_plate(name: str, elements) -> object:
+    """One :class:`~tolerance.plates.Plate` of a train's elements: their layers in light order.
+
+    ``details["element_of_layer"]`` gives each layer's element index, ``details["elements"]``
+    the elements' own plates; the design wavelength is element 0's, the axis the last one's.
+    """
+    from .plates import Plate
+
+    layers, owner = [], []
+    for e, el in enumerate(elements):
+        layers.extend(el.plate.layers)
+        owner.extend([e] * len(el.plate.layers))
+    last = elements[-1].plate
+    return Plate(
+        name=name,
+        construction="train",
+        layers=tuple(layers),
+        waves=float(last.waves),
+        design_nm=float(elements[0].plate.design_nm),
+        axis_deg=float(last.axis_deg),
+        details={"element_of_layer": tuple(owner), "elements": tuple(e.plate for e in elements)},
+    )
 
 
 @dataclass(frozen=True)

@@ -160,7 +160,7 @@ def sobol_indices(eng, case, n_base: int, n_boot: int = BOOTSTRAP) -> SobolIndic
     groups = [groups[k] for k in keys]
     xi = pick_freeze_points(eng.seed, streams, groups, n_base)
     worst, pm = evaluate_points(eng, case, streams, xi)
-    passed = (pm >= eng.study.goal.min).astype(float)
+    passed = eng.study.goal.passes(pm).astype(float)
     conf = eng.study.run.confidence
     out = {}
     for label, f in (("metric", worst), ("passing", passed)):

@@ -171,7 +171,7 @@ def design(
     if not d.met:
         click.echo(
             "retol: warning: the best design found does not meet the goal "
-            f"({spec.goal.metric} >= {spec.goal.min:g}"
+            f"({spec.goal.metric} {'<=' if spec.goal.sense == 'max' else '>='} {spec.goal.limit:g}"
             + (", yield 0" if d.yield_ == 0 else "")
             + "); it is reported above",
             err=True,

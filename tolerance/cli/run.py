@@ -64,7 +64,8 @@ def summary_rows(ds):
                 "yield_high": float(ds["yield_high"].sel(candidate=c)),
                 "nominal_worst": float(ds["nominal_worst"].sel(candidate=c)),
                 "median_worst": float(np.quantile(worst, 0.5)),
-                "p05_worst": float(np.quantile(worst, 0.05)),
+                # the worse tail: 5th percentile, or the 95th for a goal max (smaller is better)
+                "p05_worst": float(np.quantile(worst, _tail(ds))),
                 "nominal_pass": float(
                     ds[
                         "nominal_worst"
@@ -73,7 +74,7 @@ def summary_rows(ds):
                     ].sel(candidate=c)
                 ),
                 "median_pass": float(np.quantile(ds["pass_metric"].sel(candidate=c), 0.5)),
-                "p05_pass": float(np.quantile(ds["pass_metric"].sel(candidate=c), 0.05)),
+                "p05_pass": float(np.quantile(ds["pass_metric"].sel(candidate=c), _tail(ds))),
                 "rank_yield": float(ds["rank_yield"].sel(candidate=c)),
                 "dominant": str(ds["dominant"].sel(candidate=c).values),
                 "margin_p05": float(ds["margin_p05"].sel(candidate=c)),
@@ -172,7 +173,11 @@ def json_summary(ds, rows, folder) -> dict:
         },
         "goal": {
             "state": str(ds.attrs.get("goal_state", "")),
-            "min": float(ds.attrs["goal_min"]),
+            **(
+                {"max": float(ds.attrs["goal_max"])}
+                if "goal_max" in ds.attrs
+                else {"min": float(ds.attrs["goal_min"])}
+            ),
             "over": str(ds.attrs.get("goal_over", "")),
             "yield": float(ds.attrs["goal_yield"]) if "goal_yield" in ds.attrs else None,
             "rule": str(ds.attrs.get("goal_rule", "")),
@@ -181,6 +186,15 @@ def json_summary(ds, rows, folder) -> dict:
         "candidates": rows,
         "output": str(folder),
     }
+
+
+def _tail(ds) -> float:
+    """The worse-tail quantile: 0.05, or 0.95 for a goal max (smaller is better)."""
+    return 0.95 if "goal_max" in ds.attrs else 0.05
+
+
+def _tail_name(ds) -> str:
+    return "p95" if "goal_max" in ds.attrs else "p05"
 
 
 def _yield_cell(r) -> str:
@@ -207,9 +221,12 @@ def print_summary(ds, rows, wide: bool = False):
     metric = ds.attrs.get("goal_metric", "")
     shown = f" {unit}" if unit not in ("", "1") else ""
     conf = float(ds.attrs.get("confidence", ds["yield"].attrs.get("confidence", 0.95)))
+    rel, lim = (
+        (">=", ds.attrs.get("goal_min")) if "goal_min" in ds.attrs else ("<=", ds.attrs["goal_max"])
+    )
     click.echo(
-        f"{ds.attrs.get('title', '')}: goal {ds.attrs['goal_state']} with {metric} >= "
-        f"{ds.attrs['goal_min']:g}{shown} over the "
+        f"{ds.attrs.get('title', '')}: goal {ds.attrs['goal_state']} with {metric} {rel} "
+        f"{lim:g}{shown} over the "
         f"{ds.attrs['goal_over']}; source {ds.attrs.get('source_description', '')}; "
         f"{ds.attrs['samples']} samples, seed {ds.attrs['seed']}"
     )
@@ -230,8 +247,8 @@ def print_summary(ds, rows, wide: bool = False):
             "thicknesses [um]",
             "nominal worst",
             "median worst",
-            "p05 worst",
-            *(["nominal (spectrum)", "p05 (spectrum)"] if spectrum else []),
+            f"{_tail_name(ds)} worst",
+            *(["nominal (spectrum)", f"{_tail_name(ds)} (spectrum)"] if spectrum else []),
             ci,
             "meets",
             "dominant",
@@ -260,7 +277,7 @@ def print_summary(ds, rows, wide: bool = False):
                 ]
             )
     else:
-        which = "p05 (spectrum)" if spectrum else "p05 worst"
+        which = f"{_tail_name(ds)} (spectrum)" if spectrum else f"{_tail_name(ds)} worst"
         head = ["#", "candidate", "construction", which, ci, "meets", "dominant"]
         for r in ordered:
             body.append(
