@@ -721,7 +721,7 @@ class Engine:
             w, s, _ = self._call(
                 case, inputs, extra, self._stats(None, hi - lo, False, ret_shift), hi - lo
             )
-            flags[a:b] = self.pass_metric(w, s, case.goal) >= self.study.goal.min
+            flags[a:b] = self.study.goal.passes(self.pass_metric(w, s, case.goal))
         return flags
 
     def pass_rate(self, case: Case, n: int | None = None, active=None) -> float:
