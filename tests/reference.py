@@ -164,7 +164,10 @@ def ref_plate(c: dict) -> RefPlate:
         return RefPlate([RefLayer(m, r / abs(float(ref_dn(m, lam))) / 1000.0, ax)], ax, lam)
     if kind == "stack":
         return RefPlate(
-            [RefLayer(la["material"], la["thickness_um"], la["axis_deg"] + ax) for la in c["layers"]],
+            [
+                RefLayer(la["material"], la["thickness_um"], la["axis_deg"] + ax)
+                for la in c["layers"]
+            ],
             ax,
             lam,
         )
@@ -429,8 +432,9 @@ def spectral_metric(s, goal, kind):
     return metric(s, goal, kind)
 
 
-def ref_case(c, tol, *, grid, grid_weight, lines, line_weight, goal, n, seed, t_nom=20.0,
-             alpha0=0.0):
+def ref_case(
+    c, tol, *, grid, grid_weight, lines, line_weight, goal, n, seed, t_nom=20.0, alpha0=0.0
+):
     """Reference results of one candidate ``c`` (numbers in nm, µm, deg) under ``tol``."""
     plate = ref_plate(c)
     if goal["state"] == "circular":
@@ -441,8 +445,9 @@ def ref_case(c, tol, *, grid, grid_weight, lines, line_weight, goal, n, seed, t_
     kind = goal["metric"]
     dr = ref_assemblies(plate, tol, n, seed, t_nom, alpha0)
     nominal = ref_assemblies(plate, {}, 1, seed, t_nom, alpha0)
-    proj = np.array([math.cos(math.radians(2 * (la.axis_deg - plate.axis_deg)))
-                     for la in plate.layers])
+    proj = np.array(
+        [math.cos(math.radians(2 * (la.axis_deg - plate.axis_deg))) for la in plate.layers]
+    )
     W = grid.size
     w_design = int(np.argmin(np.abs(grid - plate.design_nm))) if plate.design_nm else 0
 

@@ -28,8 +28,8 @@ import math
 import numpy as np
 import pytest
 from reference import (
-    ref_draws,
     ref_dn,
+    ref_draws,
     ref_indices,
     ref_plate,
     write_spec,
@@ -43,12 +43,25 @@ from tolerance.montecarlo import hist_quantiles
 pytestmark = pytest.mark.filterwarnings("ignore::UserWarning")
 
 
-def run_spec(tmp_path, candidates, *, goal, tolerances=None, source=None, wavelength=None,
-             samples=64, seed=5, input_az=0.0, keep=True, extra=None):
+def run_spec(
+    tmp_path,
+    candidates,
+    *,
+    goal,
+    tolerances=None,
+    source=None,
+    wavelength=None,
+    samples=64,
+    seed=5,
+    input_az=0.0,
+    keep=True,
+    extra=None,
+):
     """Write a spec (numbers: nm, µm, deg) and run it through the public API."""
     tables = {
-        "wavelength": dict(zip(("start", "stop", "step"), wavelength or (780.0, 780.0, 1.0),
-                               strict=True)),
+        "wavelength": dict(
+            zip(("start", "stop", "step"), wavelength or (780.0, 780.0, 1.0), strict=True)
+        ),
         "source": source or {"shape": "laser", "center": 780.0},
         "input": {"azimuth_deg": input_az},
         "goal": goal,
@@ -60,8 +73,14 @@ def run_spec(tmp_path, candidates, *, goal, tolerances=None, source=None, wavele
 
 
 def hwp(theta, name=None, design=780.0, material="quartz"):
-    return {"name": name or f"hwp {theta}", "construction": "zero-order", "material": material,
-            "waves": 0.5, "design": design, "axis_deg": theta}
+    return {
+        "name": name or f"hwp {theta}",
+        "construction": "zero-order",
+        "material": material,
+        "waves": 0.5,
+        "design": design,
+        "axis_deg": theta,
+    }
 
 
 def fold(a):
@@ -80,9 +99,12 @@ def test_half_wave_plate_turns_linear_0_into_2_theta(tmp_path, theta):
     reported nominal azimuth (grid path), the source-averaged azimuth (laser-line path) and,
     with only the clocking tolerance active, every sample: clocking c gives 2(θ + c)."""
     tol = {"clocking_deg": {"sigma": 3.0}}
-    g = run_spec(tmp_path, [hwp(theta)], tolerances=tol,
-                 goal={"state": "linear", "azimuth_deg": 2 * theta, "metric": "fidelity",
-                       "min": 0.5})
+    g = run_spec(
+        tmp_path,
+        [hwp(theta)],
+        tolerances=tol,
+        goal={"state": "linear", "azimuth_deg": 2 * theta, "metric": "fidelity", "min": 0.5},
+    )
     expect = float(fold(2 * theta))
     assert float(g["nominal_azimuth"].values[0, 0]) == pytest.approx(expect, abs=1e-9)
     assert float(g["nominal_spectral_azimuth"].values[0]) == pytest.approx(expect, abs=1e-9)
@@ -103,8 +125,11 @@ def test_extinction_is_malus_power_ratio_in_10_log10(tmp_path, theta, beta):
     analyzer at β with power cos²(ψ − β) and the crossed one with sin²(ψ − β), so the reported
     extinction is 10·log10(cot²(ψ − β)) dB, a power ratio (10·log10, not 20·log10); capped at
     150 dB when ψ = β exactly."""
-    g = run_spec(tmp_path, [hwp(theta)], goal={"state": "linear", "azimuth_deg": beta,
-                                                "metric": "extinction_db", "min": 10.0})
+    g = run_spec(
+        tmp_path,
+        [hwp(theta)],
+        goal={"state": "linear", "azimuth_deg": beta, "metric": "extinction_db", "min": 10.0},
+    )
     d = math.radians(2 * theta - beta)
     expect = 150.0 if abs(d) < 1e-12 else 10 * math.log10(math.cos(d) ** 2 / math.sin(d) ** 2)
     tol = 1e-6 if abs(d) > 1e-12 else 0.0
@@ -120,9 +145,12 @@ def test_extinction_of_samples_is_malus_with_the_input_azimuth_error(tmp_path):
     """Only the input azimuth varies (σ = 2°): input at a goes out of a half-wave plate at θ as
     linear at 2θ − a, so each sample's extinction into an analyzer at 2θ is
     10·log10(cot² a) [Hecht, Malus]."""
-    g = run_spec(tmp_path, [hwp(20.0)], tolerances={"input_azimuth_deg": {"sigma": 2.0}},
-                 goal={"state": "linear", "azimuth_deg": 40.0, "metric": "extinction_db",
-                       "min": 30.0})
+    g = run_spec(
+        tmp_path,
+        [hwp(20.0)],
+        tolerances={"input_azimuth_deg": {"sigma": 2.0}},
+        goal={"state": "linear", "azimuth_deg": 40.0, "metric": "extinction_db", "min": 30.0},
+    )
     z, _ = ref_draws(5, "input_azimuth_deg", 0, 64)
     a = np.radians(2.0 * z)
     expect = 10 * np.log10(np.cos(a) ** 2 / np.sin(a) ** 2)
@@ -153,13 +181,20 @@ def test_handedness_follows_the_readme_convention(tmp_path, axis, sense):
     ratio is tan(½·arcsin|sin 2θ|): θ = −45° (or 120°) gives the left hand.  The grid's goal
     sense, its Stokes S₃ and the signed axial ratio must agree with the field's own rotation."""
     t = math.radians(axis)
-    J = (np.eye(2) - 1j * np.array([[math.cos(2 * t), math.sin(2 * t)],
-                                     [math.sin(2 * t), -math.cos(2 * t)]])) / math.sqrt(2)
+    J = (
+        np.eye(2)
+        - 1j * np.array([[math.cos(2 * t), math.sin(2 * t)], [math.sin(2 * t), -math.cos(2 * t)]])
+    ) / math.sqrt(2)
     assert _rotation_sense(J @ np.array([1.0, 0.0])) == sense
-    qwp = {"name": "qwp", "construction": "zero-order", "material": "quartz", "waves": 0.25,
-           "design": 780.0, "axis_deg": axis}
-    g = run_spec(tmp_path, [qwp], goal={"state": "circular", "metric": "axial_ratio",
-                                        "min": 0.99})
+    qwp = {
+        "name": "qwp",
+        "construction": "zero-order",
+        "material": "quartz",
+        "waves": 0.25,
+        "design": 780.0,
+        "axis_deg": axis,
+    }
+    g = run_spec(tmp_path, [qwp], goal={"state": "circular", "metric": "axial_ratio", "min": 0.99})
     assert int(g["handedness"].values[0]) == sense
     assert np.sign(g["nominal_stokes"].values[0, 0, 2]) == sense
     s3 = math.sin(2 * t)
@@ -167,29 +202,57 @@ def test_handedness_follows_the_readme_convention(tmp_path, axis, sense):
     assert float(g["nominal_stokes"].values[0, 0, 2]) == pytest.approx(s3, abs=1e-12)
     assert float(g["nominal_metric"].values[0, 0]) == pytest.approx(ar, abs=1e-6)
     # the opposite goal: the plate gives the wrong hand, its signed axial ratio is -1
-    g2 = run_spec(tmp_path, [qwp], goal={"state": "circular", "metric": "axial_ratio",
-                                         "min": 0.5,
-                                         "handedness": "left" if sense > 0 else "right"})
+    g2 = run_spec(
+        tmp_path,
+        [qwp],
+        goal={
+            "state": "circular",
+            "metric": "axial_ratio",
+            "min": 0.5,
+            "handedness": "left" if sense > 0 else "right",
+        },
+    )
     assert float(g2["nominal_metric"].values[0, 0]) == pytest.approx(-ar, abs=1e-6)
     assert float(g2["yield"].values[0]) == 0.0
 
 
 @pytest.mark.parametrize("over", ["band", "spectrum"])
-@pytest.mark.parametrize("source", [{"shape": "laser", "center": 780.0, "drift": {"sigma": 0.5}},
-                                    {"shape": "gaussian", "center": 780.0, "fwhm": 6.0}])
+@pytest.mark.parametrize(
+    "source",
+    [
+        {"shape": "laser", "center": 780.0, "drift": {"sigma": 0.5}},
+        {"shape": "gaussian", "center": 780.0, "fwhm": 6.0},
+    ],
+)
 def test_a_left_handed_plate_fails_a_right_handed_goal(tmp_path, over, source):
     """A quarter-wave plate at −45° makes left-circular light (previous test).  Against a
     right-handed goal its axial ratio, signed negative for the wrong hand [README, grid
     ``METRIC_INFO``], is about −1 for every sample, over the band and over the spectrum, so
     the yield is 0; against a left-handed goal it is +1 and the yield 1."""
-    qwp = {"name": "left", "construction": "zero-order", "material": "quartz", "waves": 0.25,
-           "design": 780.0, "axis_deg": -45.0}
+    qwp = {
+        "name": "left",
+        "construction": "zero-order",
+        "material": "quartz",
+        "waves": 0.25,
+        "design": 780.0,
+        "axis_deg": -45.0,
+    }
     tol = {"thickness_um": {"sigma": 0.05}}
     for hand, sign in (("right", -1), ("left", 1)):
-        g = run_spec(tmp_path, [qwp], tolerances=tol, source=source,
-                     wavelength=(776.0, 784.0, 1.0),
-                     goal={"state": "circular", "metric": "axial_ratio", "min": 0.8,
-                           "over": over, "handedness": hand})
+        g = run_spec(
+            tmp_path,
+            [qwp],
+            tolerances=tol,
+            source=source,
+            wavelength=(776.0, 784.0, 1.0),
+            goal={
+                "state": "circular",
+                "metric": "axial_ratio",
+                "min": 0.8,
+                "over": over,
+                "handedness": hand,
+            },
+        )
         for var in ("spectral_metric", "worst_metric", "pass_metric"):
             v = g[var].values[0]
             assert np.all(np.sign(v) == sign), var
@@ -209,14 +272,26 @@ def test_a_candidates_own_tolerance_shows_in_its_spread(tmp_path):
     standard deviation of the standard draws the thickness stream gives (common random
     numbers: both candidates read the same z).  The spec-wide σ = 0.2 µm and a candidate's own
     σ = 1.5 µm must both show, exactly."""
-    base = {"construction": "zero-order", "material": "quartz", "waves": 0.25, "design": 780.0,
-            "axis_deg": 45.0}
-    cands = [dict(base, name="spec-wide"),
-             dict(base, name="own", tolerances={"thickness_um": {"sigma": 1.5}})]
+    base = {
+        "construction": "zero-order",
+        "material": "quartz",
+        "waves": 0.25,
+        "design": 780.0,
+        "axis_deg": 45.0,
+    }
+    cands = [
+        dict(base, name="spec-wide"),
+        dict(base, name="own", tolerances={"thickness_um": {"sigma": 1.5}}),
+    ]
     n = 700
-    g = run_spec(tmp_path, cands, tolerances={"thickness_um": {"sigma": 0.2}},
-                 goal={"state": "circular", "metric": "axial_ratio", "min": 0.995},
-                 samples=n, keep=False)
+    g = run_spec(
+        tmp_path,
+        cands,
+        tolerances={"thickness_um": {"sigma": 0.2}},
+        goal={"state": "circular", "metric": "axial_ratio", "min": 0.995},
+        samples=n,
+        keep=False,
+    )
     z, _ = ref_draws(5, "thickness_um", 0, n)
     per_um = abs(float(ref_dn("quartz", 780.0))) * 1e3 / 780.0
     for name, sigma in (("spec-wide", 0.2), ("own", 1.5)):
@@ -227,8 +302,9 @@ def test_a_candidates_own_tolerance_shows_in_its_spread(tmp_path):
         assert mean - nominal == pytest.approx(np.mean(z) * sigma * per_um, rel=1e-7, abs=1e-15)
     # the wider spread costs yield: b/a of a plate off by ε waves is cos(2πε)/(1 + |sin 2πε|)
     # ... monotone in |ε|, so the yield is the share of |z|·σ·per_um within the same bound
-    eps_max = brentq(lambda e: (1 - abs(math.sin(2 * math.pi * e))) / math.cos(2 * math.pi * e)
-                     - 0.995, 0.0, 0.1)
+    eps_max = brentq(
+        lambda e: (1 - abs(math.sin(2 * math.pi * e))) / math.cos(2 * math.pi * e) - 0.995, 0.0, 0.1
+    )
     for name, sigma in (("spec-wide", 0.2), ("own", 1.5)):
         y = float(g["yield"].sel(candidate=name))
         assert y == np.mean(np.abs(z) * sigma * per_um <= eps_max)
@@ -244,15 +320,32 @@ def test_reported_quantiles_agree_with_sample_quantiles_of_kept_samples(tmp_path
     holds the ⌈q·n⌉-th smallest value, which is the [HF1996] definition-1 sample quantile; the
     two therefore differ by at most w, plus the float32 rounding (2⁻²³·|x|) of the kept
     samples.  q = 0 and q = 1 are the exact extremes."""
-    tol = {"thickness_um": {"sigma": 0.5}, "clocking_deg": {"uniform": 2.0},
-           "tilt_deg": {"sigma": 3.0}, "temperature_c": {"low": 0.0, "high": 40.0}}
+    tol = {
+        "thickness_um": {"sigma": 0.5},
+        "clocking_deg": {"uniform": 2.0},
+        "tilt_deg": {"sigma": 3.0},
+        "temperature_c": {"low": 0.0, "high": 40.0},
+    }
     qs = [0.0, 0.01, 0.05, 0.25, 0.5, 0.75, 0.95, 0.99, 1.0]
-    qwp = {"name": "q", "construction": "multi-order", "material": "quartz", "order": 2,
-           "waves": 0.25, "design": 780.0, "axis_deg": 45.0}
-    g = run_spec(tmp_path, [qwp], tolerances=tol, samples=1500,
-                 source={"shape": "flat"}, wavelength=(770.0, 790.0, 5.0),
-                 goal={"state": "circular", "metric": "extinction_db", "min": 10.0},
-                 extra={"run": {"quantiles": qs}})
+    qwp = {
+        "name": "q",
+        "construction": "multi-order",
+        "material": "quartz",
+        "order": 2,
+        "waves": 0.25,
+        "design": 780.0,
+        "axis_deg": 45.0,
+    }
+    g = run_spec(
+        tmp_path,
+        [qwp],
+        tolerances=tol,
+        samples=1500,
+        source={"shape": "flat"},
+        wavelength=(770.0, 790.0, 5.0),
+        goal={"state": "circular", "metric": "extinction_db", "min": 10.0},
+        extra={"run": {"quantiles": qs}},
+    )
     for var in ("retardance", "axial_ratio", "metric"):
         kept = g[f"sample_{var}"].values[0].astype(float)  # (S, W)
         nominal = g[f"nominal_{var}"].values[0]
@@ -315,15 +408,26 @@ def test_yield_interval_is_wilson_and_rank_yield_uses_the_fidelity_threshold(tmp
     a pure state of b/a = m: sin 2χ = 2 tan χ/(1 + tan² χ) = 2m/(1 + m²), so
     f_min = (1 + 2m/(1 + m²))/2 [Hecht, ellipse]."""
     m = 0.9
-    qwp = {"name": "q", "construction": "multi-order", "material": "quartz", "order": 10,
-           "waves": 0.25, "design": 780.0, "axis_deg": 45.0}
+    qwp = {
+        "name": "q",
+        "construction": "multi-order",
+        "material": "quartz",
+        "order": 10,
+        "waves": 0.25,
+        "design": 780.0,
+        "axis_deg": 45.0,
+    }
     n = 400
-    g = run_spec(tmp_path, [qwp], tolerances={"thickness_um": {"sigma": 4.0}}, samples=n,
-                 source={"shape": "gaussian", "center": 780.0, "fwhm": 1.5},
-                 wavelength=(774.0, 786.0, 0.5),
-                 goal={"state": "circular", "metric": "axial_ratio", "min": m,
-                       "over": "spectrum"},
-                 keep=False)
+    g = run_spec(
+        tmp_path,
+        [qwp],
+        tolerances={"thickness_um": {"sigma": 4.0}},
+        samples=n,
+        source={"shape": "gaussian", "center": 780.0, "fwhm": 1.5},
+        wavelength=(774.0, 786.0, 0.5),
+        goal={"state": "circular", "metric": "axial_ratio", "min": m, "over": "spectrum"},
+        keep=False,
+    )
     k = int(round(float(g["yield"].values[0]) * n))
     z = norm.ppf(0.975)
     p = k / n
@@ -384,26 +488,65 @@ def _acceptance(c, limit):
     d0 = _plate_retardance_waves(p.layers, lam, 0.0, 0.0, p.axis_deg)
 
     def worst(theta):
-        f = [abs(_plate_retardance_waves(p.layers, lam, theta, phi, p.axis_deg) - d0)
-             for phi in np.arange(0.0, 180.0, 5.0)]
+        f = [
+            abs(_plate_retardance_waves(p.layers, lam, theta, phi, p.axis_deg) - d0)
+            for phi in np.arange(0.0, 180.0, 5.0)
+        ]
         i = int(np.argmax(f))
         best = minimize_scalar(
             lambda phi: -abs(_plate_retardance_waves(p.layers, lam, theta, phi, p.axis_deg) - d0),
-            bounds=(5.0 * i - 5.0, 5.0 * i + 5.0), method="bounded", options={"xatol": 1e-6})
+            bounds=(5.0 * i - 5.0, 5.0 * i + 5.0),
+            method="bounded",
+            options={"xatol": 1e-6},
+        )
         return max(f[i], -best.fun)
 
     return brentq(lambda t: worst(t) - limit, 1e-3, 59.0, xtol=1e-9)
 
 
 ACCEPTANCE = [
-    ({"construction": "zero-order", "material": "quartz", "waves": 0.25, "design_nm": 780.0,
-      "axis_deg": 45.0}, 0.01),
-    ({"construction": "multi-order", "material": "quartz", "order": 6, "waves": 0.25,
-      "design_nm": 633.0, "axis_deg": 10.0}, 0.01),
-    ({"construction": "compound", "material": "mgf2", "thick_plate_um": 500.0, "waves": 0.25,
-      "design_nm": 633.0, "axis_deg": 0.0}, 0.005),
-    ({"construction": "zero-order", "material": "sapphire", "waves": 0.5, "design_nm": 1064.0,
-      "axis_deg": 30.0}, 0.02),
+    (
+        {
+            "construction": "zero-order",
+            "material": "quartz",
+            "waves": 0.25,
+            "design_nm": 780.0,
+            "axis_deg": 45.0,
+        },
+        0.01,
+    ),
+    (
+        {
+            "construction": "multi-order",
+            "material": "quartz",
+            "order": 6,
+            "waves": 0.25,
+            "design_nm": 633.0,
+            "axis_deg": 10.0,
+        },
+        0.01,
+    ),
+    (
+        {
+            "construction": "compound",
+            "material": "mgf2",
+            "thick_plate_um": 500.0,
+            "waves": 0.25,
+            "design_nm": 633.0,
+            "axis_deg": 0.0,
+        },
+        0.005,
+    ),
+    (
+        {
+            "construction": "zero-order",
+            "material": "sapphire",
+            "waves": 0.5,
+            "design_nm": 1064.0,
+            "axis_deg": 30.0,
+        },
+        0.02,
+    ),
 ]
 
 
@@ -421,10 +564,20 @@ def test_acceptance_half_angle_matches_the_wave_equation(tmp_path, c, limit):
     if "thick_plate_um" in c:
         spec_c["thick_plate"] = c["thick_plate_um"]
     lam = c["design_nm"]
-    g = run_spec(tmp_path, [spec_c], samples=8, keep=False,
-                 source={"shape": "laser", "center": lam}, wavelength=(lam, lam, 1.0),
-                 goal={"state": "circular", "metric": "fidelity", "min": 0.5,
-                       "acceptance_limit_waves": limit})
+    g = run_spec(
+        tmp_path,
+        [spec_c],
+        samples=8,
+        keep=False,
+        source={"shape": "laser", "center": lam},
+        wavelength=(lam, lam, 1.0),
+        goal={
+            "state": "circular",
+            "metric": "fidelity",
+            "min": 0.5,
+            "acceptance_limit_waves": limit,
+        },
+    )
     got = float(g["acceptance_half_angle"].values[0])
     assert 0.5 < expect < 59.0
     assert got == pytest.approx(expect, rel=1e-4)
@@ -434,17 +587,32 @@ def test_temperature_coefficient_is_the_sum_of_layer_coefficients(tmp_path):
     """[Etzel2000] δᵢ(T) = δᵢ(T_ref)·(1 + γᵢ(T − T_ref)), so the plate's dδ/dT is exactly
     Σ cos 2(θᵢ − θ)·δᵢ·γᵢ, reported in degrees per kelvin.  An achromat of quartz and MgF2
     (different γ, crossed) checks the signs and the per-layer materials."""
-    c = {"name": "a", "construction": "achromatic", "material": "quartz", "partner": "mgf2",
-         "match": [500.0, 700.0], "waves": 0.25, "design": 600.0, "axis_deg": 0.0}
-    g = run_spec(tmp_path, [c], samples=8, keep=False, source={"shape": "laser", "center": 600.0},
-                 wavelength=(600.0, 600.0, 1.0),
-                 goal={"state": "circular", "metric": "fidelity", "min": 0.5})
+    c = {
+        "name": "a",
+        "construction": "achromatic",
+        "material": "quartz",
+        "partner": "mgf2",
+        "match": [500.0, 700.0],
+        "waves": 0.25,
+        "design": 600.0,
+        "axis_deg": 0.0,
+    }
+    g = run_spec(
+        tmp_path,
+        [c],
+        samples=8,
+        keep=False,
+        source={"shape": "laser", "center": 600.0},
+        wavelength=(600.0, 600.0, 1.0),
+        goal={"state": "circular", "metric": "fidelity", "min": 0.5},
+    )
     p = ref_plate(dict(c, design_nm=600.0, match_nm=[500.0, 700.0]))
     from reference import gamma
 
     total = 0.0
     for la in p.layers:
         delta_deg = 360.0 * la.thickness_um * 1e3 * abs(float(ref_dn(la.material, 600.0))) / 600.0
-        total += math.cos(math.radians(2 * (la.axis_deg - p.axis_deg))) * delta_deg * gamma(
-            la.material)
+        total += (
+            math.cos(math.radians(2 * (la.axis_deg - p.axis_deg))) * delta_deg * gamma(la.material)
+        )
     assert float(g["temperature_coefficient"].values[0]) == pytest.approx(total, rel=1e-7)
