@@ -44,6 +44,17 @@ MATERIALS = Path(__file__).resolve().parent.parent / "materials"
 FILES = sorted(MATERIALS.glob("*.toml"))
 
 
+@pytest.fixture(autouse=True)
+def _fresh_caches():
+    """Re-read the material files and re-derive the stream keys in every test, so that a
+    mutation-testing worker forked after a warm-up run (tests/README.md) exercises the
+    loaders and the key derivation instead of the records its parent cached."""
+    from tolerance import dispersion, sampler
+
+    for f in (dispersion._builtin, sampler._stream_key):
+        getattr(f, "cache_clear", lambda: None)()
+
+
 def ghosh_1999(c, lam_um):
     """[Ghosh1999] n = √(1 + A + B/(1 − C/λ²) + D/(1 − E/λ²)); C, E in µm²."""
     inv = 1.0 / (lam_um * lam_um)
