@@ -1,0 +1,227 @@
+"""Small contracts that the mutation run (tests/README.md) found unchecked.
+
+Each test names the behaviour it pins down and where that behaviour is promised: README.md
+("Conventions", "Commands"), DEVELOPERS.md ("User mistakes raise RetolError(field, problem,
+fix)"), or a closed form derived in the docstring.
+
+Sources
+-------
+- [README] README.md "Conventions": right = clockwise looking toward the source, left, linear.
+- [Hecht] E. Hecht, *Optics*, ch. 8: a retarder's Jones matrix; a global phase factor changes
+  no observable, so a retardance computed from J must not depend on it.
+- [DEVELOPERS] DEVELOPERS.md "Conventions": every user mistake is a one-line RetolError naming
+  the field and the fix.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from hypothesis import given
+from hypothesis import strategies as st
+
+from tolerance.errors import RetolError
+from tolerance.plates import design_plate, equivalent_retardance
+from tolerance.polarization import (
+    fidelity,
+    handedness_name,
+    retarder_jones,
+    rotation_name,
+)
+
+
+def test_handedness_and_rotation_names_follow_the_readme():
+    """[README] +1 is clockwise looking toward the source, called right; −1 left; 0 linear."""
+    assert [handedness_name(r) for r in (1, -1, 0)] == ["right", "left", "linear"]
+    assert [rotation_name(r) for r in (1, -1, 0)] == ["clockwise", "counterclockwise", "linear"]
+
+
+def test_fidelity_of_a_stack_of_states():
+    """(1 + s·g)/2 with s = (S1, S2, S3)/S0, for every state of an (2, 3, 4) stack: the fidelity of
+    each state, not a sum over the stack (closed form: s·g per state)."""
+    rng = np.random.default_rng(3)
+    s = rng.normal(size=(2, 3, 3))
+    s /= np.linalg.norm(s, axis=-1, keepdims=True) * rng.uniform(1.0, 2.0, size=(2, 3, 1))
+    S0 = rng.uniform(0.5, 3.0, size=(2, 3, 1))
+    S = np.concatenate([S0, s * S0], axis=-1)
+    g = np.array([0.0, 0.6, 0.8])
+    expect = 0.5 * (1.0 + s @ g)
+    got = fidelity(S, g)
+    assert got.shape == (2, 3)
+    np.testing.assert_allclose(got, expect, rtol=1e-14)
+
+
+@given(
+    delta=st.floats(0.01, math.pi - 0.01),
+    theta=st.floats(-90, 90),
+    phase=st.floats(-math.pi, math.pi),
+)
+def test_equivalent_retardance_ignores_a_global_phase(delta, theta, phase):
+    """[Hecht] e^{iφ}·J describes the same retarder, so its retardance is δ for any φ."""
+    J = retarder_jones(delta, theta) * np.exp(1j * phase)
+    assert float(equivalent_retardance(J)) == pytest.approx(delta, abs=1e-9)
+
+
+def test_equivalent_retardance_of_a_stack_of_matrices_and_round_off():
+    """Each matrix of an (n, 2, 2) stack gives its own retardance; a matrix a rounding step away
+    from unitary (|tr|/(2√det) a hair above 1) gives 0, not NaN."""
+    delta = np.array([0.3, 1.0, 2.5])
+    J = retarder_jones(delta, np.array([10.0, 40.0, -70.0]))
+    np.testing.assert_allclose(equivalent_retardance(J), delta, atol=1e-9)
+    eps = 1e-9
+    near = np.diag([1.0 + eps, 1.0 - eps]).astype(complex)  # tr/√det = 2/√(1 − ε²) > 2
+    r = float(equivalent_retardance(near))
+    assert r == 0.0
+
+
+def test_a_stack_with_an_oblique_layer_is_not_aligned():
+    """Aligned means every layer parallel or crossed to the plate's axis (|cos 2Δθ| = 1 to
+    1e-12): layers at 0° and 90° are; a layer 1e-4° off crossed (1 − |cos 2Δθ| ≈ 6e-12) or at
+    30° is not."""
+
+    def plate(axes):
+        layers = [{"material": "quartz", "thickness_um": 20.0, "axis_deg": a} for a in axes]
+        return design_plate("stack", layers=layers, design_nm=633.0)
+
+    assert plate([0.0, 90.0]).aligned()
+    assert not plate([0.0, 90.0 - 1e-4]).aligned()
+    assert not plate([0.0, 30.0]).aligned()
+
+
+BAD_PLATES = [
+    # (construction, material, keyword arguments, the field the error must name)
+    ("multi-order", "quartz", {}, "order"),
+    ("multi-order", "quartz", {"order": 2.5}, "order"),
+    ("multi-order", "quartz", {"order": 2, "waves": 0.0}, "waves"),
+    ("zero-order", "quartz", {"waves": -0.25}, "waves"),
+    ("compound", "quartz", {}, "thick_plate"),
+    ("compound", "quartz", {"thick_plate_um": 5.0}, "thick_plate"),
+    ("compound", "quartz", {"thick_plate_um": -1.0}, "thick_plate"),
+    ("achromatic", "quartz", {}, "partner"),
+    ("achromatic", "quartz", {"partner": "quartz"}, "partner"),
+    ("achromatic", "quartz", {"partner": "mgf2", "match_nm": [500.0, 500.0]}, "match"),
+    ("film", "quartz", {}, "material"),
+    ("film", "polycarbonate", {"retardance_nm": -3.0}, "retardance"),
+    ("film", "polycarbonate", {"waves": 0.0}, "waves"),
+    ("stack", None, {"layers": []}, "layers"),
+    ("stack", None, {"layers": ["quartz"]}, "layers[0]"),
+    ("stack", None, {"layers": [{"thickness_um": 3.0}]}, "layers[0].material"),
+    ("stack", None, {"layers": [{"material": "quartz"}]}, "layers[0].thickness"),
+    (
+        "stack",
+        None,
+        {"layers": [{"material": "quartz", "thickness_um": 0.0}]},
+        "layers[0].thickness",
+    ),
+    ("spiral", "quartz", {}, "construction"),
+    ("zero-order", None, {}, "material"),
+]
+
+
+@pytest.mark.parametrize("construction, material, kw, field", BAD_PLATES)
+def test_bad_plate_input_names_the_field_and_the_fix(construction, material, kw, field):
+    """[DEVELOPERS] RetolError(field, problem, fix): the field is the one at fault, the problem
+    and the fix are said, in one line."""
+    kw = dict(kw)
+    waves = kw.pop("waves", 0.25)
+    with pytest.raises(RetolError) as info:
+        design_plate(construction, material, waves, 633.0, **kw)
+    e = info.value
+    assert e.field == field
+    assert isinstance(e.problem, str) and e.problem.strip()
+    assert isinstance(e.fix, str) and e.fix.strip()
+    assert "\n" not in str(e)
+    assert str(e).startswith(f"{field}: {e.problem}")
+
+
+QUARTZ_TOML = """
+name = "myquartz"
+kind = "positive uniaxial"
+valid_min_um = 0.4
+valid_max_um = 1.0
+source = "a test file"
+[formula]
+type = "ghosh"
+[formula.ordinary]
+A = 0.28604141
+B = 1.07044083
+C = 1.00585997e-2
+D = 1.10202242
+E = 100.0
+[formula.extraordinary]
+A = 0.28851804
+B = 1.09509924
+C = 1.02101864e-2
+D = 1.15662475
+E = 100.0
+"""
+
+
+def test_a_user_material_without_thermal_data_does_not_drift(tmp_path):
+    """README "Data sources": each file carries its thermal data; a file without a [thermal]
+    table has γ = 0 and no uncertainty (nothing is invented), its long name defaults to its
+    name and its reference temperature to 20 °C (common practice)."""
+    from tolerance.dispersion import birefringence, load_material_file
+
+    p = tmp_path / "myquartz.toml"
+    p.write_text(QUARTZ_TOML, encoding="utf-8")
+    m = load_material_file(p)
+    assert m.retardance_temperature_coefficient == 0.0
+    assert m.temperature_coefficient_uncertainty == 0.0
+    assert m.thermal_source == ""
+    assert m.long_name == "myquartz"
+    assert m.reference_temperature_c == 20.0
+    assert float(birefringence(m, 633.0, temperature_c=80.0)) == float(birefringence(m, 633.0))
+    p.write_text(
+        QUARTZ_TOML + "[thermal]\nretardance_coefficient_per_k = -1e-4\nuncertainty_per_k = 2e-5\n"
+        'source = "measured"\n',
+        encoding="utf-8",
+    )
+    m = load_material_file(p)
+    assert (m.retardance_temperature_coefficient, m.temperature_coefficient_uncertainty) == (
+        -1e-4,
+        2e-5,
+    )
+    assert m.thermal_source == "measured"
+
+
+@pytest.mark.parametrize(
+    "change, field",
+    [
+        (("valid_max_um = 1.0", "valid_max_um = 0.4"), "valid_min_um"),
+        (('type = "ghosh"', 'type = "table"'), "formula.type"),
+        (('kind = "positive uniaxial"', 'kind = "biaxial"'), "kind"),
+        (('name = "myquartz"\n', 'wavelength_unit = "nm"\nname = "myquartz"\n'), "wavelength_unit"),
+    ],
+)
+def test_bad_material_file_names_the_field_and_the_fix(tmp_path, change, field):
+    """[DEVELOPERS] an empty validity range, a formula type a file cannot carry (a table is a
+    CSV), an unknown kind or unit: a one-line RetolError naming the file's field and the fix."""
+    from tolerance.dispersion import load_material_file
+
+    p = tmp_path / "bad.toml"
+    p.write_text(QUARTZ_TOML.replace(*change), encoding="utf-8")
+    with pytest.raises(RetolError) as info:
+        load_material_file(p)
+    e = info.value
+    assert e.field == f"bad.toml: {field}"
+    assert isinstance(e.problem, str) and e.problem.strip()
+    if field != "valid_min_um":  # that one has no fix: see the xfail below
+        assert isinstance(e.fix, str) and e.fix.strip()
+
+
+@pytest.mark.xfail(
+    strict=True,
+    reason="dispersion.material_from_dict raises 'range must satisfy 0 < min < max' with no fix "
+    "(DEVELOPERS.md asks every user error for one)",
+)
+def test_an_empty_validity_range_says_the_fix(tmp_path):
+    from tolerance.dispersion import load_material_file
+
+    p = tmp_path / "bad.toml"
+    p.write_text(QUARTZ_TOML.replace("valid_max_um = 1.0", "valid_max_um = 0.4"), encoding="utf-8")
+    with pytest.raises(RetolError) as info:
+        load_material_file(p)
+    assert info.value.fix
