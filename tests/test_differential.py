@@ -44,17 +44,6 @@ import tolerance
 pytestmark = pytest.mark.filterwarnings("ignore::UserWarning")
 
 
-@pytest.fixture(autouse=True)
-def _fresh_caches():
-    """Re-read the material files and re-derive the stream keys in every test, so that a
-    mutation-testing worker forked after a warm-up run (tests/README.md) exercises the
-    loaders and the key derivation instead of the records its parent cached."""
-    from tolerance import dispersion, sampler
-
-    for f in (dispersion._builtin, sampler._stream_key):
-        getattr(f, "cache_clear", lambda: None)()
-
-
 # ----------------------------------------------------------------------------- harness
 
 
