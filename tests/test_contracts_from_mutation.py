@@ -225,3 +225,38 @@ def test_an_empty_validity_range_says_the_fix(tmp_path):
     with pytest.raises(RetolError) as info:
         load_material_file(p)
     assert info.value.fix
+
+
+def test_a_measured_csv_table_is_read_as_written(tmp_path):
+    """README "Commands": a CSV of measured values (wavelength_nm and n_o, n_e, or a
+    birefringence with an optional mean index) is a material whose validity range is the
+    table's range; it has no thermal data (γ = 0, reference 20 °C: common practice) and its
+    indices at the table's own wavelengths are the table's values.  Rows 0.5 nm apart are
+    distinct rows; a comment line may be indented."""
+    from tolerance.dispersion import indices, load_material_file
+
+    p = tmp_path / "mylot.csv"
+    p.write_text(
+        "wavelength_nm,birefringence,n_mean\n  # measured on plate 7\n"
+        "600.0,0.0091,1.544\n600.5,0.0090,1.544\n700.0,0.0088,1.544\n",
+        encoding="utf-8",
+    )
+    m = load_material_file(p)
+    assert (m.valid_min_nm, m.valid_max_nm) == (600.0, 700.0)
+    n_o, n_e = indices(m, np.array([600.0, 600.5, 700.0]))
+    np.testing.assert_allclose(n_o, 1.544, rtol=1e-15)
+    np.testing.assert_allclose(n_e - n_o, [0.0091, 0.0090, 0.0088], rtol=1e-12)
+    assert m.kind == "positive uniaxial"
+    assert m.reference_temperature_c == 20.0
+    assert m.retardance_temperature_coefficient == 0.0
+    assert m.temperature_coefficient_uncertainty == 0.0
+    assert "mylot.csv" in m.source
+    assert m.long_name == "mylot"
+    assert m.path == str(p)
+    # without a mean index the loader takes n_o = 1.5 (at normal incidence only Δn matters)
+    p2 = tmp_path / "bare.csv"
+    p2.write_text("wavelength_nm,birefringence\n600,-0.17\n700,-0.16\n", encoding="utf-8")
+    m2 = load_material_file(p2)
+    n_o2, _ = indices(m2, 650.0)
+    assert float(n_o2) == 1.5
+    assert m2.kind == "negative uniaxial"
