@@ -260,3 +260,29 @@ def test_a_measured_csv_table_is_read_as_written(tmp_path):
     n_o2, _ = indices(m2, 650.0)
     assert float(n_o2) == 1.5
     assert m2.kind == "negative uniaxial"
+
+
+@pytest.mark.parametrize("start, stop", [(0, 513), (0, 1), (100, 700), (512, 1025), (1023, 1024)])
+def test_draws_follow_the_documented_scheme_for_any_range(start, stop):
+    """DEVELOPERS.md "Reproducible": each (tolerance, layer) stream is Philox keyed by
+    SeedSequence(seed, spawn_key=(crc32(name), index)) with one counter block per 512 samples,
+    so samples [start, stop) are a slice of the stream whatever the range; regenerated here by
+    ``reference.ref_draws`` [Salmon2011], including ranges ending one past a block."""
+    from reference import ref_draws
+
+    from tolerance.sampler import standard_draws
+
+    z, u = standard_draws(7, "crossing_deg", 2, start, stop)
+    zr, ur = ref_draws(7, "crossing_deg", 2, stop)
+    np.testing.assert_array_equal(z, zr[start:])
+    np.testing.assert_array_equal(u, ur[start:])
+
+
+def test_no_distribution_gives_the_centre_exactly():
+    """``scaled(None, ...)``: an absent tolerance is exactly the nominal value."""
+    from tolerance.sampler import scaled
+
+    z = np.linspace(-1.0, 1.0, 5)
+    out = scaled(None, z, z, center=2.5)
+    assert out.shape == z.shape
+    assert np.all(out == 2.5)
