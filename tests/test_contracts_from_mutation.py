@@ -286,3 +286,47 @@ def test_no_distribution_gives_the_centre_exactly():
     out = scaled(None, z, z, center=2.5)
     assert out.shape == z.shape
     assert np.all(out == 2.5)
+
+
+def test_target_waves_is_order_plus_waves():
+    """README: a multi-order plate is built for ``order + waves``, the other constructions for
+    ``waves``; an explicit stack has no target and is measured against its own nominal
+    retardance."""
+    from tolerance.environment import nominal_waves, target_waves
+
+    assert target_waves(design_plate("multi-order", "quartz", 0.25, 633.0, order=7)) == 7.25
+    assert target_waves(design_plate("zero-order", "quartz", 0.3, 633.0)) == 0.3
+    s = design_plate(
+        "stack",
+        layers=[{"material": "quartz", "thickness_um": 20.0, "axis_deg": 0.0}],
+        design_nm=633.0,
+    )
+    assert target_waves(s) == nominal_waves(s)
+    assert target_waves(s) == pytest.approx(20e3 * 0.0090449 / 633.0, rel=1e-4)
+
+
+def test_rank_ties_touching_intervals_and_equal_fidelity_steps():
+    """README "Decision": candidates whose yield intervals overlap the best one's are tied
+    (closed intervals: touching counts); among them spectral fidelities in the same 0.001 step
+    rank as equal (0.999 and 0.9994 both lie in [0.999, 0.1000)), so the wider acceptance wins;
+    a candidate alone at the top is "highest", tied ones name each other."""
+    from tolerance.decision import rank
+
+    names = ["a", "b", "c"]
+    # b's upper limit touches a's lower limit exactly: tied; c is below
+    r, why = rank(
+        names,
+        [0.9, 0.8, 0.2],
+        [0.85, 0.7, 0.1],
+        [0.95, 0.85, 0.3],
+        [0.999, 0.9994, 0.99],
+        [2.0, 5.0, 9.0],
+        [0.1, 0.1, 0.1],
+    )
+    assert list(r) == [2, 1, 3]  # b: same fidelity step, wider acceptance
+    assert "tied" in why[1] and "a" in why[1]
+    assert "below" in why[2]
+    # equal yields: the better fidelity (y) is the best; x's interval lies below y's
+    r, why = rank(["x", "y"], [0.5, 0.5], [0.1, 0.45], [0.2, 0.55], [0.9, 0.95], [1, 1], [0, 0])
+    assert list(r) == [2, 1]
+    assert why[1].startswith("pick: highest")
