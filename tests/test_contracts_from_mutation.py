@@ -330,3 +330,44 @@ def test_rank_ties_touching_intervals_and_equal_fidelity_steps():
     r, why = rank(["x", "y"], [0.5, 0.5], [0.1, 0.45], [0.2, 0.55], [0.9, 0.95], [1, 1], [0, 0])
     assert list(r) == [2, 1]
     assert why[1].startswith("pick: highest")
+
+
+def test_environment_maps_are_changes_from_the_reference_condition():
+    """README "What the results mean": the temperature map is δ(T) − δ(T_ref), zero at the
+    material's reference temperature and γ·δ·(T − T_ref) elsewhere [Etzel2000]; the tilt map's
+    azimuth is measured from the plate's fast axis, so a plate turned by 30° has the same map;
+    the acceptance half-angle's default limit is 0.01 waves."""
+    from tolerance.environment import (
+        acceptance_half_angle,
+        nominal_waves,
+        temperature_error,
+        tilt_error,
+    )
+    from tolerance.plates import plate_retardance
+
+    p = design_plate("multi-order", "quartz", 0.25, 633.0, order=5)
+    g = p.layers[0].material.retardance_temperature_coefficient
+    e = temperature_error(p, [20.0, 50.0])
+    assert e[0] == pytest.approx(0.0, abs=1e-15)
+    assert e[1] == pytest.approx(5.25 * g * 30.0, rel=1e-9)
+    turned = design_plate("multi-order", "quartz", 0.25, 633.0, order=5, axis_deg=30.0)
+    np.testing.assert_allclose(
+        tilt_error(turned, [3.0, 6.0], [0.0, 45.0, 90.0]),
+        tilt_error(p, [3.0, 6.0], [0.0, 45.0, 90.0]),
+        rtol=1e-12,
+    )
+    d = plate_retardance(turned, 633.0, aoi_deg=6.0, incidence_azimuth_deg=30.0) / (2 * np.pi)
+    assert float(tilt_error(turned, [6.0], [0.0])[0, 0]) == pytest.approx(
+        float(d) - nominal_waves(turned), rel=1e-12
+    )
+    assert acceptance_half_angle(p) == acceptance_half_angle(p, 0.01)
+
+
+def test_a_compound_plate_may_have_a_thin_second_plate():
+    """The second plate only has to be thinner than the first by the target's difference: a
+    0.5 µm second plate is a (fragile but) valid design; a zero one is not."""
+    diff = design_plate("zero-order", "quartz", 0.25, 633.0).layers[0].thickness_um
+    p = design_plate("compound", "quartz", 0.25, 633.0, thick_plate_um=diff + 0.5)
+    assert p.layers[1].thickness_um == pytest.approx(0.5, rel=1e-9)
+    with pytest.raises(RetolError):
+        design_plate("compound", "quartz", 0.25, 633.0, thick_plate_um=diff)
