@@ -326,6 +326,18 @@ def test_rank_ties_touching_intervals_and_equal_fidelity_steps():
     assert list(r) == [2, 1, 3]  # b: same fidelity step, wider acceptance
     assert "tied" in why[1] and "a" in why[1]
     assert "below" in why[2]
+    # the same step with the wider acceptance on the exact step value 0.999 (0.999/0.001 is
+    # 998.999... in floating point: the step must still count it as 999)
+    r, _ = rank(
+        names,
+        [0.9, 0.8, 0.2],
+        [0.85, 0.7, 0.1],
+        [0.95, 0.85, 0.3],
+        [0.999, 0.9994, 0.99],
+        [5.0, 2.0, 9.0],
+        [0.1, 0.1, 0.1],
+    )
+    assert list(r) == [1, 2, 3]
     # equal yields: the better fidelity (y) is the best; x's interval lies below y's
     r, why = rank(["x", "y"], [0.5, 0.5], [0.1, 0.45], [0.2, 0.55], [0.9, 0.95], [1, 1], [0, 0])
     assert list(r) == [2, 1]
