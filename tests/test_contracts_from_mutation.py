@@ -1,0 +1,385 @@
+"""Small contracts that the mutation run (tests/README.md) found unchecked.
+
+Each test names the behaviour it pins down and where that behaviour is promised: README.md
+("Conventions", "Commands"), DEVELOPERS.md ("User mistakes raise RetolError(field, problem,
+fix)"), or a closed form derived in the docstring.
+
+Sources
+-------
+- [README] README.md "Conventions": right = clockwise looking toward the source, left, linear.
+- [Hecht] E. Hecht, *Optics*, ch. 8: a retarder's Jones matrix; a global phase factor changes
+  no observable, so a retardance computed from J must not depend on it.
+- [DEVELOPERS] DEVELOPERS.md "Conventions": every user mistake is a one-line RetolError naming
+  the field and the fix.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from hypothesis import given
+from hypothesis import strategies as st
+
+from tolerance.errors import RetolError
+from tolerance.plates import design_plate, equivalent_retardance
+from tolerance.polarization import (
+    fidelity,
+    handedness_name,
+    retarder_jones,
+    rotation_name,
+)
+
+
+def test_handedness_and_rotation_names_follow_the_readme():
+    """[README] +1 is clockwise looking toward the source, called right; −1 left; 0 linear."""
+    assert [handedness_name(r) for r in (1, -1, 0)] == ["right", "left", "linear"]
+    assert [rotation_name(r) for r in (1, -1, 0)] == ["clockwise", "counterclockwise", "linear"]
+
+
+def test_fidelity_of_a_stack_of_states():
+    """(1 + s·g)/2 with s = (S1, S2, S3)/S0, for every state of an (2, 3, 4) stack: the fidelity of
+    each state, not a sum over the stack (closed form: s·g per state)."""
+    rng = np.random.default_rng(3)
+    s = rng.normal(size=(2, 3, 3))
+    s /= np.linalg.norm(s, axis=-1, keepdims=True) * rng.uniform(1.0, 2.0, size=(2, 3, 1))
+    S0 = rng.uniform(0.5, 3.0, size=(2, 3, 1))
+    S = np.concatenate([S0, s * S0], axis=-1)
+    g = np.array([0.0, 0.6, 0.8])
+    expect = 0.5 * (1.0 + s @ g)
+    got = fidelity(S, g)
+    assert got.shape == (2, 3)
+    np.testing.assert_allclose(got, expect, rtol=1e-14)
+
+
+@given(
+    delta=st.floats(0.01, math.pi - 0.01),
+    theta=st.floats(-90, 90),
+    phase=st.floats(-math.pi, math.pi),
+)
+def test_equivalent_retardance_ignores_a_global_phase(delta, theta, phase):
+    """[Hecht] e^{iφ}·J describes the same retarder, so its retardance is δ for any φ."""
+    J = retarder_jones(delta, theta) * np.exp(1j * phase)
+    assert float(equivalent_retardance(J)) == pytest.approx(delta, abs=1e-9)
+
+
+def test_equivalent_retardance_of_a_stack_of_matrices_and_round_off():
+    """Each matrix of an (n, 2, 2) stack gives its own retardance; a matrix a rounding step away
+    from unitary (|tr|/(2√det) a hair above 1, as rounding can make it) gives 0, not NaN."""
+    delta = np.array([0.3, 1.0, 2.5])
+    J = retarder_jones(delta, np.array([10.0, 40.0, -70.0]))
+    np.testing.assert_allclose(equivalent_retardance(J), delta, atol=1e-9)
+    eps = 1e-6  # 2/√(1 − ε²) exceeds 2 by 1e-12, far above rounding
+    near = np.diag([1.0 + eps, 1.0 - eps]).astype(complex)  # tr/√det = 2/√(1 − ε²) > 2
+    r = float(equivalent_retardance(near))
+    assert r == 0.0
+
+
+def test_a_stack_with_an_oblique_layer_is_not_aligned():
+    """Aligned means every layer parallel or crossed to the plate's axis (|cos 2Δθ| = 1 to
+    1e-12): layers at 0° and 90° are; a layer 1e-4° off crossed (1 − |cos 2Δθ| ≈ 6e-12) or at
+    30° is not."""
+
+    def plate(axes):
+        layers = [{"material": "quartz", "thickness_um": 20.0, "axis_deg": a} for a in axes]
+        return design_plate("stack", layers=layers, design_nm=633.0)
+
+    assert plate([0.0, 90.0]).aligned()
+    assert not plate([0.0, 90.0 - 1e-4]).aligned()
+    assert not plate([0.0, 30.0]).aligned()
+
+
+BAD_PLATES = [
+    # (construction, material, keyword arguments, the field the error must name)
+    ("multi-order", "quartz", {}, "order"),
+    ("multi-order", "quartz", {"order": 2.5}, "order"),
+    ("multi-order", "quartz", {"order": 2, "waves": 0.0}, "waves"),
+    ("zero-order", "quartz", {"waves": -0.25}, "waves"),
+    ("compound", "quartz", {}, "thick_plate"),
+    ("compound", "quartz", {"thick_plate_um": 5.0}, "thick_plate"),
+    ("compound", "quartz", {"thick_plate_um": -1.0}, "thick_plate"),
+    ("achromatic", "quartz", {}, "partner"),
+    ("achromatic", "quartz", {"partner": "quartz"}, "partner"),
+    ("achromatic", "quartz", {"partner": "mgf2", "match_nm": [500.0, 500.0]}, "match"),
+    ("film", "quartz", {}, "material"),
+    ("film", "polycarbonate", {"retardance_nm": -3.0}, "retardance"),
+    ("film", "polycarbonate", {"waves": 0.0}, "waves"),
+    ("stack", None, {"layers": []}, "layers"),
+    ("stack", None, {"layers": ["quartz"]}, "layers[0]"),
+    ("stack", None, {"layers": [{"thickness_um": 3.0}]}, "layers[0].material"),
+    ("stack", None, {"layers": [{"material": "quartz"}]}, "layers[0].thickness"),
+    (
+        "stack",
+        None,
+        {"layers": [{"material": "quartz", "thickness_um": 0.0}]},
+        "layers[0].thickness",
+    ),
+    ("spiral", "quartz", {}, "construction"),
+    ("zero-order", None, {}, "material"),
+]
+
+
+@pytest.mark.parametrize("construction, material, kw, field", BAD_PLATES)
+def test_bad_plate_input_names_the_field_and_the_fix(construction, material, kw, field):
+    """[DEVELOPERS] RetolError(field, problem, fix): the field is the one at fault, the problem
+    and the fix are said, in one line."""
+    kw = dict(kw)
+    waves = kw.pop("waves", 0.25)
+    with pytest.raises(RetolError) as info:
+        design_plate(construction, material, waves, 633.0, **kw)
+    e = info.value
+    assert e.field == field
+    assert isinstance(e.problem, str) and e.problem.strip()
+    assert isinstance(e.fix, str) and e.fix.strip()
+    assert "\n" not in str(e)
+    assert str(e).startswith(f"{field}: {e.problem}")
+
+
+QUARTZ_TOML = """
+name = "myquartz"
+kind = "positive uniaxial"
+valid_min_um = 0.4
+valid_max_um = 1.0
+source = "a test file"
+[formula]
+type = "ghosh"
+[formula.ordinary]
+A = 0.28604141
+B = 1.07044083
+C = 1.00585997e-2
+D = 1.10202242
+E = 100.0
+[formula.extraordinary]
+A = 0.28851804
+B = 1.09509924
+C = 1.02101864e-2
+D = 1.15662475
+E = 100.0
+"""
+
+
+def test_a_user_material_without_thermal_data_does_not_drift(tmp_path):
+    """README "Data sources": each file carries its thermal data; a file without a [thermal]
+    table has γ = 0 and no uncertainty (nothing is invented), its long name defaults to its
+    name and its reference temperature to 20 °C (common practice)."""
+    from tolerance.dispersion import birefringence, load_material_file
+
+    p = tmp_path / "myquartz.toml"
+    p.write_text(QUARTZ_TOML, encoding="utf-8")
+    m = load_material_file(p)
+    assert m.retardance_temperature_coefficient == 0.0
+    assert m.temperature_coefficient_uncertainty == 0.0
+    assert m.thermal_source == ""
+    assert m.long_name == "myquartz"
+    assert m.reference_temperature_c == 20.0
+    assert float(birefringence(m, 633.0, temperature_c=80.0)) == float(birefringence(m, 633.0))
+    p.write_text(
+        QUARTZ_TOML + "[thermal]\nretardance_coefficient_per_k = -1e-4\nuncertainty_per_k = 2e-5\n"
+        'source = "measured"\n',
+        encoding="utf-8",
+    )
+    m = load_material_file(p)
+    assert (m.retardance_temperature_coefficient, m.temperature_coefficient_uncertainty) == (
+        -1e-4,
+        2e-5,
+    )
+    assert m.thermal_source == "measured"
+
+
+@pytest.mark.parametrize(
+    "change, field",
+    [
+        (("valid_max_um = 1.0", "valid_max_um = 0.4"), "valid_min_um"),
+        (('type = "ghosh"', 'type = "table"'), "formula.type"),
+        (('kind = "positive uniaxial"', 'kind = "biaxial"'), "kind"),
+        (('name = "myquartz"\n', 'wavelength_unit = "nm"\nname = "myquartz"\n'), "wavelength_unit"),
+    ],
+)
+def test_bad_material_file_names_the_field_and_the_fix(tmp_path, change, field):
+    """[DEVELOPERS] an empty validity range, a formula type a file cannot carry (a table is a
+    CSV), an unknown kind or unit: a one-line RetolError naming the file's field and the fix."""
+    from tolerance.dispersion import load_material_file
+
+    p = tmp_path / "bad.toml"
+    p.write_text(QUARTZ_TOML.replace(*change), encoding="utf-8")
+    with pytest.raises(RetolError) as info:
+        load_material_file(p)
+    e = info.value
+    assert e.field == f"bad.toml: {field}"
+    assert isinstance(e.problem, str) and e.problem.strip()
+    if field != "valid_min_um":  # that one has no fix: see the xfail below
+        assert isinstance(e.fix, str) and e.fix.strip()
+
+
+@pytest.mark.xfail(
+    strict=True,
+    reason="dispersion.material_from_dict raises 'range must satisfy 0 < min < max' with no fix "
+    "(DEVELOPERS.md asks every user error for one)",
+)
+def test_an_empty_validity_range_says_the_fix(tmp_path):
+    from tolerance.dispersion import load_material_file
+
+    p = tmp_path / "bad.toml"
+    p.write_text(QUARTZ_TOML.replace("valid_max_um = 1.0", "valid_max_um = 0.4"), encoding="utf-8")
+    with pytest.raises(RetolError) as info:
+        load_material_file(p)
+    assert info.value.fix
+
+
+def test_a_measured_csv_table_is_read_as_written(tmp_path):
+    """README "Commands": a CSV of measured values (wavelength_nm and n_o, n_e, or a
+    birefringence with an optional mean index) is a material whose validity range is the
+    table's range; it has no thermal data (γ = 0, reference 20 °C: common practice) and its
+    indices at the table's own wavelengths are the table's values.  Rows 0.5 nm apart are
+    distinct rows; a comment line may be indented."""
+    from tolerance.dispersion import indices, load_material_file
+
+    p = tmp_path / "mylot.csv"
+    p.write_text(
+        "wavelength_nm,birefringence,n_mean\n  # measured on plate 7\n"
+        "600.0,0.0091,1.544\n600.5,0.0090,1.544\n700.0,0.0088,1.544\n",
+        encoding="utf-8",
+    )
+    m = load_material_file(p)
+    assert (m.valid_min_nm, m.valid_max_nm) == (600.0, 700.0)
+    n_o, n_e = indices(m, np.array([600.0, 600.5, 700.0]))
+    np.testing.assert_allclose(n_o, 1.544, rtol=1e-15)
+    np.testing.assert_allclose(n_e - n_o, [0.0091, 0.0090, 0.0088], rtol=1e-12)
+    assert m.kind == "positive uniaxial"
+    assert m.reference_temperature_c == 20.0
+    assert m.retardance_temperature_coefficient == 0.0
+    assert m.temperature_coefficient_uncertainty == 0.0
+    assert "mylot.csv" in m.source
+    assert m.long_name == "mylot"
+    assert m.path == str(p)
+    # without a mean index the loader takes n_o = 1.5 (at normal incidence only Δn matters)
+    p2 = tmp_path / "bare.csv"
+    p2.write_text("wavelength_nm,birefringence\n600,-0.17\n700,-0.16\n", encoding="utf-8")
+    m2 = load_material_file(p2)
+    n_o2, _ = indices(m2, 650.0)
+    assert float(n_o2) == 1.5
+    assert m2.kind == "negative uniaxial"
+
+
+@pytest.mark.parametrize("start, stop", [(0, 513), (0, 1), (100, 700), (512, 1025), (1023, 1024)])
+def test_draws_follow_the_documented_scheme_for_any_range(start, stop):
+    """DEVELOPERS.md "Reproducible": each (tolerance, layer) stream is Philox keyed by
+    SeedSequence(seed, spawn_key=(crc32(name), index)) with one counter block per 512 samples,
+    so samples [start, stop) are a slice of the stream whatever the range; regenerated here by
+    ``reference.ref_draws`` [Salmon2011], including ranges ending one past a block."""
+    from reference import ref_draws
+
+    from tolerance.sampler import standard_draws
+
+    z, u = standard_draws(7, "crossing_deg", 2, start, stop)
+    zr, ur = ref_draws(7, "crossing_deg", 2, stop)
+    np.testing.assert_array_equal(z, zr[start:])
+    np.testing.assert_array_equal(u, ur[start:])
+
+
+def test_no_distribution_gives_the_centre_exactly():
+    """``scaled(None, ...)``: an absent tolerance is exactly the nominal value."""
+    from tolerance.sampler import scaled
+
+    z = np.linspace(-1.0, 1.0, 5)
+    out = scaled(None, z, z, center=2.5)
+    assert out.shape == z.shape
+    assert np.all(out == 2.5)
+
+
+def test_target_waves_is_order_plus_waves():
+    """README: a multi-order plate is built for ``order + waves``, the other constructions for
+    ``waves``; an explicit stack has no target and is measured against its own nominal
+    retardance."""
+    from tolerance.environment import nominal_waves, target_waves
+
+    assert target_waves(design_plate("multi-order", "quartz", 0.25, 633.0, order=7)) == 7.25
+    assert target_waves(design_plate("zero-order", "quartz", 0.3, 633.0)) == 0.3
+    s = design_plate(
+        "stack",
+        layers=[{"material": "quartz", "thickness_um": 20.0, "axis_deg": 0.0}],
+        design_nm=633.0,
+    )
+    assert target_waves(s) == nominal_waves(s)
+    assert target_waves(s) == pytest.approx(20e3 * 0.0090449 / 633.0, rel=1e-4)
+
+
+def test_rank_ties_touching_intervals_and_equal_fidelity_steps():
+    """README "Decision": candidates whose yield intervals overlap the best one's are tied
+    (closed intervals: touching counts); among them spectral fidelities in the same 0.001 step
+    rank as equal (0.999 and 0.9994 both lie in [0.999, 0.1000)), so the wider acceptance wins;
+    a candidate alone at the top is "highest", tied ones name each other."""
+    from tolerance.decision import rank
+
+    names = ["a", "b", "c"]
+    # b's upper limit touches a's lower limit exactly: tied; c is below
+    r, why = rank(
+        names,
+        [0.9, 0.8, 0.2],
+        [0.85, 0.7, 0.1],
+        [0.95, 0.85, 0.3],
+        [0.999, 0.9994, 0.99],
+        [2.0, 5.0, 9.0],
+        [0.1, 0.1, 0.1],
+    )
+    assert list(r) == [2, 1, 3]  # b: same fidelity step, wider acceptance
+    assert "tied" in why[1] and "a" in why[1]
+    assert "below" in why[2]
+    # the same step with the wider acceptance on the exact step value 0.999 (0.999/0.001 is
+    # 998.999... in floating point: the step must still count it as 999)
+    r, _ = rank(
+        names,
+        [0.9, 0.8, 0.2],
+        [0.85, 0.7, 0.1],
+        [0.95, 0.85, 0.3],
+        [0.999, 0.9994, 0.99],
+        [5.0, 2.0, 9.0],
+        [0.1, 0.1, 0.1],
+    )
+    assert list(r) == [1, 2, 3]
+    # equal yields: the better fidelity (y) is the best; x's interval lies below y's
+    r, why = rank(["x", "y"], [0.5, 0.5], [0.1, 0.45], [0.2, 0.55], [0.9, 0.95], [1, 1], [0, 0])
+    assert list(r) == [2, 1]
+    assert why[1].startswith("pick: highest")
+
+
+def test_environment_maps_are_changes_from_the_reference_condition():
+    """README "What the results mean": the temperature map is δ(T) − δ(T_ref), zero at the
+    material's reference temperature and γ·δ·(T − T_ref) elsewhere [Etzel2000]; the tilt map's
+    azimuth is measured from the plate's fast axis, so a plate turned by 30° has the same map;
+    the acceptance half-angle's default limit is 0.01 waves."""
+    from tolerance.environment import (
+        acceptance_half_angle,
+        nominal_waves,
+        temperature_error,
+        tilt_error,
+    )
+    from tolerance.plates import plate_retardance
+
+    p = design_plate("multi-order", "quartz", 0.25, 633.0, order=5)
+    g = p.layers[0].material.retardance_temperature_coefficient
+    e = temperature_error(p, [20.0, 50.0])
+    assert e[0] == pytest.approx(0.0, abs=1e-15)
+    assert e[1] == pytest.approx(5.25 * g * 30.0, rel=1e-9)
+    turned = design_plate("multi-order", "quartz", 0.25, 633.0, order=5, axis_deg=30.0)
+    np.testing.assert_allclose(
+        tilt_error(turned, [3.0, 6.0], [0.0, 45.0, 90.0]),
+        tilt_error(p, [3.0, 6.0], [0.0, 45.0, 90.0]),
+        rtol=1e-12,
+    )
+    d = plate_retardance(turned, 633.0, aoi_deg=6.0, incidence_azimuth_deg=30.0) / (2 * np.pi)
+    assert float(tilt_error(turned, [6.0], [0.0])[0, 0]) == pytest.approx(
+        float(d) - nominal_waves(turned), rel=1e-12
+    )
+    assert acceptance_half_angle(p) == acceptance_half_angle(p, 0.01)
+
+
+def test_a_compound_plate_may_have_a_thin_second_plate():
+    """The second plate only has to be thinner than the first by the target's difference: a
+    0.5 µm second plate is a (fragile but) valid design; a zero one is not."""
+    diff = design_plate("zero-order", "quartz", 0.25, 633.0).layers[0].thickness_um
+    p = design_plate("compound", "quartz", 0.25, 633.0, thick_plate_um=diff + 0.5)
+    assert p.layers[1].thickness_um == pytest.approx(0.5, rel=1e-9)
+    with pytest.raises(RetolError):
+        design_plate("compound", "quartz", 0.25, 633.0, thick_plate_um=diff)
