@@ -160,6 +160,24 @@ def layer_optics(plate: Plate, wl: np.ndarray) -> WavelengthOptics:
     )
 
 
+def face_optics(plate: Plate, faces, air_gap: bool, wl: np.ndarray):
+    """The faces kernel's :class:`~tolerance.kernel_faces.FaceOptics` at wavelengths ``wl``."""
+    from .etalon import face_reflectance
+    from .kernel_faces import face_arrays
+
+    n = [indices(la.material, wl, extrapolate=True) for la in plate.layers]
+    n_o = np.stack([a for a, _ in n], axis=-1)
+    n_e = np.stack([b for _, b in n], axis=-1)
+    return face_arrays(
+        n_o,
+        n_e,
+        face_reflectance(faces, np.minimum(n_o, n_e)),
+        face_reflectance(faces, np.maximum(n_o, n_e)),
+        plate.signs(),
+        air_gap,
+    )
+
+
 def line_optics(plate: Plate, spectrum, drift) -> LineOptics:
     """Line optics of shape (Ssrc, K[, L]); per sample when the laser drifts."""
     lines_nm = spectrum.lines_nm
@@ -570,6 +588,22 @@ class Engine:
             )
         keep = keep_out is not None
         kept = keep_out if keep else np.zeros((1, N_VAR, 1), dtype=np.float32)
+        if not case.candidate.face_model.ideal:
+            from .kernel_faces import chunk_pass_faces
+
+            lines_nm = self.spectrum.lines_nm if self.spectrum.lines_nm.size else np.full(1, 1000.0)
+            chunk_pass_faces(
+                optics,
+                self._faces(case, self.grid),
+                np.array(self.spectrum.grid_weight, dtype=float),
+                line_optics(case.plate, self.spectrum, extra["drift"]),
+                self._faces(case, np.asarray(lines_nm, dtype=float)),
+                inputs,
+                Target(case.plate.signs(), case.goal, self.metric_code, case.w_design),
+                stats,
+                SampleOutputs(worst, spec_st, des_st, keep, kept),
+            )
+            return worst, spec_st, des_st
         chunk_pass(
             optics,
             np.array(self.spectrum.grid_weight, dtype=float),
@@ -580,6 +614,16 @@ class Engine:
             SampleOutputs(worst, spec_st, des_st, keep, kept),
         )
         return worst, spec_st, des_st
+
+    def _faces(self, case: Case, wl):
+        """Face optics of a case's plate at ``wl`` (cached like :meth:`optics`)."""
+        cand = case.candidate
+        key = ("faces", id(case.plate), cand.face_model, cand.air_gap, wl.size, float(wl[0]))
+        hit = self._optics.get(key)
+        if hit is None or hit[0] is not case.plate:
+            hit = (case.plate, face_optics(case.plate, cand.face_model, cand.air_gap, wl))
+            self._optics[key] = hit
+        return hit[1]
 
     def _stats(self, acc, n, do_hist, ret_shift, lo=None, iw=None) -> Statistics:
         n_blocks = (n + sampler.BLOCK - 1) // sampler.BLOCK
@@ -621,8 +665,22 @@ class Engine:
         optics = self.optics(case.plate)
         one = first_sample(inputs)
         values = np.empty((N_VAR, W))
-        per_wavelength_values(optics, one, case.plate.signs(), case.goal, self.metric_code, values)
         stokes = np.empty((W, 3))
+        if not case.candidate.face_model.ideal:
+            from .kernel_faces import values_one_faces
+
+            values_one_faces(
+                optics,
+                self._faces(case, self.grid),
+                one,
+                case.plate.signs(),
+                case.goal,
+                self.metric_code,
+                values,
+                stokes,
+            )
+            return Nominal(values, stokes, float(worst[0]), spec_st[0], des_st[0])
+        per_wavelength_values(optics, one, case.plate.signs(), case.goal, self.metric_code, values)
         stokes_one(optics, one, case.plate.signs(), stokes)
         return Nominal(values, stokes, float(worst[0]), spec_st[0], des_st[0])
 

@@ -73,6 +73,8 @@ CANDIDATE_KEYS = (
     "axis_deg",
     *CONSTRUCTION_KEYS,
     "tolerances",
+    "faces",
+    "air_gap",
 )
 RUN_KEYS = (
     "samples",
@@ -403,7 +405,23 @@ def _candidate(ctx: _Ctx, c, i: int, default_design) -> Candidate:
         tol, at_nm = _tolerances(ctx, t, f"{where}tolerances")
     else:
         at_nm = None
+    faces = None
+    if "faces" in c:
+        from .etalon import parse_faces
+
+        try:
+            faces = parse_faces(c["faces"], f"{where}faces")
+        except RetolError as exc:
+            raise ctx.err(exc.field, exc.problem, exc.fix) from None
+        faces = None if faces.ideal else faces
+    air_gap = c.get("air_gap", False)
+    if not isinstance(air_gap, bool):
+        raise ctx.err(
+            f"{where}air_gap", f"must be true or false, got {air_gap!r}", "air_gap = true"
+        )
     cand = Candidate(
+        faces=faces,
+        air_gap=air_gap,
         name=name,
         construction=cons,
         material=material,
@@ -771,6 +789,9 @@ def _raw_candidate(c: dict) -> dict:
         ]
     if "tolerances" in c:
         out["tolerances"] = {k: _raw_distribution(v) for k, v in c["tolerances"].items()}
+    for k in ("faces", "air_gap"):
+        if k in c:
+            out[k] = c[k]
     return out
 
 

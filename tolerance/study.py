@@ -154,6 +154,17 @@ class Candidate:
     plate: object = field(default=None, compare=False, repr=False)
     #: The test wavelength of this candidate's own ``retardance_waves`` override. [nm]
     retardance_at_nm: float | None = None
+    #: The plate's faces (:class:`tolerance.etalon.Faces`); None means ideal (no reflections).
+    faces: object = None
+    #: Layers separated by air gaps (each its own etalon) instead of cemented.
+    air_gap: bool = False
+
+    @property
+    def face_model(self):
+        """The faces as a :class:`tolerance.etalon.Faces` (ideal when not given)."""
+        from .etalon import IDEAL
+
+        return self.faces if self.faces is not None else IDEAL
 
     def design_keys(self) -> dict:
         """The construction's own keywords for :func:`tolerance.plates.design_plate`."""
@@ -191,6 +202,10 @@ class Candidate:
             d[k] = v
         if self.tolerances:
             d["tolerances"] = _tolerance_dicts(self.tolerances, self.retardance_at_nm)
+        if self.faces is not None:  # ideal faces are left out: older stored specs stay equal
+            d["faces"] = self.faces.to_spec()
+        if self.air_gap:
+            d["air_gap"] = True
         return d
 
 
