@@ -13,8 +13,9 @@ import numpy as np
 import pytest
 
 import tolerance
+from tolerance.equivalent import coherency_matrix
 from tolerance.errors import RetolError
-from tolerance.etalon import plate_jones_faces
+from tolerance.etalon import FringeWarning, plate_jones_faces
 from tolerance.montecarlo import Engine
 from tolerance.polarization import jones_to_stokes, linear_jones
 from tolerance.spec import loads
@@ -120,6 +121,14 @@ def test_spec_round_trip(study):
 def test_run_with_faces(study):
     ds = tolerance.run(study, samples=2000, seed=3)
     assert np.all(np.isfinite(ds["yield"].values))
+    m = ds["nominal_mueller"]
+    assert m.dims == ("candidate", "wavelength", "mueller_row", "mueller_column")
+    assert m.shape[-2:] == (4, 4)
+    # Cloude (Optik 75, 26 (1986)): the source average is realizable; Gil & Bernabeu: DI <= 1
+    ev = np.linalg.eigvalsh(coherency_matrix(ds["nominal_broadband_mueller"].values))
+    assert np.all(ev > -1e-12)
+    di = ds["nominal_depolarization_index"].values
+    assert np.all((di > 0) & (di <= 1 + 1e-12))
 
 
 @pytest.mark.parametrize(
@@ -135,3 +144,9 @@ def test_bad_faces_in_spec(line, field):
     with pytest.raises(RetolError) as e:
         loads(text)
     assert field in e.value.field
+
+
+def test_coarse_grid_warns_about_fringes():
+    # fringe period of the 300 um compound pair 0.22 nm at 633 nm: a 0.25 nm step is coarse
+    with pytest.warns(FringeWarning, match="undersamples"):
+        loads(SPEC)

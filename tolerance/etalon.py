@@ -197,6 +197,50 @@ def fringe_period_nm(wavelength_nm, index, thickness_um):
     return lam**2 / (2.0 * np.asarray(index) * np.asarray(thickness_um) * 1e3)
 
 
+class FringeWarning(UserWarning):
+    """The wavelength grid is too coarse for the fringes of a plate with reflecting faces."""
+
+
+#: Grid points per fringe period needed to resolve the fringes (common practice: a sampled
+#: sinusoid's extremes are caught to within 1 − cos(π/8) ≈ 8 % of its swing at 8 points).
+POINTS_PER_FRINGE = 8
+
+
+def finest_fringe_nm(plate, faces: Faces, air_gap: bool, wavelength_nm: float) -> float:
+    """Shortest fringe period λ²/(2·n·d) of a plate's cavities at a wavelength. [nm]
+
+    One cavity of the whole (cemented) stack, or one per layer with an air gap; n is the
+    larger index of each layer.  ``inf`` for ideal faces.
+    """
+    from .dispersion import indices
+
+    if faces.ideal:
+        return float("inf")
+    optical = [
+        float(np.max(indices(la.material, wavelength_nm, extrapolate=True))) * la.thickness_um
+        for la in plate.layers
+    ]
+    nd = max(optical) if air_gap else sum(optical)
+    return float(wavelength_nm) ** 2 / (2.0 * nd * 1e3)
+
+
+def check_fringe_sampling(plate, faces, air_gap, step_nm, wavelength_nm, where="faces"):
+    """Warn (:class:`FringeWarning`) when the grid step exceeds 1/:data:`POINTS_PER_FRINGE`
+    of the plate's fringe period; returns that period. [nm]"""
+    import warnings
+
+    period = finest_fringe_nm(plate, faces, air_gap, wavelength_nm)
+    if step_nm > period / POINTS_PER_FRINGE:
+        warnings.warn(
+            f"{where}: the wavelength step {step_nm:g} nm undersamples the faces' fringes "
+            f"(period {period:.3g} nm at {wavelength_nm:g} nm); for a narrow source use a step "
+            f"of at most {period / POINTS_PER_FRINGE:.3g} nm",
+            FringeWarning,
+            stacklevel=3,
+        )
+    return period
+
+
 # ----------------------------------------------------------------------------- Jones matrices
 
 

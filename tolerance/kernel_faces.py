@@ -31,15 +31,18 @@ import numpy as np
 from .kernel import (
     _AR,
     _AZ,
+    _H,
     _M,
     _OPTS,
     _RET,
     _RW,
     _XI,
     _XR,
+    _YI,
     _YR,
     N_VAR,
     N_WORK,
+    SINCOS_LIMIT,
     _atan2,
     _band_summary,
     _fold_sample,
@@ -47,6 +50,7 @@ from .kernel import (
     _metric_row,
     _observable_rows,
     _scatter_block,
+    _sincos,
     _sincos_any,
 )
 
@@ -79,6 +83,22 @@ def _airy(phi2, rho, tau):
     re = g * (1.0 - rho * c)
     im = g * rho * s
     return re, im, _atan2(rho * s, 1.0 - rho * c)
+
+
+@nb.njit(inline="always", **_OPTS)
+def _airy_pair(phi2a, phi2b, ra, ta, rb, tb):
+    """Airy factors of two waves and their phase difference ε_b − ε_a (one arc tangent:
+    arg of (1 − ρ_b e^{−iφ₂b})·conj(1 − ρ_a e^{−iφ₂a}), each of positive real part)."""
+    sa_, ca_ = _sincos(phi2a)
+    sb_, cb_ = _sincos(phi2b)
+    nra = 1.0 - ra * ca_
+    nia = ra * sa_
+    nrb = 1.0 - rb * cb_
+    nib = rb * sb_
+    ga = ta / (nra * nra + nia * nia)
+    gb = tb / (nrb * nrb + nib * nib)
+    d = _atan2(nib * nra - nrb * nia, nrb * nra + nib * nia)
+    return ga * nra, ga * nia, gb * nrb, gb * nib, d
 
 
 @nb.njit(inline="always", **_OPTS)
@@ -168,13 +188,12 @@ def _one_wavelength(
 
 
 @nb.njit(inline="always", **_OPTS)
-def _spectrum_faces(optics, faces, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, work):
-    """One sample's normalised Stokes into work rows _XR, _XI, _YR and retardance into _RET."""
+def _spectrum_scalar(optics, faces, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, work):
+    """:func:`_spectrum_faces` one wavelength at a time (huge phases: the C library's sine)."""
     k0, no2, ne2, rat, dn = optics
     nbar, rho_f, tau_f, rho_s, tau_s, sgn, air_gap = faces
-    W = k0.shape[0]
     L = thick.shape[0]
-    for w in range(W):
+    for w in range(k0.shape[0]):
         st1, st2, st3, ret = _one_wavelength(
             k0[w], no2[w], ne2[w], rat[w], dn[w], nbar[w], rho_f[w], tau_f[w], rho_s[w],
             tau_s[w], sgn, air_gap, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, L,
@@ -183,6 +202,149 @@ def _spectrum_faces(optics, faces, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca,
         work[_XI, w] = st2
         work[_YR, w] = st3
         work[_RET, w] = ret
+
+
+@nb.njit(inline="always", **_OPTS)
+def _spectrum_faces(
+    optics, faces, tr, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, work
+):  # fmt: skip
+    """One sample's normalised Stokes into work rows _XR, _XI, _YR and retardance into _RET.
+
+    ``tr`` holds the (L, W) transposes of the optics and faces arrays (no2, ne2, rat, dn, nbar,
+    rho_f, tau_f, rho_s, tau_s), so that every loop over wavelength runs on contiguous rows and
+    vectorizes; rows _RW and _AR (filled only later) hold the accumulated mean phase and
+    relative retardance of cemented layers, row _H the half-retardance.
+    """
+    k0 = optics[0]
+    sgn = faces[5]
+    air_gap = faces[6]
+    no2T, ne2T, ratT, dnT, nbT, rfT, tfT, rsT, tsT = tr
+    W = k0.shape[0]
+    L = thick.shape[0]
+    xr = work[_XR]
+    xi = work[_XI]
+    yr = work[_YR]
+    yi = work[_YI]
+    hh = work[_H]
+    ret = work[_RET]
+    phi = work[_RW]
+    drel = work[_AR]
+    big = 0.0
+    for w in range(W):
+        xr[w] = ca
+        xi[w] = 0.0
+        yr[w] = sa
+        yi[w] = 0.0
+        ret[w] = 0.0
+        phi[w] = 0.0
+        drel[w] = 0.0
+    for l in range(L):
+        th = thick[l]
+        tf = tfac[l]
+        pj = proj[l]
+        sg = sgn[l]
+        C = c2[l]
+        S = s2[l]
+        no2l = no2T[l]
+        ne2l = ne2T[l]
+        ratl = ratT[l]
+        dnl = dnT[l]
+        nbl = nbT[l]
+        sp = sphi2[l]
+        cp = cphi2[l]
+        if sin2i == 0.0:
+            # mean = k0·d·n̄ and delta as the ideal kernel (hoisted branches: loops vectorize)
+            for w in range(W):
+                kt = k0[w] * th
+                delta = kt * abs(dnl[w]) * tf
+                mean = kt * nbl[w]
+                ret[w] += pj * delta
+                hh[w] = 0.5 * delta
+                phi[w] = mean if air_gap else phi[w] + mean
+                drel[w] += sg * delta
+                big = max(big, abs(mean) + abs(delta))
+        else:
+            for w in range(W):
+                delta, mean = _face_layer(
+                    k0[w], th, tf, sin2i, no2l[w], ne2l[w], ratl[w], dnl[w], sp, cp, nbl[w]
+                )
+                ret[w] += pj * delta
+                hh[w] = 0.5 * delta
+                phi[w] = mean if air_gap else phi[w] + mean
+                drel[w] += sg * delta
+                big = max(big, abs(mean) + abs(delta))
+        if big >= 0.25 * SINCOS_LIMIT:
+            _spectrum_scalar(
+                optics, faces, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, work
+            )
+            return
+        for w in range(W):
+            s, c = _sincos(hh[w])
+            a = xr[w]
+            b = xi[w]
+            e = yr[w]
+            f = yi[w]
+            ur = C * a + S * e
+            ui = C * b + S * f
+            vr = S * a - C * e
+            vi = S * b - C * f
+            xr[w] = c * a + s * ui
+            xi[w] = c * b - s * ur
+            yr[w] = c * e + s * vi
+            yi[w] = c * f - s * vr
+        if air_gap:
+            rfl = rfT[l]
+            tfl = tfT[l]
+            rsl = rsT[l]
+            tsl = tsT[l]
+            for w in range(W):
+                ar, ai, br, bi, de = _airy_pair(
+                    2.0 * phi[w] - 2.0 * hh[w],
+                    2.0 * phi[w] + 2.0 * hh[w],
+                    rfl[w],
+                    tfl[w],
+                    rsl[w],
+                    tsl[w],
+                )
+                xr[w], xi[w], yr[w], yi[w] = _apply_diag(
+                    xr[w], xi[w], yr[w], yi[w], C, S, ar, ai, br, bi
+                )
+                ret[w] += pj * de
+    if not air_gap:
+        rf0 = rfT[0]
+        tf0 = tfT[0]
+        rs0 = rsT[0]
+        ts0 = tsT[0]
+        C = c2[0]
+        S = s2[0]
+        p0 = proj[0]
+        for w in range(W):
+            ar, ai, br, bi, de = _airy_pair(
+                2.0 * phi[w] - drel[w], 2.0 * phi[w] + drel[w], rf0[w], tf0[w], rs0[w], ts0[w]
+            )
+            xr[w], xi[w], yr[w], yi[w] = _apply_diag(
+                xr[w], xi[w], yr[w], yi[w], C, S, ar, ai, br, bi
+            )
+            ret[w] += p0 * de
+    for w in range(W):
+        a = xr[w]
+        b = xi[w]
+        e = yr[w]
+        f = yi[w]
+        inv = 1.0 / (a * a + b * b + e * e + f * f)
+        xr[w] = (a * a + b * b - e * e - f * f) * inv
+        xi[w] = 2.0 * (a * e + b * f) * inv
+        yr[w] = 2.0 * (b * e - a * f) * inv
+
+
+@nb.njit(inline="always", **_OPTS)
+def _transposes(optics, faces):
+    """The (L, W) contiguous transposes :func:`_spectrum_faces` reads."""
+    c = np.ascontiguousarray
+    return (
+        c(optics[1].T), c(optics[2].T), c(optics[3].T), c(optics[4].T), c(faces[0].T),
+        c(faces[1].T), c(faces[2].T), c(faces[3].T), c(faces[4].T),
+    )  # fmt: skip
 
 
 @nb.njit(inline="always", **_OPTS)
@@ -215,7 +377,8 @@ def values_one_faces(optics, faces, sample, proj, goal, metric_kind, out, stokes
     thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa = sample
     W = optics[0].shape[0]
     work = np.empty((N_WORK, W))
-    _spectrum_faces(optics, faces, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, work)
+    tr = _transposes(optics, faces)
+    _spectrum_faces(optics, faces, tr, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, work)
     _metric_row(work, goal[0], goal[1], goal[2], metric_kind)
     for w in range(W):
         stokes[w, 0] = work[_XR, w]
@@ -248,6 +411,7 @@ def chunk_pass_faces(optics, faces, grid_weight, lines, line_faces, samples, tar
     per_t = (n_blocks + T - 1) // T
     if do_hist and B > 65536:
         raise ValueError("at most 65536 histogram bins")
+    tr = _transposes(optics, faces)
     for t in nb.prange(T):
         b0 = t * per_t
         b1 = min(n_blocks, b0 + per_t)
@@ -264,7 +428,7 @@ def chunk_pass_faces(optics, faces, grid_weight, lines, line_faces, samples, tar
             bs1 = block_sums[b, :, 1]
             for s in range(s_lo, s_hi):
                 _spectrum_faces(
-                    optics, faces, thick[s], tfac[s], c2[s], s2[s], sin2i[s], cphi2[s],
+                    optics, faces, tr, thick[s], tfac[s], c2[s], s2[s], sin2i[s], cphi2[s],
                     sphi2[s], ca[s], sa[s], proj, work,
                 )  # fmt: skip
                 _metric_row(work, g1, g2, g3, metric_kind)

@@ -692,7 +692,19 @@ def validate(raw: dict, path: str = "<spec>", base_dir=None, source_text=None) -
     )
     _check_ranges(study)
     _check_retardance_at(ctx, study)
+    _check_fringes(study)
     return study
+
+
+def _check_fringes(study: Study) -> None:
+    """Warn when the grid undersamples the fringes of a candidate with reflecting faces."""
+    from .etalon import check_fringe_sampling
+
+    step = study.wavelength.step_nm
+    for c in study.candidates:
+        if c.faces is not None:
+            where = f"{study.file_name}: [[candidate]] {c.name!r}.faces"
+            check_fringe_sampling(c.plate, c.faces, c.air_gap, step, c.plate.design_nm, where)
 
 
 def _check_ranges(study: Study) -> None:
