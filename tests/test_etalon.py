@@ -180,6 +180,7 @@ def test_fringe_period():
         ({"reflectance": float("nan")}, "faces.reflectance"),
         ({"reflect": 0.01}, "faces"),
         (True, "faces"),
+        ("1.2", "faces.reflectance"),
     ],
 )
 def test_bad_faces(value, field):

@@ -83,9 +83,11 @@ def parse_faces(value, field: str = "faces") -> Faces:
         if v in ("ideal", "uncoated"):
             return Faces(v)
         try:
-            return parse_faces(float(v), field)
+            number = float(v)
         except ValueError:
-            pass
+            number = None
+        if number is not None:
+            return parse_faces(number, field)
         raise RetolError(
             field, f"unknown faces {value!r}", 'use "ideal", "uncoated" or { reflectance = 0.0025 }'
         )
