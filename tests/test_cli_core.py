@@ -6,7 +6,7 @@ Sources
     here to check the printed indices.
 [Hecht] E. Hecht, Optics (Addison-Wesley), table of uniaxial crystal indices at 589.3 nm
     (quartz 1.5443 / 1.5534; from memory).
-[Etzel2000] H. J. Etzel, R. C. Rose, Y. Wang, Appl. Opt. 39, 5796-5800 (2000): quartz
+[Etzel2000] S. M. Etzel, A. Rose, E. Wang, Appl. Opt. 39, 5796-5800 (2000): quartz
     gamma = -1.23e-4 /K.
 [derived] Hand-derived results, as in test_retardance.py and test_polarization.py: a quarter-wave
     plate with fast axis theta and linear input alpha (0 < theta - alpha < 45) gives an ellipse on

@@ -8,7 +8,7 @@ in the JSON are checked against the saved grid, not against the engine.
 Sources
 -------
 - notes/GRID.md (this project's results-grid schema).
-- H. J. Etzel, R. C. Rose, Y. Wang, Appl. Opt. 39, 5796-5800 (2000): quartz retardance
+- S. M. Etzel, A. Rose, E. Wang, Appl. Opt. 39, 5796-5800 (2000): quartz retardance
   temperature coefficient about -1.23e-4 /K (recalled from memory, as carried by
   materials/quartz.toml).
 """

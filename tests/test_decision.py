@@ -6,7 +6,7 @@ check that the ranking follows the physics of the constructions, and that the en
 
 Sources
 -------
-[Etzel2000] H. J. Etzel, R. C. Rose, Y. Wang, "Dispersion of the temperature dependence of the
+[Etzel2000] S. M. Etzel, A. Rose, E. Wang, "Dispersion of the temperature dependence of the
     retardance in SiO2 and MgF2," Appl. Opt. 39, 5796-5800 (2000): relative temperature
     coefficient of retardance gamma = (1/d) dd/dT of quartz, -1.23e-4 /K (value from memory, as
     carried by materials/quartz.toml); MgF2 -5.37e-5 /K (from memory, materials/mgf2.toml).

@@ -5,7 +5,7 @@ Sources
 - J. M. Beckers, "Achromatic linear retarders," Appl. Opt. 10, 973-975 (1971): a two-crystal
   achromat with crossed axes is exact at two wavelengths λ₁, λ₂ when
   d₁·Δn₁(λᵢ) − d₂·Δn₂(λᵢ) = R·λᵢ (i = 1, 2), a 2×2 linear system in d₁, d₂.
-- H. J. Etzel, R. C. Rose, Y. Wang, Appl. Opt. 39, 5796-5800 (2000): each crystal's relative
+- S. M. Etzel, A. Rose, E. Wang, Appl. Opt. 39, 5796-5800 (2000): each crystal's relative
   temperature coefficient of retardance γ (quartz about −1.23e-4 /K, MgF2 about −5.37e-5 /K, as
   the material files carry them); δ(T) = δ(T_ref)·(1 + γ·(T − T_ref)), so two crossed plates are
   athermal when γ₁·δ₁ = γ₂·δ₂.

@@ -8,7 +8,7 @@ Sources
 -------
 - E. B. Wilson, "Probable inference, the law of succession, and statistical inference,"
   J. Am. Stat. Assoc. 22, 209-212 (1927): the score interval of a binomial proportion.
-- H. J. Etzel, R. C. Rose, Y. Wang, "Dispersion of the temperature dependence of the retardance
+- S. M. Etzel, A. Rose, E. Wang, "Dispersion of the temperature dependence of the retardance
   in SiO2 and MgF2," Appl. Opt. 39, 5796-5800 (2000): relative temperature coefficient of the
   retardance of quartz, about -1.23e-4 /K as carried by materials/quartz.toml (the value is
   recalled from memory, not re-read from the paper).

@@ -7,7 +7,7 @@ Sources
 [Beckers1972] J. M. Beckers, Appl. Opt. 11, 681 (1972): the field-of-view change of a retarder's
     retardance is second order in the birefringence for a plane of incidence near 45 deg to the
     optic axis.
-[Etzel2000] H. J. Etzel, R. C. Rose, Y. Wang, Appl. Opt. 39, 5796-5800 (2000): relative
+[Etzel2000] S. M. Etzel, A. Rose, E. Wang, Appl. Opt. 39, 5796-5800 (2000): relative
     temperature coefficient of retardance of crystal quartz, gamma = -1.23e-4 /K.
 [Ghosh1999] G. Ghosh, Opt. Commun. 163, 95-102 (1999): quartz dispersion coefficients.
 [derived] Derived by hand for this suite: the plane-wave dispersion relations of a uniaxial

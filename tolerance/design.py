@@ -41,7 +41,7 @@ References
    Sci. A 41, 130-136 (1955).
 .. [4] C. J. Koester, "Achromatic combinations of half-wave plates," J. Opt. Soc. Am. 49,
    405-409 (1959).
-.. [5] H. J. Etzel, R. C. Rose, Y. Wang, Appl. Opt. 39, 5796-5800 (2000) (temperature
+.. [5] S. M. Etzel, A. Rose, E. Wang, Appl. Opt. 39, 5796-5800 (2000) (temperature
    coefficients of retardance).
 """
 

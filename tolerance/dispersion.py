@@ -181,7 +181,7 @@ def birefringence(material: Material, wavelength_nm, temperature_c=None, extrapo
     References
     ----------
     .. [1] G. Ghosh, Opt. Commun. 163, 95-102 (1999).
-    .. [2] H. J. Etzel, R. C. Rose, Y. Wang, Appl. Opt. 39, 5796-5800 (2000).
+    .. [2] S. M. Etzel, A. Rose, E. Wang, Appl. Opt. 39, 5796-5800 (2000).
 
     Examples
     --------

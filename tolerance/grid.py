@@ -126,6 +126,19 @@ SCHEMA: dict[str, Var] = {
     "nominal_worst": Var(_C, "{mu}", "error-free worst {mlong} in band"),
     "nominal_spectral_metric": Var(_C, "{mu}", "error-free source-weighted {mlong}"),
     "nominal_dop": Var(_C, "1", "degree of polarization of the error-free output over the source"),
+    "nominal_mueller": Var(
+        ("candidate", "wavelength", "mueller_row", "mueller_column"),
+        "1",
+        "error-free Mueller matrix of the plate (faces included)",
+    ),
+    "nominal_broadband_mueller": Var(
+        ("candidate", "mueller_row", "mueller_column"),
+        "1",
+        "error-free source-weighted Mueller matrix of the plate (faces included)",
+    ),
+    "nominal_depolarization_index": Var(
+        _C, "1", "Gil-Bernabeu depolarization index of the source-weighted Mueller matrix"
+    ),
     "nominal_spectral_fidelity": Var(
         _C, "1", "error-free source-averaged fidelity to the goal (unpolarized part counted)"
     ),
@@ -215,6 +228,8 @@ COORDS: dict[str, Var] = {
     "tolerance_name": Var(("tolerance_name",), "", "tolerance name"),
     "stokes": Var(("stokes",), "", "normalised Stokes component"),
     "layer": Var(("layer",), "1", "layer index (light meets 0 first)"),
+    "mueller_row": Var(("mueller_row",), "1", "Mueller matrix row (output Stokes S0..S3)"),
+    "mueller_column": Var(("mueller_column",), "1", "Mueller matrix column (input Stokes S0..S3)"),
     "temperature": Var(("temperature",), "degC", "plate temperature"),
     "tilt": Var(("tilt",), "deg", "angle of incidence"),
     "tilt_azimuth": Var(
@@ -302,6 +317,29 @@ def _nominal_values(cases, results) -> dict:
                 for r, c in zip(results, cases, strict=True)
             ]
         ),
+    }
+
+
+def _mueller_values(eng, cases) -> dict:
+    """Each candidate's error-free Mueller matrix on the grid, its source-weighted mean (grid
+    cells and lines) and that mean's depolarization index (:mod:`tolerance.equivalent`)."""
+    from .equivalent import broadband_mueller, depolarization_index, plate_mueller
+    from .sources import sample_points
+
+    wl_s, w_s = sample_points(eng.spectrum)
+    t = eng.study.environment.temperature_c
+    grid, bb = [], []
+    for c in cases:
+        cand = c.candidate
+        args = (cand.face_model, cand.air_gap)
+        grid.append(plate_mueller(c.plate, eng.grid, *args, temperature_c=t, extrapolate=True))
+        m = plate_mueller(c.plate, wl_s, *args, temperature_c=t, extrapolate=True)
+        bb.append(broadband_mueller(m, w_s))
+    bb = np.stack(bb)
+    return {
+        "nominal_mueller": np.stack(grid),
+        "nominal_broadband_mueller": bb,
+        "nominal_depolarization_index": depolarization_index(bb),
     }
 
 
@@ -546,6 +584,7 @@ def to_dataset(eng, results, tol_keys) -> xr.Dataset:
         **_yield_values(short_results, tol_names),
         **_environment_values(study, cases, temps, tilts, azs),
         **_explain_values(results, tol_keys),
+        **_mueller_values(eng, cases),
     }
     values.update(_decision_values(names, results, values))
     values.update(_goal_values(study, values))
@@ -567,6 +606,8 @@ def to_dataset(eng, results, tol_keys) -> xr.Dataset:
         "tolerance_name": np.array(tol_names, dtype=object),
         "stokes": np.array(["s1", "s2", "s3"], dtype=object),
         "layer": np.arange(L),
+        "mueller_row": np.arange(4),
+        "mueller_column": np.arange(4),
         "temperature": temps,
         "tilt": tilts,
         "tilt_azimuth": azs,

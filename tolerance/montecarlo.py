@@ -160,6 +160,24 @@ def layer_optics(plate: Plate, wl: np.ndarray) -> WavelengthOptics:
     )
 
 
+def face_optics(plate: Plate, faces, air_gap: bool, wl: np.ndarray):
+    """The faces kernel's :class:`~tolerance.kernel_faces.FaceOptics` at wavelengths ``wl``."""
+    from .etalon import face_reflectance
+    from .kernel_faces import face_arrays
+
+    n = [indices(la.material, wl, extrapolate=True) for la in plate.layers]
+    n_o = np.stack([a for a, _ in n], axis=-1)
+    n_e = np.stack([b for _, b in n], axis=-1)
+    return face_arrays(
+        n_o,
+        n_e,
+        face_reflectance(faces, np.minimum(n_o, n_e)),
+        face_reflectance(faces, np.maximum(n_o, n_e)),
+        plate.signs(),
+        air_gap,
+    )
+
+
 def line_optics(plate: Plate, spectrum, drift) -> LineOptics:
     """Line optics of shape (Ssrc, K[, L]); per sample when the laser drifts."""
     lines_nm = spectrum.lines_nm
@@ -501,6 +519,7 @@ class Engine:
             self.draws = Draws(self.seed)
         self.metric_code = METRICS[study.goal.metric]
         self._optics: dict = {}
+        _check_faces_input(study)
         self.cases = tuple(self.case(i) for i in range(len(study.candidates)))
         #: a dask.distributed client (see :mod:`tolerance.cluster`), or None to run here
         self.client = client
@@ -631,6 +650,22 @@ class Engine:
             )
         keep = keep_out is not None
         kept = keep_out if keep else np.zeros((1, N_VAR, 1), dtype=np.float32)
+        if not case.candidate.face_model.ideal:
+            from .kernel_faces import chunk_pass_faces
+
+            lines_nm = self.spectrum.lines_nm if self.spectrum.lines_nm.size else np.full(1, 1000.0)
+            chunk_pass_faces(
+                optics,
+                self._faces(case, self.grid),
+                np.array(self.spectrum.grid_weight, dtype=float),
+                line_optics(case.plate, self.spectrum, extra["drift"]),
+                self._faces(case, np.asarray(lines_nm, dtype=float)),
+                inputs,
+                Target(case.plate.signs(), case.goal, self.metric_code, case.w_design),
+                stats,
+                SampleOutputs(worst, spec_st, des_st, keep, kept),
+            )
+            return worst, spec_st, des_st
         chunk_pass(
             optics,
             np.array(self.spectrum.grid_weight, dtype=float),
@@ -641,6 +676,16 @@ class Engine:
             SampleOutputs(worst, spec_st, des_st, keep, kept),
         )
         return worst, spec_st, des_st
+
+    def _faces(self, case: Case, wl):
+        """Face optics of a case's plate at ``wl`` (cached like :meth:`optics`)."""
+        cand = case.candidate
+        key = ("faces", id(case.plate), cand.face_model, cand.air_gap, wl.size, float(wl[0]))
+        hit = self._optics.get(key)
+        if hit is None or hit[0] is not case.plate:
+            hit = (case.plate, face_optics(case.plate, cand.face_model, cand.air_gap, wl))
+            self._optics[key] = hit
+        return hit[1]
 
     def _stats(self, acc, n, do_hist, ret_shift, lo=None, iw=None) -> Statistics:
         n_blocks = (n + sampler.BLOCK - 1) // sampler.BLOCK
@@ -682,8 +727,22 @@ class Engine:
         optics = self.optics(case.plate)
         one = first_sample(inputs)
         values = np.empty((N_VAR, W))
-        per_wavelength_values(optics, one, case.plate.signs(), case.goal, self.metric_code, values)
         stokes = np.empty((W, 3))
+        if not case.candidate.face_model.ideal:
+            from .kernel_faces import values_one_faces
+
+            values_one_faces(
+                optics,
+                self._faces(case, self.grid),
+                one,
+                case.plate.signs(),
+                case.goal,
+                self.metric_code,
+                values,
+                stokes,
+            )
+            return Nominal(values, stokes, float(worst[0]), spec_st[0], des_st[0])
+        per_wavelength_values(optics, one, case.plate.signs(), case.goal, self.metric_code, values)
         stokes_one(optics, one, case.plate.signs(), stokes)
         return Nominal(values, stokes, float(worst[0]), spec_st[0], des_st[0])
 
@@ -865,6 +924,19 @@ class Engine:
                 if progress:
                     progress(n_sens)
         return alone, without, full, nominal_pass, n_sens, p05_full, margin
+
+
+def _check_faces_input(study: Study) -> None:
+    """Plates with faces are modelled for a linear, fully polarized input only (so far)."""
+    inp = study.input
+    plain = inp.ellipticity_deg == 0 and inp.dop == 1 and inp.extinction_db is None
+    faced = [c.name for c in study.candidates if not c.face_model.ideal]
+    if faced and not plain:
+        raise RetolError(
+            f"[[candidate]] {faced[0]!r}.faces",
+            "a plate with faces is modelled for a linear, fully polarized [input] only",
+            "use faces = \"ideal\" here, or a plain linear [input]",
+        )
 
 
 def _main_task(sample_range, eng: Engine, case: Case, setup) -> dict:

@@ -685,6 +685,37 @@ def _override_words(spec) -> list[str]:
     return out
 
 
+def _faces_words(spec: dict) -> str:
+    """The faces assumption: ideal by default; each candidate with faces named."""
+    cands = spec.get("candidates") if isinstance(spec.get("candidates"), list) else []
+    named = []
+    for c in cands:
+        f = c.get("faces") if isinstance(c, dict) else None
+        if f is None:
+            continue
+        kind = (
+            "uncoated (Fresnel reflectance of each eigenwave's own index)"
+            if f == "uncoated"
+            else f"coated, {100 * float(f['reflectance']):g} % power reflectance per face"
+        )
+        gap = ", layers separated by air gaps" if c.get("air_gap") else ""
+        named.append(f"{c.get('name')}: {kind}{gap}")
+    base = (
+        "Each layer is a linear retarder (Jones calculus). Faces are ideal (no reflections) "
+        "unless a candidate says otherwise"
+    )
+    if not named:
+        return base + "; absorption and scatter are not modelled."
+    return (
+        base
+        + ": "
+        + "; ".join(named)
+        + ". Faces act by coherent multiple reflections (Airy sum per eigenwave, at normal-"
+        "incidence reflectance, reflections between air-gapped layers neglected); absorption "
+        "and scatter are not modelled."
+    )
+
+
 def assumptions(grid) -> list[str]:
     """Plain-text assumptions of the run, read from the grid's attrs and spec where it can."""
     spec = _json_attr(grid, "spec", {}) or {}
@@ -759,10 +790,7 @@ def assumptions(grid) -> list[str]:
         + _temperature_words(spec, t_nom)
         + "."
     )
-    out.append(
-        "Each layer is an ideal linear retarder (Jones calculus); reflections inside "
-        "and between layers, absorption, scatter and coatings are not modelled."
-    )
+    out.append(_faces_words(spec))
     limit = _num(grid.attrs.get("acceptance_limit_waves"))
     if limit is not None and "acceptance_half_angle" in grid.variables:
         out.append(

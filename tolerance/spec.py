@@ -78,6 +78,8 @@ CANDIDATE_KEYS = (
     *CONSTRUCTION_KEYS,
     "tolerances",
     "elements",
+    "faces",
+    "air_gap",
 )
 RUN_KEYS = (
     "samples",
@@ -410,7 +412,23 @@ def _candidate(ctx: _Ctx, c, i: int, default_design) -> Candidate:
         tol, at_nm = _tolerances(ctx, t, f"{where}tolerances")
     else:
         at_nm = None
+    faces = None
+    if "faces" in c:
+        from .etalon import parse_faces
+
+        try:
+            faces = parse_faces(c["faces"], f"{where}faces")
+        except RetolError as exc:
+            raise ctx.err(exc.field, exc.problem, exc.fix) from None
+        faces = None if faces.ideal else faces
+    air_gap = c.get("air_gap", False)
+    if not isinstance(air_gap, bool):
+        raise ctx.err(
+            f"{where}air_gap", f"must be true or false, got {air_gap!r}", "air_gap = true"
+        )
     cand = Candidate(
+        faces=faces,
+        air_gap=air_gap,
         name=name,
         construction=cons,
         material=material,
@@ -761,7 +779,19 @@ def validate(raw: dict, path: str = "<spec>", base_dir=None, source_text=None) -
     )
     _check_ranges(study)
     _check_retardance_at(ctx, study)
+    _check_fringes(study)
     return study
+
+
+def _check_fringes(study: Study) -> None:
+    """Warn when the grid undersamples the fringes of a candidate with reflecting faces."""
+    from .etalon import check_fringe_sampling
+
+    step = study.wavelength.step_nm
+    for c in study.candidates:
+        if c.faces is not None:
+            where = f"{study.file_name}: [[candidate]] {c.name!r}.faces"
+            check_fringe_sampling(c.plate, c.faces, c.air_gap, step, c.plate.design_nm, where)
 
 
 def _check_ranges(study: Study) -> None:
@@ -913,6 +943,9 @@ def _raw_candidate(c: dict) -> dict:
         ]
     if "tolerances" in c:
         out["tolerances"] = {k: _raw_distribution(v) for k, v in c["tolerances"].items()}
+    for k in ("faces", "air_gap"):
+        if k in c:
+            out[k] = c[k]
     return out
 
 

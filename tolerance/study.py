@@ -260,6 +260,17 @@ class Candidate:
     #: A train's elements (each a plate in its own mount; light meets element 0 first), or
     #: None for a single plate.  ``plate`` is then their layers in order (:func:`train_plate`).
     elements: tuple[Candidate, ...] | None = None
+    #: The plate's faces (:class:`tolerance.etalon.Faces`); None means ideal (no reflections).
+    faces: object = None
+    #: Layers separated by air gaps (each its own etalon) instead of cemented.
+    air_gap: bool = False
+
+    @property
+    def face_model(self):
+        """The faces as a :class:`tolerance.etalon.Faces` (ideal when not given)."""
+        from .etalon import IDEAL
+
+        return self.faces if self.faces is not None else IDEAL
 
     def design_keys(self) -> dict:
         """The construction's own keywords for :func:`tolerance.plates.design_plate`."""
@@ -307,6 +318,10 @@ class Candidate:
             d[k] = v
         if self.tolerances:
             d["tolerances"] = _tolerance_dicts(self.tolerances, self.retardance_at_nm)
+        if self.faces is not None:  # ideal faces are left out: older stored specs stay equal
+            d["faces"] = self.faces.to_spec()
+        if self.air_gap:
+            d["air_gap"] = True
         return d
 
 

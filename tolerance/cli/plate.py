@@ -220,6 +220,21 @@ def build_plate(
     help="Band step, a wavelength interval (a bare number is nm) [default: 10nm].",
 )
 @click.option("--temperature", type=TEMPERATURE, default=None, help="Plate temperature [C].")
+@click.option(
+    "--crossing",
+    type=FLOAT,
+    default=0.0,
+    show_default=True,
+    help="Axis error of the second and later plates of a multi-plate construction [deg].",
+)
+@click.option(
+    "--faces",
+    default="ideal",
+    show_default=True,
+    help="Plate faces: ideal, uncoated, or a power reflectance per face, e.g. 0.0025.",
+)
+@click.option("--air-gap", "air_gap", is_flag=True, help="Air gaps between the plates' layers.")
+@click.option("--mueller", is_flag=True, help="Also give the Mueller matrix at each wavelength.")
 @extrapolate_option
 @json_option
 @user_errors
@@ -239,6 +254,10 @@ def plate(
     stop,
     step,
     temperature,
+    crossing,
+    faces,
+    air_gap,
+    mueller,
     extrapolate,
     as_json,
 ):
@@ -248,8 +267,13 @@ def plate(
     """
     import numpy as np
 
+    from ..equivalent import plate_equivalent
     from ..errors import RetolError
+    from ..etalon import parse_faces
     from ..plates import plate_retardance
+    from ..polarization import jones_to_mueller
+
+    face_model = parse_faces(faces, "--faces")
 
     p = build_plate(
         material,
@@ -287,7 +311,13 @@ def plate(
             stacklevel=1,
         )
     delta = plate_retardance(p, wl, temperature_c=temperature, extrapolate=extrapolate)
-    w = delta / (2 * np.pi)
+    eq, J = plate_equivalent(
+        p, wl, face_model, air_gap, crossing, temperature_c=temperature, extrapolate=extrapolate
+    )
+    simple = p.aligned() and crossing == 0.0 and face_model.ideal
+    # the layer projection is exact for aligned ideal plates; otherwise the equivalent retarder
+    w = (delta if simple else eq.retardance_rad) / (2 * np.pi)
+    M = jones_to_mueller(J) if mueller else None
     layers = [
         {
             "material": la.material.name,
@@ -309,9 +339,15 @@ def plate(
             "wavelength_nm": float(x),
             "retardance_waves": float(y),
             "retardance_deg": float(y * 360.0),
+            "equivalent_retardance_waves": float(eq.retardance_rad[i] / (2 * np.pi)),
+            "equivalent_fast_axis_deg": float(eq.fast_axis_deg[i]),
+            "rotation_deg": float(eq.rotation_deg[i]),
         }
-        for x, y in zip(wl, w, strict=True)
+        for i, (x, y) in enumerate(zip(wl, w, strict=True))
     ]
+    if M is not None:
+        for r, m in zip(rows, M, strict=True):
+            r["mueller"] = m.tolist()
     if as_json:
         echo_json(
             {
@@ -320,6 +356,9 @@ def plate(
                 "waves": p.waves,
                 "fast_axis_deg": p.axis_deg,
                 "details": p.details,
+                "faces": face_model.to_spec(),
+                "air_gap": bool(air_gap),
+                "crossing_deg": float(crossing),
                 "layers": layers,
                 "table": rows,
             }
@@ -350,6 +389,9 @@ def plate(
         )
     )
     click.echo("")
+    head = ["wavelength [nm]", "retardance [waves]", "retardance [deg]"]
+    if not simple:
+        head += ["equivalent fast axis [deg]", "rotation [deg]"]
     click.echo(
         table(
             [
@@ -358,8 +400,18 @@ def plate(
                     f"{r['retardance_waves']:.5f}",
                     f"{r['retardance_deg']:.3f}",
                 ]
+                + (
+                    []
+                    if simple
+                    else [f"{r['equivalent_fast_axis_deg']:.3f}", f"{r['rotation_deg']:.3f}"]
+                )
                 for r in rows
             ],
-            ["wavelength [nm]", "retardance [waves]", "retardance [deg]"],
+            head,
         )
     )
+    if M is not None:
+        for r in rows:
+            click.echo(f"\nMueller matrix at {r['wavelength_nm']:g} nm:")
+            for line in r["mueller"]:
+                click.echo("  " + "  ".join(f"{v:+.5f}" for v in line))

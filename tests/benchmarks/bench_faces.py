@@ -1,0 +1,107 @@
+"""Speed of the faces branch of the kernel against the ideal plate (not collected by pytest).
+
+Run from the repository root::
+
+    python tests/benchmarks/bench_faces.py [--samples N]
+
+Two candidates that differ only in ``faces`` (ideal, uncoated): a zero-order quartz
+quarter-wave plate and a compound quartz plate (two layers, cemented) on a 401-point grid,
+thickness, clocking, crossing and tilt tolerances.  For each, the best of 3 timings of
+``Engine.pass_values`` (draws + kernel, no statistics) after a warm-up that compiles.  Target:
+faces within 2x of ideal.  Timings on a shared machine vary: the load average is printed first.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[2]
+if str(ROOT) not in sys.path:
+    sys.path.insert(0, str(ROOT))
+
+TARGET = 2.0
+
+SPEC = """
+title = "faces benchmark"
+[wavelength]
+start = "612.8nm"
+stop = "652.8nm"
+step = "0.1nm"
+[source]
+shape = "gaussian"
+center = "632.8nm"
+fwhm = "5nm"
+[goal]
+state = "circular"
+metric = "axial_ratio"
+min = 0.9
+[[candidate]]
+name = "ideal"
+construction = "CONS"
+material = "quartz"
+waves = 0.25
+design = "632.8nm"
+axis_deg = 45
+EXTRA
+faces = "ideal"
+[[candidate]]
+name = "uncoated"
+construction = "CONS"
+material = "quartz"
+waves = 0.25
+design = "632.8nm"
+axis_deg = 45
+EXTRA
+faces = "uncoated"
+[tolerances]
+thickness_um = { sigma = 0.05 }
+clocking_deg = { uniform = 0.5 }
+crossing_deg = { sigma = 0.2 }
+tilt_deg = { sigma = 0.5 }
+"""
+
+
+def best(fn, repeats=3):
+    out = []
+    for _ in range(repeats):
+        t = time.perf_counter()
+        fn()
+        out.append(time.perf_counter() - t)
+    return min(out)
+
+
+def main():
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--samples", type=int, default=20000)
+    n = ap.parse_args().samples
+    from tolerance.montecarlo import Engine
+    from tolerance.spec import loads
+
+    print(f"load average: {os.getloadavg()}")
+    ok = True
+    for cons, extra in (("zero-order", ""), ("compound", 'thick_plate = "500um"')):
+        study = loads(SPEC.replace("CONS", cons).replace("EXTRA", extra))
+        eng = Engine(study, samples=n, seed=1)
+        times = {}
+        for i, name in enumerate(("ideal", "uncoated")):
+            case = eng.case(i)
+            eng.pass_values(case, 256)  # compile
+            times[name] = best(lambda case=case, eng=eng: eng.pass_values(case, n))
+        ratio = times["uncoated"] / times["ideal"]
+        W = eng.grid.size
+        rate = {k: n * W / v / 1e6 for k, v in times.items()}
+        verdict = "PASS" if ratio <= TARGET else "FAIL"
+        ok &= ratio <= TARGET
+        print(
+            f"{cons:10s}: ideal {rate['ideal']:.1f} M sample·wl/s, faces {rate['uncoated']:.1f} "
+            f"M sample·wl/s, faces/ideal time {ratio:.2f} (target <= {TARGET}) {verdict}"
+        )
+    return 0 if ok else 1
+
+
+if __name__ == "__main__":
+    sys.exit(main())

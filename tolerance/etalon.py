@@ -1,0 +1,411 @@
+"""A plate's faces: coherent multiple reflections (Airy sum) per eigenwave, and the Jones matrix.
+
+A birefringent plate with reflecting faces is a Fabry-Perot etalon for each eigenwave: the
+ordinary and the extraordinary wave each see their own index, their own face reflectance and
+their own round-trip phase, so each has its own complex transmission
+
+    t = √((1 − R₁)(1 − R₂))·e^{iφ} / (1 − √(R₁R₂)·e^{2iφ}),
+
+with φ = k₀·N·d the single-pass phase and R₁, R₂ the power reflectances of the two faces seen
+from inside.  The plate becomes a retarder whose retardance ripples with wavelength and a weak
+diattenuator.  Lengths in µm, wavelengths in nm, angles in degrees at the API, radians inside.
+
+Faces are described by :class:`Faces`: ``ideal`` (no reflection: today's ideal plate),
+``uncoated`` (Fresnel reflectance ((n − 1)/(n + 1))² of each eigenwave's own index, at normal
+incidence) or ``coated`` (a given power reflectance per face, the same for both eigenwaves).
+
+Assumptions (stated in README.md): the reflection phase of a coated face is taken as 0 (that of
+an uncoated face seen from inside); the face reflectance is that at normal incidence even for a
+tilted plate; the thermal change of a plate's absolute phase (not its retardance) is neglected.
+Cemented or optically contacted layers of a stack have no internal reflections: the stack's two
+outer faces make one cavity whose round trip is the full 2×2 Jones product; with ``air_gap`` each
+layer is its own cavity and reflections between layers (across the gaps) are neglected.
+
+References
+----------
+.. [1] M. Born and E. Wolf, *Principles of Optics*, 7th ed. (Cambridge, 1999), sec. 7.6.1
+   (Airy formulae of a plane-parallel plate) and sec. 1.6 (characteristic matrix).
+.. [2] D. A. Holmes, "Exact theory of retardation plates," J. Opt. Soc. Am. 54, 1115-1120 (1964):
+   interference between the multiply reflected o- and e-waves of a birefringent plate.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .errors import RetolError
+
+FACE_KINDS = ("ideal", "uncoated", "coated")
+
+
+@dataclass(frozen=True)
+class Faces:
+    """A plate's faces: ``kind`` ideal|uncoated|coated and, when coated, ``reflectance`` [1]
+    (power reflectance per face at normal incidence)."""
+
+    kind: str = "ideal"
+    reflectance: float = 0.0
+
+    def __post_init__(self):
+        if self.kind not in FACE_KINDS:
+            raise RetolError(
+                "faces", f"unknown kind {self.kind!r}", 'use "ideal", "uncoated" or { reflectance }'
+            )
+        r = float(self.reflectance)
+        if not np.isfinite(r) or not 0.0 <= r < 1.0:
+            raise RetolError(
+                "faces.reflectance",
+                f"must be a power reflectance in [0, 1), got {self.reflectance!r}",
+                "give e.g. reflectance = 0.0025 (0.25 %)",
+            )
+
+    @property
+    def ideal(self) -> bool:
+        return self.kind == "ideal"
+
+    def to_spec(self):
+        """The spec form: a string for ideal/uncoated, a table for a coating."""
+        return self.kind if self.kind != "coated" else {"reflectance": self.reflectance}
+
+
+IDEAL = Faces("ideal")
+
+
+def parse_faces(value, field: str = "faces") -> Faces:
+    """A :class:`Faces` from the spec/CLI form ``"ideal"``, ``"uncoated"`` or
+    ``{reflectance = R}`` (a number R is accepted too)."""
+    if isinstance(value, Faces):
+        return value
+    if isinstance(value, str):
+        v = value.strip().lower()
+        if v in ("ideal", "uncoated"):
+            return Faces(v)
+        try:
+            number = float(v)
+        except ValueError:
+            number = None
+        if number is not None:
+            return parse_faces(number, field)
+        raise RetolError(
+            field, f"unknown faces {value!r}", 'use "ideal", "uncoated" or { reflectance = 0.0025 }'
+        )
+    if isinstance(value, dict):
+        extra = set(value) - {"reflectance"}
+        if extra or "reflectance" not in value:
+            raise RetolError(
+                field,
+                f"a coating table takes only reflectance (got {sorted(value)})",
+                "write faces = { reflectance = 0.0025 }",
+            )
+        value = value["reflectance"]
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise RetolError(
+            field, f"cannot read {value!r}", 'use "ideal", "uncoated" or { reflectance = 0.0025 }'
+        )
+    try:
+        return Faces("coated", float(value))
+    except RetolError as e:
+        raise RetolError(f"{field}.reflectance", e.problem, e.fix) from None
+
+
+def fresnel_reflectance(n):
+    """Power reflectance ((n − 1)/(n + 1))² of an uncoated face at normal incidence. [1]
+
+    Examples
+    --------
+    >>> round(float(fresnel_reflectance(1.5)), 4)
+    0.04
+    """
+    n = np.asarray(n, dtype=float)
+    return ((n - 1.0) / (n + 1.0)) ** 2
+
+
+def face_reflectance(faces: Faces, n):
+    """Power reflectance of a face for a wave of index ``n`` (broadcast to n's shape). [1]"""
+    n = np.asarray(n, dtype=float)
+    if faces.kind == "uncoated":
+        return fresnel_reflectance(n)
+    r = 0.0 if faces.kind == "ideal" else faces.reflectance
+    return np.full(n.shape, r)
+
+
+def airy_transmission(phase_rad, r_in, r_out=None):
+    """Complex amplitude transmission of a lossless plate with reflecting faces. [complex]
+
+    Parameters
+    ----------
+    phase_rad : array_like
+        Single-pass phase φ = k₀·N·d of the wave. [rad]
+    r_in, r_out : array_like
+        Power reflectance of the entrance and exit faces (``r_out`` defaults to ``r_in``). [1]
+
+    Notes
+    -----
+    t = √((1 − R₁)(1 − R₂))·e^{iφ}/(1 − √(R₁R₂)·e^{2iφ}) (the Airy sum of the multiply reflected
+    beams, amplitudes normalised to power), which for R₁ = R₂ = R is (1 − R)e^{iφ}/(1 − R e^{2iφ}).
+    Its phase beyond φ is ε = atan2(ρ sin 2φ, 1 − ρ cos 2φ) with ρ = √(R₁R₂), |ε| ≤ arcsin ρ.
+
+    Examples
+    --------
+    >>> round(abs(complex(airy_transmission(np.pi / 2, 0.04))) ** 2, 6)  # anti-resonant
+    0.857988
+    """
+    phi = np.asarray(phase_rad, dtype=float)
+    R1 = np.asarray(r_in, dtype=float)
+    R2 = R1 if r_out is None else np.asarray(r_out, dtype=float)
+    rho = np.sqrt(R1 * R2)
+    e1 = np.exp(1j * phi)
+    return np.sqrt((1.0 - R1) * (1.0 - R2)) * e1 / (1.0 - rho * e1 * e1)
+
+
+def airy_reflection(phase_rad, reflectance):
+    """Complex amplitude reflection of a lossless symmetric plate (face reflectance R). [complex]
+
+    Notes
+    -----
+    r = √R·(1 − e^{2iφ})/(1 − R·e^{2iφ}) (outer reflection √R, inner −√R by Stokes' relations,
+    Born & Wolf sec. 7.6.1), so that |t|² + |r|² = 1 for the lossless plate.
+    """
+    phi = np.asarray(phase_rad, dtype=float)
+    R = np.asarray(reflectance, dtype=float)
+    e2 = np.exp(2j * phi)
+    return np.sqrt(R) * (1.0 - e2) / (1.0 - R * e2)
+
+
+def ripple_exact(phase_fast, phase_slow, r_fast, r_slow):
+    """Exact change of retardance by the faces, ε_slow − ε_fast. [rad]
+
+    ε = atan2(R sin 2φ, 1 − R cos 2φ) per eigenwave (the phase of 1/(1 − R e^{2iφ})).  To first
+    order in R this is R_s sin 2φ_s − R_f sin 2φ_f; its size is at most arcsin R_s + arcsin R_f.
+    """
+    fs = np.asarray(phase_slow, dtype=float)
+    ff = np.asarray(phase_fast, dtype=float)
+    eps_s = np.arctan2(r_slow * np.sin(2 * fs), 1.0 - r_slow * np.cos(2 * fs))
+    eps_f = np.arctan2(r_fast * np.sin(2 * ff), 1.0 - r_fast * np.cos(2 * ff))
+    return eps_s - eps_f
+
+
+def fringe_period_nm(wavelength_nm, index, thickness_um):
+    """Spectral period λ²/(2·n·d) of a plate's transmission fringes. [nm]
+
+    Examples
+    --------
+    >>> round(float(fringe_period_nm(632.8, 1.543, 17.49)), 2)
+    7.42
+    """
+    lam = np.asarray(wavelength_nm, dtype=float)
+    return lam**2 / (2.0 * np.asarray(index) * np.asarray(thickness_um) * 1e3)
+
+
+class FringeWarning(UserWarning):
+    """The wavelength grid is too coarse for the fringes of a plate with reflecting faces."""
+
+
+#: Grid points per fringe period needed to resolve the fringes (common practice: a sampled
+#: sinusoid's extremes are caught to within 1 − cos(π/8) ≈ 8 % of its swing at 8 points).
+POINTS_PER_FRINGE = 8
+
+
+def finest_fringe_nm(plate, faces: Faces, air_gap: bool, wavelength_nm: float) -> float:
+    """Shortest fringe period λ²/(2·n·d) of a plate's cavities at a wavelength. [nm]
+
+    One cavity of the whole (cemented) stack, or one per layer with an air gap; n is the
+    larger index of each layer.  ``inf`` for ideal faces.
+    """
+    from .dispersion import indices
+
+    if faces.ideal:
+        return float("inf")
+    optical = [
+        float(np.max(indices(la.material, wavelength_nm, extrapolate=True))) * la.thickness_um
+        for la in plate.layers
+    ]
+    nd = max(optical) if air_gap else sum(optical)
+    return float(wavelength_nm) ** 2 / (2.0 * nd * 1e3)
+
+
+def check_fringe_sampling(plate, faces, air_gap, step_nm, wavelength_nm, where="faces"):
+    """Warn (:class:`FringeWarning`) when the grid step exceeds 1/:data:`POINTS_PER_FRINGE`
+    of the plate's fringe period; returns that period. [nm]"""
+    import warnings
+
+    period = finest_fringe_nm(plate, faces, air_gap, wavelength_nm)
+    if step_nm > period / POINTS_PER_FRINGE:
+        warnings.warn(
+            f"{where}: the wavelength step {step_nm:g} nm undersamples the faces' fringes "
+            f"(period {period:.3g} nm at {wavelength_nm:g} nm); for a narrow source use a step "
+            f"of at most {period / POINTS_PER_FRINGE:.3g} nm",
+            FringeWarning,
+            stacklevel=3,
+        )
+    return period
+
+
+# ----------------------------------------------------------------------------- Jones matrices
+
+
+def _rot(theta_rad):
+    c, s = np.cos(theta_rad), np.sin(theta_rad)
+    R = np.empty(np.shape(theta_rad) + (2, 2))
+    R[..., 0, 0], R[..., 0, 1], R[..., 1, 0], R[..., 1, 1] = c, s, -s, c
+    return R
+
+
+def _in_frame(diag_a, diag_b, theta_rad):
+    """R(−θ)·diag(a, b)·R(θ): a diagonal matrix in a frame at θ, put in the lab frame."""
+    a, b = np.broadcast_arrays(np.asarray(diag_a), np.asarray(diag_b))
+    D = np.zeros(a.shape + (2, 2), dtype=complex)
+    D[..., 0, 0] = a
+    D[..., 1, 1] = b
+    R = _rot(np.broadcast_to(theta_rad, a.shape))
+    return np.swapaxes(R, -1, -2) @ D @ R
+
+
+def cavity_jones(P, r_entry, r_exit, t_entry, t_exit):
+    """Jones matrix of a cavity: one-pass Jones product ``P`` between two reflecting faces.
+
+    Parameters
+    ----------
+    P : ndarray (..., 2, 2)
+        Single-pass Jones matrix of the layers (lab frame, full propagation phases).
+    r_entry, r_exit : ndarray (..., 2, 2)
+        Inner amplitude reflection matrices of the entrance and exit faces (lab frame).
+    t_entry, t_exit : ndarray (..., 2, 2)
+        Amplitude transmission matrices of the faces, normalised to power.
+
+    Notes
+    -----
+    E_out = T₂·P·Σₖ (ρ₁·Pᵀ·ρ₂·P)ᵏ·T₁·E_in = T₂·P·(I − ρ₁·Pᵀ·ρ₂·P)⁻¹·T₁·E_in: the light crosses
+    the layers, part of it is reflected at the exit face, crosses back (a reciprocal stack of
+    linear retarders has the transposed Jones matrix backward, in fixed lab axes), is reflected
+    at the entrance face, and so on.  For one layer this is the Airy formula of each eigenwave.
+    """
+    eye = np.eye(2)
+    round_trip = r_entry @ np.swapaxes(P, -1, -2) @ r_exit @ P
+    return t_exit @ P @ np.linalg.solve(eye - round_trip, t_entry)
+
+
+@dataclass(frozen=True)
+class LayerPhases:
+    """Per layer (L, ...): fast- and slow-wave single-pass phases [rad] and indices [1]."""
+
+    phase_fast: np.ndarray
+    phase_slow: np.ndarray
+    n_fast: np.ndarray
+    n_slow: np.ndarray
+
+
+def layer_phases(
+    plate,
+    wavelength_nm,
+    temperature_c=None,
+    aoi_deg=0.0,
+    incidence_azimuth_deg=0.0,
+    extrapolate=False,
+) -> LayerPhases:
+    """Single-pass phases of each layer's fast and slow waves. [rad]
+
+    The mean phase k₀·d·(N_o + N_e)/2 (exact oblique normal components, Veiras et al. 2010) plus
+    or minus half the layer's retardance (with its temperature factor, as
+    :func:`tolerance.plates.layer_retardances`), so that φ_slow − φ_fast is that retardance.
+    """
+    from .dispersion import indices
+    from .plates import layer_retardances
+
+    wl = np.asarray(wavelength_nm, dtype=float)
+    k0 = 2.0 * np.pi / (wl * 1e-3)
+    d = layer_retardances(plate, wl, temperature_c, aoi_deg, incidence_azimuth_deg, extrapolate)
+    s2 = np.sin(np.radians(aoi_deg)) ** 2
+    pf, ps, nf, ns = [], [], [], []
+    for la, dl in zip(plate.layers, d, strict=True):
+        n_o, n_e = indices(la.material, wl, extrapolate=extrapolate)
+        phi = np.radians(np.asarray(incidence_azimuth_deg) - la.optic_axis_deg)
+        N_o = np.sqrt(n_o**2 - s2)
+        N_e = np.sqrt(n_e**2 - s2 * np.sin(phi) ** 2 - (n_e**2 / n_o**2) * s2 * np.cos(phi) ** 2)
+        mean = k0 * la.thickness_um * 0.5 * (N_o + N_e)
+        pf.append(mean - 0.5 * dl)
+        ps.append(mean + 0.5 * dl)
+        nf.append(np.minimum(n_o, n_e))
+        ns.append(np.maximum(n_o, n_e))
+    return LayerPhases(*(np.stack(np.broadcast_arrays(*x)) for x in (pf, ps, nf, ns)))
+
+
+def plate_jones_faces(
+    plate,
+    wavelength_nm,
+    faces: Faces = IDEAL,
+    air_gap: bool = False,
+    temperature_c=None,
+    aoi_deg=0.0,
+    incidence_azimuth_deg=0.0,
+    clocking_deg=0.0,
+    crossing_deg=0.0,
+    extrapolate=False,
+):
+    """Jones matrix of a plate with reflecting faces, light meeting layer 0 first.
+
+    Parameters
+    ----------
+    plate : tolerance.plates.Plate
+    wavelength_nm : array_like
+        Vacuum wavelength. [nm]
+    faces : Faces
+        The faces of the plate (of each layer when ``air_gap``).
+    air_gap : bool
+        Layers separated by air gaps (each its own cavity) instead of cemented (one cavity).
+    crossing_deg : float
+        Error added to the axis of the second and later layers. [deg]
+    clocking_deg : float
+        Rotation of the whole plate about the beam. [deg]
+
+    Returns
+    -------
+    ndarray (..., 2, 2) complex
+        The Jones matrix with the mean propagation phase e^{iΣ(φ_f+φ_s)/2} removed, so that an
+        ideal-faced plate gives the product of :func:`tolerance.polarization.retarder_jones`.
+    """
+    ph = layer_phases(
+        plate, wavelength_nm, temperature_c, aoi_deg, incidence_azimuth_deg, extrapolate
+    )
+    axes = [
+        np.radians(la.axis_deg + clocking_deg + (crossing_deg if i > 0 else 0.0))
+        for i, la in enumerate(plate.layers)
+    ]
+    common = 0.5 * (ph.phase_fast + ph.phase_slow)
+    shape = common.shape[1:]
+
+    def one_pass(i):
+        return _in_frame(
+            np.exp(1j * (ph.phase_fast[i] - common[i])),
+            np.exp(1j * (ph.phase_slow[i] - common[i])),
+            axes[i],
+        )
+
+    def face(i):
+        Rf = face_reflectance(faces, ph.n_fast[i])
+        Rs = face_reflectance(faces, ph.n_slow[i])
+        r = _in_frame(np.sqrt(Rf), np.sqrt(Rs), axes[i])
+        t = _in_frame(np.sqrt(1.0 - Rf), np.sqrt(1.0 - Rs), axes[i])
+        return r, t
+
+    def cavity(first, last):
+        # the round trip needs the full phases: carry the common phase as a scalar factor
+        P = np.broadcast_to(np.eye(2, dtype=complex), shape + (2, 2))
+        for i in range(first, last + 1):
+            P = one_pass(i) @ P
+        if faces.ideal:
+            return P
+        g = np.exp(1j * np.sum(common[first : last + 1], axis=0))[..., None, None]
+        r1, t1 = face(first)
+        r2, t2 = face(last)
+        return cavity_jones(P * g, r1, r2, t1, t2) / g
+
+    n = len(plate.layers)
+    groups = [(i, i) for i in range(n)] if air_gap else [(0, n - 1)]
+    J = None
+    for a, b in groups:
+        Jg = cavity(a, b)
+        J = Jg if J is None else Jg @ J
+    return J

@@ -1,0 +1,498 @@
+"""The Monte Carlo kernel for plates with reflecting faces (a separate branch of the kernel).
+
+The ideal-plate kernel (:mod:`tolerance.kernel`) is left untouched, so that ``faces = "ideal"``
+keeps its results bit for bit; a candidate with faces runs through :func:`chunk_pass_faces`,
+which reuses that kernel's inline helpers (statistics, metrics, sine and cosine) and adds the
+faces' Airy factors.
+
+Each eigenwave gets the factor A = τ/(1 − ρ·e^{2iφ}) (the Airy sum without its single-pass
+phase, which the ideal layer operation already carries up to a common phase): φ is the wave's
+single-pass phase, ρ = √(R₁R₂) and τ = √((1 − R₁)(1 − R₂)) from the two faces' power
+reflectances (:mod:`tolerance.etalon`).  With an air gap every layer is its own cavity and its
+factors act in its own axes right after it (exact).  Cemented layers form one cavity whose
+factors act after the last layer in layer 0's axes: exact for parallel or crossed layers, and
+an approximation, of second order in (axis error × reflectance), for layers whose axes are
+drawn off parallel by crossing or clocking tolerances, or for a general stack.
+
+The retardance statistic includes the faces' phase change ε = atan2(ρ sin 2φ, 1 − ρ cos 2φ)
+of each eigenwave; the Stokes vectors are normalised at each wavelength (the output state), and
+the source average weights the states by the source's power, not by the plate's slightly
+rippled transmittance.  Inputs are plain numpy arrays only.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import NamedTuple
+
+import numba as nb
+import numpy as np
+
+from .kernel import (
+    _AR,
+    _AZ,
+    _H,
+    _M,
+    _OPTS,
+    _RET,
+    _RW,
+    _XI,
+    _XR,
+    _YI,
+    _YR,
+    N_VAR,
+    N_WORK,
+    SINCOS_LIMIT,
+    _atan2,
+    _band_summary,
+    _fold_sample,
+    _is_max,
+    _keep_sample,
+    _metric_row,
+    _observable_rows,
+    _scatter_block,
+    _sincos,
+    _sincos_any,
+)
+
+
+class FaceOptics(NamedTuple):
+    """Faces on the wavelength grid.
+
+    ``nbar`` (W, L): mean index (n_o + n_e)/2 of each layer at normal incidence; ``rho_f``,
+    ``tau_f``, ``rho_s``, ``tau_s`` (W, L): the fast and slow waves' √(R₁R₂) and
+    √((1 − R₁)(1 − R₂)) of each layer's cavity (air gap), or, in column 0, those of the waves
+    along and across layer 0's fast axis for the one cavity of cemented layers; ``sgn`` (L,):
+    +1 where a layer's fast axis is along layer 0's, −1 where crossed; ``air_gap``.
+    """
+
+    nbar: np.ndarray
+    rho_f: np.ndarray
+    tau_f: np.ndarray
+    rho_s: np.ndarray
+    tau_s: np.ndarray
+    sgn: np.ndarray
+    air_gap: bool
+
+
+@nb.njit(inline="always", **_OPTS)
+def _airy(phi2, rho, tau):
+    """Airy factor τ/(1 − ρe^{iφ₂}) (real, imaginary) and its phase ε, for φ₂ = 2φ."""
+    s, c = _sincos_any(phi2)
+    den = 1.0 - 2.0 * rho * c + rho * rho
+    g = tau / den
+    re = g * (1.0 - rho * c)
+    im = g * rho * s
+    return re, im, _atan2(rho * s, 1.0 - rho * c)
+
+
+@nb.njit(inline="always", **_OPTS)
+def _airy_pair(phi2a, phi2b, ra, ta, rb, tb):
+    """Airy factors of two waves and their phase difference ε_b − ε_a (one arc tangent:
+    arg of (1 − ρ_b e^{−iφ₂b})·conj(1 − ρ_a e^{−iφ₂a}), each of positive real part)."""
+    sa_, ca_ = _sincos(phi2a)
+    sb_, cb_ = _sincos(phi2b)
+    nra = 1.0 - ra * ca_
+    nia = ra * sa_
+    nrb = 1.0 - rb * cb_
+    nib = rb * sb_
+    ga = ta / (nra * nra + nia * nia)
+    gb = tb / (nrb * nrb + nib * nib)
+    d = _atan2(nib * nra - nrb * nia, nrb * nra + nib * nia)
+    return ga * nra, ga * nia, gb * nrb, gb * nib, d
+
+
+@nb.njit(inline="always", **_OPTS)
+def _apply_diag(xr, xi, yr, yi, C, S, ar, ai, br, bi):
+    """(x, y) ← R(−θ)·diag(a, b)·R(θ)·(x, y) with C = cos 2θ, S = sin 2θ (p·I + q·M form)."""
+    pr = 0.5 * (ar + br)
+    pi_ = 0.5 * (ai + bi)
+    qr = 0.5 * (ar - br)
+    qi = 0.5 * (ai - bi)
+    ur = C * xr + S * yr
+    ui = C * xi + S * yi
+    vr = S * xr - C * yr
+    vi = S * xi - C * yi
+    nxr = pr * xr - pi_ * xi + qr * ur - qi * ui
+    nxi = pr * xi + pi_ * xr + qr * ui + qi * ur
+    nyr = pr * yr - pi_ * yi + qr * vr - qi * vi
+    nyi = pr * yi + pi_ * yr + qr * vi + qi * vr
+    return nxr, nxi, nyr, nyi
+
+
+@nb.njit(inline="always", **_OPTS)
+def _face_layer(k0, th, tf, sin2i, no2, ne2, rat, dn, sp, cp, nbar):
+    """Retardance [rad] (as the ideal kernel) and mean single-pass phase of one layer."""
+    if sin2i == 0.0:
+        delta = k0 * th * abs(dn) * tf
+        mean = k0 * th * nbar
+    else:
+        No = math.sqrt(no2 - sin2i)
+        Ne = math.sqrt(ne2 - sin2i * sp - rat * sin2i * cp)
+        delta = k0 * th * abs(Ne - No) * tf
+        mean = k0 * th * 0.5 * (No + Ne)
+    return delta, mean
+
+
+@nb.njit(inline="always", **_OPTS)
+def _layer_op(xr, xi, yr, yi, C, S, h):
+    """The ideal retarder of half-retardance h, fast axis (C, S) (as :mod:`tolerance.kernel`)."""
+    s, c = _sincos_any(h)
+    ur = C * xr + S * yr
+    ui = C * xi + S * yi
+    vr = S * xr - C * yr
+    vi = S * xi - C * yi
+    return c * xr + s * ui, c * xi - s * ur, c * yr + s * vi, c * yi - s * vr
+
+
+@nb.njit(inline="always", **_OPTS)
+def _one_wavelength(
+    k0, no2, ne2, rat, dn, nbar, rf, tf_, rs, ts, sgn, air_gap,
+    thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, L,
+):  # fmt: skip
+    """Normalised Stokes and retardance [rad] of one sample at one wavelength, with faces.
+
+    The input is a linear, fully polarized state (ca, sa): :class:`tolerance.montecarlo.Engine`
+    refuses other inputs for plates with faces."""
+    xr = ca
+    xi = 0.0
+    yr = sa
+    yi = 0.0
+    ret = 0.0
+    phi = 0.0
+    drel = 0.0
+    for l in range(L):
+        delta, mean = _face_layer(
+            k0, thick[l], tfac[l], sin2i, no2[l], ne2[l], rat[l], dn[l], sphi2[l], cphi2[l],
+            nbar[l],
+        )  # fmt: skip
+        ret += proj[l] * delta
+        C = c2[l]
+        S = s2[l]
+        xr, xi, yr, yi = _layer_op(xr, xi, yr, yi, C, S, 0.5 * delta)
+        if air_gap:
+            ar, ai, ef = _airy(2.0 * (mean - 0.5 * delta), rf[l], tf_[l])
+            br, bi, es = _airy(2.0 * (mean + 0.5 * delta), rs[l], ts[l])
+            xr, xi, yr, yi = _apply_diag(xr, xi, yr, yi, C, S, ar, ai, br, bi)
+            ret += proj[l] * (es - ef)
+        else:
+            phi += mean
+            drel += sgn[l] * delta
+    if not air_gap:
+        ar, ai, ea = _airy(2.0 * (phi - 0.5 * drel), rf[0], tf_[0])
+        br, bi, eb = _airy(2.0 * (phi + 0.5 * drel), rs[0], ts[0])
+        xr, xi, yr, yi = _apply_diag(xr, xi, yr, yi, c2[0], s2[0], ar, ai, br, bi)
+        ret += proj[0] * (eb - ea)
+    inten = xr * xr + xi * xi + yr * yr + yi * yi
+    inv = 1.0 / inten
+    st1 = (xr * xr + xi * xi - yr * yr - yi * yi) * inv
+    st2 = 2.0 * (xr * yr + xi * yi) * inv
+    st3 = 2.0 * (xi * yr - xr * yi) * inv
+    return st1, st2, st3, ret
+
+
+@nb.njit(inline="always", **_OPTS)
+def _spectrum_scalar(optics, faces, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, work):
+    """:func:`_spectrum_faces` one wavelength at a time (huge phases: the C library's sine)."""
+    k0, no2, ne2, rat, dn = optics
+    nbar, rho_f, tau_f, rho_s, tau_s, sgn, air_gap = faces
+    L = thick.shape[0]
+    for w in range(k0.shape[0]):
+        st1, st2, st3, ret = _one_wavelength(
+            k0[w], no2[w], ne2[w], rat[w], dn[w], nbar[w], rho_f[w], tau_f[w], rho_s[w],
+            tau_s[w], sgn, air_gap, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, L,
+        )  # fmt: skip
+        work[_XR, w] = st1
+        work[_XI, w] = st2
+        work[_YR, w] = st3
+        work[_RET, w] = ret
+
+
+@nb.njit(inline="always", **_OPTS)
+def _spectrum_faces(
+    optics, faces, tr, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, work
+):  # fmt: skip
+    """One sample's normalised Stokes into work rows _XR, _XI, _YR and retardance into _RET.
+
+    ``tr`` holds the (L, W) transposes of the optics and faces arrays (no2, ne2, rat, dn, nbar,
+    rho_f, tau_f, rho_s, tau_s), so that every loop over wavelength runs on contiguous rows and
+    vectorizes; rows _RW and _AR (filled only later) hold the accumulated mean phase and
+    relative retardance of cemented layers, row _H the half-retardance.
+    """
+    k0 = optics[0]
+    sgn = faces[5]
+    air_gap = faces[6]
+    no2T, ne2T, ratT, dnT, nbT, rfT, tfT, rsT, tsT = tr
+    W = k0.shape[0]
+    L = thick.shape[0]
+    xr = work[_XR]
+    xi = work[_XI]
+    yr = work[_YR]
+    yi = work[_YI]
+    hh = work[_H]
+    ret = work[_RET]
+    phi = work[_RW]
+    drel = work[_AR]
+    big = 0.0
+    for w in range(W):
+        xr[w] = ca
+        xi[w] = 0.0
+        yr[w] = sa
+        yi[w] = 0.0
+        ret[w] = 0.0
+        phi[w] = 0.0
+        drel[w] = 0.0
+    for l in range(L):
+        th = thick[l]
+        tf = tfac[l]
+        pj = proj[l]
+        sg = sgn[l]
+        C = c2[l]
+        S = s2[l]
+        no2l = no2T[l]
+        ne2l = ne2T[l]
+        ratl = ratT[l]
+        dnl = dnT[l]
+        nbl = nbT[l]
+        sp = sphi2[l]
+        cp = cphi2[l]
+        if sin2i == 0.0:
+            # mean = k0·d·n̄ and delta as the ideal kernel (hoisted branches: loops vectorize)
+            for w in range(W):
+                kt = k0[w] * th
+                delta = kt * abs(dnl[w]) * tf
+                mean = kt * nbl[w]
+                ret[w] += pj * delta
+                hh[w] = 0.5 * delta
+                phi[w] = mean if air_gap else phi[w] + mean
+                drel[w] += sg * delta
+                big = max(big, abs(mean) + abs(delta))
+        else:
+            for w in range(W):
+                delta, mean = _face_layer(
+                    k0[w], th, tf, sin2i, no2l[w], ne2l[w], ratl[w], dnl[w], sp, cp, nbl[w]
+                )
+                ret[w] += pj * delta
+                hh[w] = 0.5 * delta
+                phi[w] = mean if air_gap else phi[w] + mean
+                drel[w] += sg * delta
+                big = max(big, abs(mean) + abs(delta))
+        if big >= 0.25 * SINCOS_LIMIT:
+            _spectrum_scalar(
+                optics, faces, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, work
+            )
+            return
+        for w in range(W):
+            s, c = _sincos(hh[w])
+            a = xr[w]
+            b = xi[w]
+            e = yr[w]
+            f = yi[w]
+            ur = C * a + S * e
+            ui = C * b + S * f
+            vr = S * a - C * e
+            vi = S * b - C * f
+            xr[w] = c * a + s * ui
+            xi[w] = c * b - s * ur
+            yr[w] = c * e + s * vi
+            yi[w] = c * f - s * vr
+        if air_gap:
+            rfl = rfT[l]
+            tfl = tfT[l]
+            rsl = rsT[l]
+            tsl = tsT[l]
+            for w in range(W):
+                ar, ai, br, bi, de = _airy_pair(
+                    2.0 * phi[w] - 2.0 * hh[w],
+                    2.0 * phi[w] + 2.0 * hh[w],
+                    rfl[w],
+                    tfl[w],
+                    rsl[w],
+                    tsl[w],
+                )
+                xr[w], xi[w], yr[w], yi[w] = _apply_diag(
+                    xr[w], xi[w], yr[w], yi[w], C, S, ar, ai, br, bi
+                )
+                ret[w] += pj * de
+    if not air_gap:
+        rf0 = rfT[0]
+        tf0 = tfT[0]
+        rs0 = rsT[0]
+        ts0 = tsT[0]
+        C = c2[0]
+        S = s2[0]
+        p0 = proj[0]
+        for w in range(W):
+            ar, ai, br, bi, de = _airy_pair(
+                2.0 * phi[w] - drel[w], 2.0 * phi[w] + drel[w], rf0[w], tf0[w], rs0[w], ts0[w]
+            )
+            xr[w], xi[w], yr[w], yi[w] = _apply_diag(
+                xr[w], xi[w], yr[w], yi[w], C, S, ar, ai, br, bi
+            )
+            ret[w] += p0 * de
+    for w in range(W):
+        a = xr[w]
+        b = xi[w]
+        e = yr[w]
+        f = yi[w]
+        inv = 1.0 / (a * a + b * b + e * e + f * f)
+        xr[w] = (a * a + b * b - e * e - f * f) * inv
+        xi[w] = 2.0 * (a * e + b * f) * inv
+        yr[w] = 2.0 * (b * e - a * f) * inv
+
+
+@nb.njit(inline="always", **_OPTS)
+def _transposes(optics, faces):
+    """The (L, W) contiguous transposes :func:`_spectrum_faces` reads."""
+    c = np.ascontiguousarray
+    return (
+        c(optics[1].T), c(optics[2].T), c(optics[3].T), c(optics[4].T), c(faces[0].T),
+        c(faces[1].T), c(faces[2].T), c(faces[3].T), c(faces[4].T),
+    )  # fmt: skip
+
+
+@nb.njit(inline="always", **_OPTS)
+def _lines_faces(lines, line_faces, s, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj):
+    """Power-weighted Stokes sums of one sample over the discrete source lines, with faces."""
+    lk0, lno2, lne2, lrat, ldn, line_weight = lines
+    nbar, rho_f, tau_f, rho_s, tau_s, sgn, air_gap = line_faces
+    ss = s if lk0.shape[0] > 1 else 0
+    L = thick.shape[0]
+    a1 = 0.0
+    a2 = 0.0
+    a3 = 0.0
+    for k in range(line_weight.shape[0]):
+        l1, l2, l3, _ = _one_wavelength(
+            lk0[ss, k], lno2[ss, k], lne2[ss, k], lrat[ss, k], ldn[ss, k], nbar[k], rho_f[k],
+            tau_f[k], rho_s[k], tau_s[k], sgn, air_gap, thick, tfac, c2, s2, sin2i, cphi2,
+            sphi2, ca, sa, proj, L,
+        )  # fmt: skip
+        lw = line_weight[k]
+        a1 += lw * l1
+        a2 += lw * l2
+        a3 += lw * l3
+    return a1, a2, a3
+
+
+@nb.njit(**_OPTS)
+def values_one_faces(optics, faces, sample, proj, goal, metric_kind, out, stokes):
+    """Retardance, axial ratio, azimuth and metric (N_VAR, W) and normalised Stokes (W, 3) of
+    one sample, with the arithmetic of :func:`chunk_pass_faces`."""
+    thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, _cai, _sai, _dop = sample
+    W = optics[0].shape[0]
+    work = np.empty((N_WORK, W))
+    tr = _transposes(optics, faces)
+    _spectrum_faces(optics, faces, tr, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, work)
+    _metric_row(work, goal[0], goal[1], goal[2], metric_kind)
+    for w in range(W):
+        stokes[w, 0] = work[_XR, w]
+        stokes[w, 1] = work[_XI, w]
+        stokes[w, 2] = work[_YR, w]
+    _observable_rows(work)
+    for w in range(W):
+        out[0, w] = work[_RW, w]
+        out[1, w] = work[_AR, w]
+        out[2, w] = work[_AZ, w]
+        out[3, w] = work[_M, w]
+
+
+@nb.njit(parallel=True, **_OPTS)
+def chunk_pass_faces(optics, faces, grid_weight, lines, line_faces, samples, target, stats, outs):
+    """:func:`tolerance.kernel.chunk_pass` for a plate with faces (``faces``, ``line_faces``:
+    :class:`FaceOptics` on the grid and at the source lines); the same outputs and threading."""
+    thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, _cai, _sai, _dop = samples
+    proj, goal, metric_kind, w_design = target
+    do_hist, lo, inv_width, hist, vmin, vmax, block_sums, block_size, ret_shift = stats
+    worst, spec_stokes, design_stokes, keep, kept = outs
+    worst_is_max = _is_max(metric_kind)
+    S = thick.shape[0]
+    W = optics[0].shape[0]
+    B = hist.shape[3]
+    T = hist.shape[0]
+    g1 = goal[0]
+    g2 = goal[1]
+    g3 = goal[2]
+    n_blocks = (S + block_size - 1) // block_size
+    per_t = (n_blocks + T - 1) // T
+    if do_hist and B > 65536:
+        raise ValueError("at most 65536 histogram bins")
+    tr = _transposes(optics, faces)
+    for t in nb.prange(T):
+        b0 = t * per_t
+        b1 = min(n_blocks, b0 + per_t)
+        work = np.empty((N_WORK, W))
+        jbuf = np.empty((block_size if do_hist else 1, N_VAR, W), dtype=np.uint16)
+        m = work[_M]
+        st1 = work[_XR]
+        st2 = work[_XI]
+        st3 = work[_YR]
+        for b in range(b0, b1):
+            s_lo = b * block_size
+            s_hi = min(S, s_lo + block_size)
+            bs0 = block_sums[b, :, 0]
+            bs1 = block_sums[b, :, 1]
+            for s in range(s_lo, s_hi):
+                _spectrum_faces(
+                    optics, faces, tr, thick[s], tfac[s], c2[s], s2[s], sin2i[s], cphi2[s],
+                    sphi2[s], ca[s], sa[s], proj, work,
+                )  # fmt: skip
+                _metric_row(work, g1, g2, g3, metric_kind)
+                wmin, a1, a2, a3 = _band_summary(m, st1, st2, st3, grid_weight, worst_is_max)
+                if w_design >= 0 and w_design < W:
+                    design_stokes[s, 0] = st1[w_design]
+                    design_stokes[s, 1] = st2[w_design]
+                    design_stokes[s, 2] = st3[w_design]
+                if do_hist:
+                    _observable_rows(work)
+                    _fold_sample(
+                        work, ret_shift, bs0, bs1, vmin[t], vmax[t], lo, inv_width,
+                        jbuf[s - s_lo], B,
+                    )  # fmt: skip
+                    if keep:
+                        _keep_sample(work, kept[s])
+                l1, l2, l3 = _lines_faces(
+                    lines, line_faces, s, thick[s], tfac[s], c2[s], s2[s], sin2i[s], cphi2[s],
+                    sphi2[s], ca[s], sa[s], proj,
+                )  # fmt: skip
+                worst[s] = wmin
+                spec_stokes[s, 0] = a1 + l1
+                spec_stokes[s, 1] = a2 + l2
+                spec_stokes[s, 2] = a3 + l3
+            if do_hist:
+                _scatter_block(hist[t], jbuf, s_hi - s_lo)
+
+
+# ----------------------------------------------------------------------------- inputs (numpy)
+
+
+def face_arrays(n_o, n_e, R_fast, R_slow, signs, air_gap: bool) -> FaceOptics:
+    """:class:`FaceOptics` from indices and face reflectances of shape (..., L) (numpy).
+
+    ``signs`` (L,): cos 2(θₗ − θ) of each layer on the plate axis (its sign says parallel or
+    crossed to layer 0).  For cemented layers, the wave along layer 0's fast axis enters through
+    layer 0's fast index and leaves through the last layer's fast index when that layer is
+    parallel to layer 0, its slow index when crossed; the wave across it the other two.
+    """
+    n_o = np.asarray(n_o, dtype=float)
+    n_e = np.asarray(n_e, dtype=float)
+    Rf = np.asarray(R_fast, dtype=float)
+    Rs = np.asarray(R_slow, dtype=float)
+    sg = np.where(np.asarray(signs) * np.asarray(signs)[0] >= 0.0, 1.0, -1.0)
+    nbar = 0.5 * (n_o + n_e)
+    c = np.ascontiguousarray
+    if air_gap:
+        return FaceOptics(
+            c(nbar), c(np.sqrt(Rf * Rf)), c(1.0 - Rf), c(np.sqrt(Rs * Rs)), c(1.0 - Rs),
+            c(sg), True,
+        )  # fmt: skip
+    last_a = Rf[..., -1] if sg[-1] > 0 else Rs[..., -1]
+    last_b = Rs[..., -1] if sg[-1] > 0 else Rf[..., -1]
+    rho_a = np.zeros_like(Rf)
+    tau_a = np.zeros_like(Rf)
+    rho_b = np.zeros_like(Rf)
+    tau_b = np.zeros_like(Rf)
+    rho_a[..., 0] = np.sqrt(Rf[..., 0] * last_a)
+    tau_a[..., 0] = np.sqrt((1.0 - Rf[..., 0]) * (1.0 - last_a))
+    rho_b[..., 0] = np.sqrt(Rs[..., 0] * last_b)
+    tau_b[..., 0] = np.sqrt((1.0 - Rs[..., 0]) * (1.0 - last_b))
+    return FaceOptics(c(nbar), c(rho_a), c(tau_a), c(rho_b), c(tau_b), c(sg), False)
