@@ -279,13 +279,27 @@ def test_draws_follow_the_documented_scheme_for_any_range(start, stop):
 
 
 def test_no_distribution_gives_the_centre_exactly():
-    """``scaled(None, ...)``: an absent tolerance is exactly the nominal value."""
-    from tolerance.sampler import scaled
+    """An absent tolerance is exactly the nominal value: with no tolerance acting, the engine's
+    per-sample inputs are the nominal plate's, bit for bit (the sampler's old ``scaled(None)``
+    contract, now held by :func:`tolerance.montecarlo.sample_inputs`)."""
+    from tolerance.montecarlo import Engine, sample_inputs
+    from tolerance.spec import loads
 
-    z = np.linspace(-1.0, 1.0, 5)
-    out = scaled(None, z, z, center=2.5)
-    assert out.shape == z.shape
-    assert np.all(out == 2.5)
+    text = (
+        '[wavelength]\nstart = "630nm"\nstop = "640nm"\nstep = "5nm"\n'
+        '[source]\nshape = "laser"\ncenter = "635nm"\n[environment]\ntemperature_c = 27.5\n'
+        "[goal]\nmin = 0.9\n[[candidate]]\nname = 'c'\nconstruction = 'compound'\n"
+        "material = 'quartz'\nthick_plate = '1000um'\n"
+        "[tolerances]\nthickness_um = { sigma = 1.0 }\nclocking_deg = { uniform = 2.0 }\n"
+    )
+    study = loads(text, "c.toml")
+    eng = Engine(study, samples=1024)
+    case = eng.cases[0]
+    inputs, extra = sample_inputs(case, study, eng.draws, 0, 1024, active=())
+    nominal = np.array([la.thickness_um for la in case.plate.layers])
+    assert np.all(inputs.thick == nominal)
+    assert np.all(extra["temperature"] == 27.5)
+    assert np.all(extra["aoi"] == 0.0)
 
 
 def test_target_waves_is_order_plus_waves():
