@@ -208,15 +208,9 @@ def test_bad_material_file_names_the_field_and_the_fix(tmp_path, change, field):
     e = info.value
     assert e.field == f"bad.toml: {field}"
     assert isinstance(e.problem, str) and e.problem.strip()
-    if field != "valid_min_um":  # that one has no fix: see the xfail below
-        assert isinstance(e.fix, str) and e.fix.strip()
+    assert isinstance(e.fix, str) and e.fix.strip()
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="dispersion.material_from_dict raises 'range must satisfy 0 < min < max' with no fix "
-    "(DEVELOPERS.md asks every user error for one)",
-)
 def test_an_empty_validity_range_says_the_fix(tmp_path):
     from tolerance.dispersion import load_material_file
 

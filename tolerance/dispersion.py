@@ -255,7 +255,11 @@ def material_from_dict(d: dict, path: str = "<dict>") -> Material:
     lo = float(_require(d, "valid_min_um", where, (int, float))) * 1e3
     hi = float(_require(d, "valid_max_um", where, (int, float))) * 1e3
     if not 0 < lo < hi:
-        raise RetolError(f"{where}: valid_min_um", "range must satisfy 0 < min < max")
+        raise RetolError(
+            f"{where}: valid_min_um",
+            "range must satisfy 0 < min < max",
+            "give the formula's published range, e.g. valid_min_um = 0.2, valid_max_um = 2.0",
+        )
     formula_d = _require(d, "formula", where, dict)
     ftype = _require(formula_d, "type", f"{where}: formula", str)
     if ftype not in FORMULA_TYPES[:3]:
