@@ -24,6 +24,13 @@ from make_golden import SAMPLES, SEED, example_paths  # noqa: E402
 
 PATHS = {p.stem: p for p in example_paths()}
 
+#: Variables computed with numpy's matrix products and LAPACK solves on 2×2 and 4×4 matrices:
+#: OpenBLAS picks its kernels per CPU (AVX2, AVX-512, ...), so their last bits vary from machine
+#: to machine (seen: 4.4e-16).  They are compared to 1e-14; everything else bit for bit.  (The
+#: designed thicknesses, which every Monte Carlo result depends on, use Cramer's rule,
+#: :func:`tolerance.plates.solve2`, so that they are the same bits on every CPU.)
+THROUGH_BLAS = {"nominal_mueller", "nominal_broadband_mueller", "nominal_depolarization_index"}
+
 
 @pytest.fixture(scope="module", params=sorted(PATHS))
 def pair(request):
@@ -44,7 +51,9 @@ def test_every_variable_bit_identical(pair):
             # issue 11: where no yield moved ("none"), dominant now names the tolerance that
             # uses up most margin; everywhere else it must be unchanged
             a = np.where(a == "none", new["margin_dominant"].values, a)
-        if a.dtype.kind in "fc":
+        if name in THROUGH_BLAS:
+            np.testing.assert_allclose(b, a, rtol=0, atol=1e-14, err_msg=name)
+        elif a.dtype.kind in "fc":
             np.testing.assert_array_equal(a, b, err_msg=name, strict=False)
         else:
             assert a.tolist() == b.tolist(), name

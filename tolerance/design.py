@@ -58,7 +58,15 @@ from scipy import optimize
 from .dispersion import Material, birefringence, list_materials
 from .environment import target_waves
 from .errors import RetolError
-from .plates import Layer, Plate, design_plate, equivalent_retardance, plate_jones, plate_retardance
+from .plates import (
+    Layer,
+    Plate,
+    design_plate,
+    equivalent_retardance,
+    plate_jones,
+    plate_retardance,
+    solve2,
+)
 from .study import Candidate, Study
 
 OBJECTIVES = ("yield", "band-error", "spectrum-error")
@@ -351,7 +359,7 @@ def athermal_pair(
             "choose materials whose coefficients differ",
         )
     a = [1.0 + g * (temperature_c - m.reference_temperature_c) for g, m in ((g1, m1), (g2, m2))]
-    x1, x2 = np.linalg.solve(np.array([a, [g1, g2]]), [waves, 0.0])
+    x1, x2 = solve2(np.array([a, [g1, g2]]), [waves, 0.0])
     layers = (
         _signed_layer(m1, x1, design_nm, axis_deg),
         _signed_layer(m2, x2, design_nm, axis_deg),
@@ -401,7 +409,7 @@ def wide_field_pair(
         A = np.array([[1.0, 1.0], [b1, b2]])
         if abs(np.linalg.det(A)) < 1e-15:
             continue
-        x = np.linalg.solve(A, [waves, 0.0])
+        x = solve2(A, [waves, 0.0])
         if (x[0] < 0) != c1 or (x[1] < 0) != c2:
             continue
         size = float(np.sum(np.abs(x)))

@@ -145,7 +145,7 @@ def _layer_op(xr, xi, yr, yi, C, S, h):
     return c * xr + s * ui, c * xi - s * ur, c * yr + s * vi, c * yi - s * vr
 
 
-@nb.njit(inline="always", **_OPTS)
+@nb.njit(**_OPTS)
 def _one_wavelength(
     k0, no2, ne2, rat, dn, nbar, rf, tf_, rs, ts, sgn, air_gap,
     thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, L,
@@ -191,7 +191,7 @@ def _one_wavelength(
     return st1, st2, st3, ret
 
 
-@nb.njit(inline="always", **_OPTS)
+@nb.njit(**_OPTS)
 def _spectrum_scalar(optics, faces, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, work):
     """:func:`_spectrum_faces` one wavelength at a time (huge phases: the C library's sine)."""
     k0, no2, ne2, rat, dn = optics
@@ -208,7 +208,7 @@ def _spectrum_scalar(optics, faces, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca
         work[_RET, w] = ret
 
 
-@nb.njit(inline="always", **_OPTS)
+@nb.njit(**_OPTS)
 def _spectrum_faces(
     optics, faces, tr, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, work
 ):  # fmt: skip
@@ -351,7 +351,7 @@ def _transposes(optics, faces):
     )  # fmt: skip
 
 
-@nb.njit(inline="always", **_OPTS)
+@nb.njit(**_OPTS)
 def _lines_faces(lines, line_faces, s, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj):
     """Power-weighted Stokes sums of one sample over the discrete source lines, with faces."""
     lk0, lno2, lne2, lrat, ldn, line_weight = lines

@@ -79,6 +79,21 @@ def _positive(value, field_name):
     return v
 
 
+def solve2(A, b):
+    """Solution of the 2×2 linear system A·x = b by Cramer's rule (numpy arrays).
+
+    Written out rather than calling LAPACK, whose kernels are chosen per CPU: the same inputs then
+    give the same bits, and so the same designed thicknesses, on every machine.
+    Raises ``np.linalg.LinAlgError`` for a singular (or non-finite) system.
+    """
+    (a, b_), (c, d) = np.asarray(A, dtype=float)
+    u, v = np.asarray(b, dtype=float)
+    det = a * d - b_ * c
+    if det == 0.0 or not np.isfinite(det):
+        raise np.linalg.LinAlgError("singular 2x2 system")
+    return np.array([(u * d - b_ * v) / det, (a * v - c * u) / det])
+
+
 def _dn(material, wl, field_name="design"):
     return float(abs(birefringence(material, wl)))
 
@@ -169,7 +184,7 @@ def achromatic(material, waves, design_nm, axis_deg=0.0, partner=None, match_nm=
         b = np.array([w * lam, w])
         mode = f"value and slope matched at {lam:g} nm"
     try:
-        x = np.linalg.solve(A, b)
+        x = solve2(A, b)
     except np.linalg.LinAlgError:
         raise RetolError(
             "partner", "dispersions too alike to make an achromat", "pick another"
