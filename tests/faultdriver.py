@@ -54,6 +54,9 @@ def _sigint_in_move():
 
 def main():
     mode, args = sys.argv[1], sys.argv[2:]
+    # Ctrl-C as at a terminal: a test run started in the background (``pytest &``) passes on an
+    # ignored SIGINT, which Python then keeps ignoring, and the injected interrupt would be lost.
+    signal.signal(signal.SIGINT, signal.default_int_handler)
     {"pause": _pause, "sigint-in-move": _sigint_in_move, "none": lambda: None}[mode]()
     from tolerance.cli.main import cli
 
