@@ -313,6 +313,32 @@ def test_json_keys_and_outputs(tmp_path):
     assert again.exit_code == 2 and "--force" in again.output
 
 
+def test_allocation_shares_a_folder_with_a_run_and_replaces_only_its_own_files(tmp_path):
+    """Published all or nothing through tolerance.publish: a manifest lists what was written, a
+    run's grid in the same folder stays, --force replaces just the allocation's files, and a
+    user's own file of another name is never touched (DEVELOPERS.md: nothing written is lost)."""
+    p = tmp_path / "s.toml"
+    p.write_text(BASE.format(tol="clocking_deg = { uniform = 2.0 }", amin=0.9, n=1024))
+    out = tmp_path / "out"
+    r = CliRunner().invoke(cli, ["run", str(p), "--out", str(out), "--no-report"])
+    assert r.exit_code == 0, r.output
+    grid = (out / "grid.nc").read_bytes()
+    (out / "notes.txt").write_text("mine")
+    r = CliRunner().invoke(cli, ["allocate", str(p), "--out", str(out)])
+    # the run's drawing.csv would be replaced by the allocation's: only with --force
+    assert r.exit_code == 2 and "drawing.csv" in r.output and "--force" in r.output
+    r = CliRunner().invoke(cli, ["allocate", str(p), "--out", str(out), "--force"])
+    assert r.exit_code == 0, r.output
+    manifest = json.loads((out / ".retol-manifest.json").read_text())
+    assert {"grid.nc", "allocation.json", "allocation.html"} <= set(manifest["files"])
+    first = (out / "allocation.json").stat().st_ino
+    r = CliRunner().invoke(cli, ["allocate", str(p), "--out", str(out), "--force"])
+    assert r.exit_code == 0, r.output
+    assert (out / "allocation.json").stat().st_ino != first  # a new file moved into place
+    assert (out / "grid.nc").read_bytes() == grid and (out / "notes.txt").read_text() == "mine"
+    assert not [q.name for q in tmp_path.iterdir() if ".part-" in q.name]
+
+
 def test_drawing_row_values():
     """± at 3 σ for a tolerance form; the retardance ± from thickness: 0.25 Δt/d (closed form 2)."""
     s = study("thickness_um = { tolerance = 0.3 }\nclocking_deg = { uniform = 0.5 }")

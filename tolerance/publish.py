@@ -1,7 +1,8 @@
 """Publishing an output folder: whole or not at all, one writer at a time, the user's files kept.
 
-``retol run``, ``retol demo``, ``retol report`` and :func:`tolerance.report.write_report` all
-write through :class:`Output`::
+``retol run``, ``demo``, ``report``, ``sweep``, ``design``, ``allocate`` and ``inspect`` and
+:func:`tolerance.report.write_report` all write through :class:`Output` (``allocate`` and
+``inspect`` by :func:`write_files`, replacing only files of their own names)::
 
     with Output("reports/x", force=False, replaces=RUN) as out:
         ...write files into out.part...
@@ -92,6 +93,22 @@ def report_outputs(rel: str) -> bool:
 RUN = run_outputs
 REPORT = report_outputs
 
+#: What ``retol allocate`` and ``retol inspect`` (one plate, a lot) write; each replaces only its
+#: own files, so they may share a folder with a run's results.
+ALLOCATE_FILES = ("allocation.json", "drawing.csv", "yield_vs_width.png", "allocation.html")
+INSPECT_FILES = ("inspection.json", "as_built.toml", "fit.png", "fit.csv")
+LOT_FILES = ("lot.csv", "lot.png", "lot.json")
+
+
+def only(names):
+    """What an output replaces when it writes just the files ``names``."""
+    names = frozenset(names)
+
+    def replaces(rel: str) -> bool:
+        return rel in names
+
+    return replaces
+
 
 def _figure_files() -> set[str]:
     """Every figure file retol can draw, for folders written before manifests existed."""
@@ -101,7 +118,8 @@ def _figure_files() -> set[str]:
 
 
 def _possible_outputs() -> set[str]:
-    return {GRID_FILE, SUMMARY_FILE, REPORT_FILE, "drawing.csv"} | _figure_files()
+    fixed = {GRID_FILE, SUMMARY_FILE, REPORT_FILE, *ALLOCATE_FILES, *INSPECT_FILES, *LOT_FILES}
+    return fixed | _figure_files()
 
 
 def _read_manifest(folder: Path) -> dict | None:
@@ -635,3 +653,19 @@ def write_error(exc: OSError, field: str, what: str) -> RetolError:
     if exc.errno in (errno.ENOSPC, errno.EDQUOT, errno.EFBIG):
         fix = "free some space (or raise the file-size limit), or choose another --out"
     return RetolError(field, f"{what} ({reason})", fix)
+
+
+def write_files(folder, files: dict, force: bool = False, command=None, field="--out") -> Path:
+    """Publish the files ``{name: writer(path)}`` into ``folder`` through :class:`Output`.
+
+    Only files of those names are replaced (with ``force``); the folder's other files, a run's
+    results among them, stay.  Returns the target folder.
+    """
+    with Output(folder, force=force, replaces=only(files), command=command, field=field) as o:
+        for name, write in files.items():
+            try:
+                write(o.part / name)
+            except OSError as exc:
+                raise write_error(exc, field, f"cannot write {name} for {o.target}") from None
+        return o.publish()
+

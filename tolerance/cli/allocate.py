@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-import shutil
-import tempfile
 from pathlib import Path
 
 import click
@@ -11,52 +9,46 @@ import click
 from .common import _clean, echo_json, table, user_errors
 from .sweep import cluster_options
 
-#: What an allocation writes into its output folder; nothing else there is touched.
-OUTPUTS = ("allocation.json", "drawing.csv", "yield_vs_width.png", "allocation.html")
-
 
 def _check_out(out: Path, force: bool) -> Path:
-    from ..errors import RetolError
+    """Refuse, before the work, a folder that holds an earlier allocation (without --force)."""
+    from ..publish import ALLOCATE_FILES, check_target, only
 
-    if out.exists() and not out.is_dir():
-        raise RetolError("--out", f"{str(out)!r} is a file", "give a folder")
-    held = [n for n in OUTPUTS if (out / n).exists()]
-    if held and not force:
-        raise RetolError(
-            "--out",
-            f"{str(out)!r} already holds {', '.join(held)}",
-            "pass --force to replace them, or choose another --out",
-        )
-    return out
+    return check_target(out, force, only(ALLOCATE_FILES))
 
 
-def write_outputs(result, study, doc: dict, rows: list[dict], out: Path) -> None:
-    """Write allocation.json, drawing.csv, the figure and allocation.html into a temporary
-    folder, then move them into ``out`` (each an atomic replace)."""
+def write_outputs(result, study, doc: dict, rows: list[dict], out: Path, force=False) -> Path:
+    """Publish allocation.json, drawing.csv, the figure and allocation.html into ``out``, all
+    or nothing (:func:`tolerance.publish.write_files`); other files in ``out`` stay."""
     import json
-    import os
 
     from ..allocation import write_drawing_csv
     from ..allocation_report import allocation_html
     from ..plots import yield_vs_width_figure
+    from ..publish import write_files
 
-    parent = out.resolve().parent
-    parent.mkdir(parents=True, exist_ok=True)
-    tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.allocate-", dir=parent))
-    try:
-        text = json.dumps(_clean(doc), indent=2, allow_nan=False)
-        (tmp / "allocation.json").write_text(text + "\n")
-        write_drawing_csv(rows, tmp / "drawing.csv")
-        fig = yield_vs_width_figure(result)
-        fig.savefig(tmp / "yield_vs_width.png", dpi=120)
-        png = (tmp / "yield_vs_width.png").read_bytes()
-        page = allocation_html(doc, rows, png, study.title or "Tolerance allocation")
-        (tmp / "allocation.html").write_text(page, encoding="utf-8")
-        out.mkdir(parents=True, exist_ok=True)
-        for name in OUTPUTS:
-            os.replace(tmp / name, out / name)
-    finally:
-        shutil.rmtree(tmp, ignore_errors=True)
+    text = json.dumps(_clean(doc), indent=2, allow_nan=False) + "\n"
+    fig = yield_vs_width_figure(result)
+    png = {}
+
+    def figure(path):
+        fig.savefig(path, dpi=120)
+        png["bytes"] = path.read_bytes()
+
+    def page(path):
+        html = allocation_html(doc, rows, png["bytes"], study.title or "Tolerance allocation")
+        path.write_text(html, encoding="utf-8")
+
+    return write_files(
+        out,
+        {
+            "allocation.json": lambda p: p.write_text(text),
+            "drawing.csv": lambda p: write_drawing_csv(rows, p),
+            "yield_vs_width.png": figure,
+            "allocation.html": page,
+        },
+        force=force,
+    )
 
 
 def _print(doc: dict, rows: list[dict]) -> None:
@@ -165,14 +157,7 @@ def allocate(
     rows = drawing_rows_for_allocation(result, study)
     doc["drawing"] = rows
     if out is not None:
-        try:
-            write_outputs(result, study, doc, rows, out)
-        except OSError as exc:
-            raise RetolError(
-                "--out",
-                f"cannot write into {str(out)!r} ({exc.strerror or exc})",
-                "choose another folder",
-            ) from None
+        out = write_outputs(result, study, doc, rows, out, force=force)
     if as_json:
         echo_json(doc)
     else:

@@ -2,20 +2,15 @@
 
 from __future__ import annotations
 
-import os
-import shutil
-import tempfile
 from pathlib import Path
 
 import click
 
+from ..publish import INSPECT_FILES as OUTPUTS
+from ..publish import LOT_FILES as LOT_OUTPUTS
 from .common import FLOAT, echo_json, table, user_errors
 from .plate import build_plate, plate_options
 
-#: What one inspection writes; nothing else in the folder is touched.
-OUTPUTS = ("inspection.json", "as_built.toml", "fit.png", "fit.csv")
-#: What ``--many`` writes.
-LOT_OUTPUTS = ("lot.csv", "lot.png", "lot.json")
 PLATE_OPTS = (
     "material",
     "construction",
@@ -31,47 +26,20 @@ PLATE_OPTS = (
 
 
 def _folder(out, default: Path, names, force: bool) -> Path:
-    """The output folder; refuse one that holds our outputs unless --force, or is not writable."""
-    from ..errors import RetolError
+    """The output folder, checked before the work: one holding earlier outputs of these names
+    is refused without --force; so is one that cannot be written."""
+    from ..publish import check_target, only
 
     folder = Path(out) if out else default
-    if folder.exists() and not folder.is_dir():
-        raise RetolError("--out", f"{str(folder)!r} is a file", "give a folder")
-    held = [n for n in names if (folder / n).exists()]
-    if held and not force:
-        raise RetolError(
-            "--out",
-            f"{str(folder)!r} already holds {', '.join(held)}",
-            "pass --force to replace them, or choose another --out",
-        )
-    probe = folder.resolve()
-    while not probe.exists():
-        probe = probe.parent
-    if not probe.is_dir() or not os.access(probe, os.W_OK | os.X_OK):
-        raise RetolError("--out", f"cannot write into {str(probe)!r}", "choose a writable folder")
+    check_target(folder, force, only(names))
     return folder
 
 
-def _write_all(folder: Path, files: dict):
-    """Write every output into a temporary folder, then move each into place."""
-    from ..errors import RetolError
+def _write_all(folder: Path, files: dict, force: bool) -> Path:
+    """Publish every output all or nothing (:func:`tolerance.publish.write_files`)."""
+    from ..publish import write_files
 
-    folder.mkdir(parents=True, exist_ok=True)
-    tmp = Path(tempfile.mkdtemp(prefix=".inspect.part-", dir=folder))
-    try:
-        for name, write in files.items():
-            write(tmp / name)
-        mask = os.umask(0)
-        os.umask(mask)
-        for name in files:
-            os.chmod(tmp / name, 0o666 & ~mask)
-            os.replace(tmp / name, folder / name)
-    except OSError as exc:
-        raise RetolError(
-            "--out", f"cannot write into {str(folder)!r} ({exc.strerror or exc})", "choose another"
-        ) from None
-    finally:
-        shutil.rmtree(tmp, ignore_errors=True)
+    return write_files(folder, files, force=force)
 
 
 def _text(s):
@@ -310,7 +278,7 @@ def inspect(
         "fit.png": _figure(_fit_figure(result.fit)),
         "fit.csv": _text(_csv_text(_fit_rows(result.fit))),
     }
-    _write_all(folder, files)
+    folder = _write_all(folder, files, force)
     if as_json:
         echo_json({**doc, "output": str(folder)})
         return
@@ -486,13 +454,14 @@ def _many(
             for r in rows
         ],
     }
-    _write_all(
+    target = _write_all(
         target,
         {
             "lot.csv": _text(_csv_text(flat)),
             "lot.png": _figure(lot_figure(rows, nominal, tol)),
             "lot.json": _text(_json_text(doc)),
         },
+        force,
     )
     for r in rows:
         if r["error"]:
