@@ -71,7 +71,7 @@ def fresnel_kz(n_o: float, n_e: float, axis, kt) -> tuple[float, float]:
         kv = np.array([kt[0], kt[1], z])
         return np.linalg.det(np.outer(kv, kv) - kv @ kv * np.eye(3) + eps)
 
-    pol = [brentq(d, r - 1e-7, r + 1e-7, xtol=1e-16, rtol=4.5e-16) for r in fwd]
+    pol = [brentq(d, r - 1e-7, r + 1e-7, xtol=1e-16, rtol=1e-15) for r in fwd]
     t2 = kt[0] ** 2 + kt[1] ** 2
     o = min(pol, key=lambda z: abs(z * z + t2 - n_o**2))
     e = pol[1] if o == pol[0] else pol[0]
