@@ -565,9 +565,7 @@ class Engine:
         self.replicates = R
         per_layer = {k for k, e in TOLERANCES.items() if e.extra["per_layer"]}
         layers = max([sampler.SOBOL_LAYERS] + [len(c.plate.layers) for c in study.candidates])
-        late = sampler.LATE_STREAMS
-        first = tuple(k for k in SHORT if k not in late) + sampler.EXTRA_STREAMS
-        layout = sampler.sobol_layout(first, per_layer - set(late), layers, late)
+        layout = sampler.sobol_layout(tuple(SHORT) + sampler.EXTRA_STREAMS, per_layer, layers)
         return sampler.SobolDraws(self.seed, m, R, layout, DRAW_CACHE_BYTES)
 
     # ------------------------------------------------------------------ cases

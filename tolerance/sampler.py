@@ -69,14 +69,12 @@ def standard_draws(seed: int, name: str, index: int, start: int, stop: int):
 SOBOL_LAYERS = 16
 #: Extra streams drawn beside the tolerances (the tilt's plane-of-incidence azimuth).
 EXTRA_STREAMS = ("tilt_azimuth",)
-#: Per-layer streams given their Sobol' dimensions after all the others (see :func:`sobol_layout`).
-LATE_STREAMS = ("cut_deg",)
 #: The smallest and largest uniform a Sobol' coordinate may give (so that ndtri stays finite).
 _U_MIN = 2.0**-54
 _U_MAX = 1.0 - 2.0**-53
 
 
-def sobol_layout(streams_first, per_layer, layers: int = SOBOL_LAYERS, late=()) -> dict:
+def sobol_layout(streams_first, per_layer, layers: int = SOBOL_LAYERS) -> dict:
     """The Sobol' dimension of each (stream, layer), fixed by the registry's order.
 
     Layer 0 of every stream comes first (in ``streams_first`` order), then layer 1 of the
@@ -91,9 +89,6 @@ def sobol_layout(streams_first, per_layer, layers: int = SOBOL_LAYERS, late=()) 
         The streams drawn once per layer.
     layers : int
         Layers given a dimension.
-    late : sequence of str
-        Per-layer streams added later (``cut_deg``): their dimensions follow all the others',
-        so that adding them moved no earlier stream's dimension (the same points as before).
 
     Returns
     -------
@@ -105,11 +100,6 @@ def sobol_layout(streams_first, per_layer, layers: int = SOBOL_LAYERS, late=()) 
     for j in range(1, layers):
         for p, name in enumerate(per):
             out[(name, j)] = len(streams_first) + (j - 1) * len(per) + p
-    nxt = len(streams_first) + (layers - 1) * len(per)
-    for name in late:
-        for j in range(layers):
-            out[(name, j)] = nxt
-            nxt += 1
     return out
 
 
