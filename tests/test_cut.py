@@ -328,3 +328,17 @@ def test_a_cluster_run_carries_the_cut(monkeypatch):
         if x.dtype.kind in "fc":
             np.testing.assert_array_equal(x, y, err_msg=k)
     assert float(local["sensitivity_alone"].sel(tolerance="cut", candidate="multi")) < 1.0
+
+
+def test_readme_spec_example_gives_a_cut():
+    """README's "Spec files" example validates and carries ``cut_deg`` as written there
+    (tolerance 0.5° read as 3 σ, the README's distribution rule)."""
+    import re
+    from pathlib import Path
+
+    text = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
+    sec = re.search(r"^## Spec files\n(.*?)(?=^## )", text, re.S | re.M).group(1)
+    block = re.search(r"```toml\n(.*?)```", sec, re.S).group(1)
+    s = loads(block, "readme.toml")
+    d = s.tolerances_for(s.candidates[0])["cut_deg"]
+    assert d.kind == "normal" and d.sigma == pytest.approx(0.5 / 3)
