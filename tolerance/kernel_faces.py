@@ -143,6 +143,25 @@ def _face_cut(k0, th, tf, sin2i, no2, ne2, cz, p):
     return k0 * th * abs(Ne - No) * tf, k0 * th * 0.5 * (No + Ne)
 
 
+@nb.njit(**_OPTS)
+def _face_cut_row(k0, th, tf, sin2i, no2l, ne2l, cz, p, pj, sg, air_gap, work, big):
+    """One layer with a cut angle over the wavelengths, as :func:`_spectrum_faces` does the
+    others: retardance, half-retardance, mean phase and relative retardance rows; returns the
+    largest phase seen so far."""
+    ret = work[_RET]
+    hh = work[_H]
+    phi = work[_RW]
+    drel = work[_AR]
+    for w in range(k0.shape[0]):
+        delta, mean = _face_cut(k0[w], th, tf, sin2i, no2l[w], ne2l[w], cz, p)
+        ret[w] += pj * delta
+        hh[w] = 0.5 * delta
+        phi[w] = mean if air_gap else phi[w] + mean
+        drel[w] += sg * delta
+        big = max(big, abs(mean) + abs(delta))
+    return big
+
+
 @nb.njit(inline="always", **_OPTS)
 def _layer_op(xr, xi, yr, yi, C, S, h):
     """The ideal retarder of half-retardance h, fast axis (C, S) (as :mod:`tolerance.kernel`)."""
@@ -273,15 +292,9 @@ def _spectrum_faces(
         sp = sphi2[l]
         cp = cphi2[l]
         if cut[l, 0] != 0.0:
-            cz = cut[l, 0]
-            cpp = cut[l, 1]
-            for w in range(W):
-                delta, mean = _face_cut(k0[w], th, tf, sin2i, no2l[w], ne2l[w], cz, cpp)
-                ret[w] += pj * delta
-                hh[w] = 0.5 * delta
-                phi[w] = mean if air_gap else phi[w] + mean
-                drel[w] += sg * delta
-                big = max(big, abs(mean) + abs(delta))
+            big = _face_cut_row(
+                k0, th, tf, sin2i, no2l, ne2l, cut[l, 0], cut[l, 1], pj, sg, air_gap, work, big
+            )
         elif sin2i == 0.0:
             # mean = k0·d·n̄ and delta as the ideal kernel (hoisted branches: loops vectorize)
             for w in range(W):
