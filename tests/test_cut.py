@@ -343,3 +343,27 @@ def test_readme_spec_example_gives_a_cut():
     s = loads(block, "readme.toml")
     d = s.tolerances_for(s.candidates[0])["cut_deg"]
     assert d.kind == "normal" and d.sigma == pytest.approx(0.5 / 3)
+
+
+@pytest.mark.parametrize("faces", [None, "{ reflectance = 0.0 }"], ids=["ideal", "faces"])
+def test_source_lines_see_the_cut(faces):
+    """A laser line off the grid's weights goes through the kernels' one-wavelength path: with a
+    cut and a tilt its source-averaged state equals the grid's state at the same wavelength
+    (to rounding), and differs from the uncut plate's (the cut acts there too)."""
+    extra = f"faces = {faces}\n" if faces else ""
+    spec = SPEC.replace('name = "multi"\n', 'name = "multi"\n' + extra)
+    tol = "cut_deg = { sigma = 3 }\ntilt_deg = { sigma = 5 }"
+    s = loads(spec.replace("TOLERANCES", tol), "cut.toml")
+    plain = loads(spec.replace("TOLERANCES", "tilt_deg = { sigma = 5 }"), "cut.toml")
+    got = []
+    for st in (s, plain):
+        eng = montecarlo.Engine(st)
+        case = eng.cases[1]
+        assert case.candidate.face_model.ideal == (faces is None)
+        inputs, extra_ = montecarlo.sample_inputs(case, st, eng.draws, 0, 512)
+        stats = eng._stats(None, 512, False, np.zeros(eng.grid.size))
+        _, spec_st, des_st = eng._call(case, inputs, extra_, stats, 512)
+        assert case.w_design == 1 and eng.spectrum.lines_nm.tolist() == [632.8]
+        np.testing.assert_allclose(spec_st, des_st, atol=1e-12)
+        got.append(spec_st)
+    assert np.max(np.abs(got[0] - got[1])) > 1e-3
