@@ -191,6 +191,9 @@ def test_normal_incidence_is_the_retarder_times_the_face_transmission():
     n_o, n_e = (float(x) for x in indices(get_material("quartz"), LAM))
     t_o, t_e = 4 * n_o / (1 + n_o) ** 2, 4 * n_e / (1 + n_e) ** 2
     assert dia == pytest.approx(abs(t_o**2 - t_e**2) / (t_o**2 + t_e**2), rel=1e-6)
+    m = re.search(r"at normal incidence\s+the o/e diattenuation of uncoated faces, ([\d.]+)",
+                  README)  # fmt: skip
+    assert m and float(m.group(1)) == pytest.approx(dia, rel=0.05)
 
 
 def readme_numbers():
