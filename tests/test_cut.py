@@ -367,3 +367,14 @@ def test_source_lines_see_the_cut(faces):
         np.testing.assert_allclose(spec_st, des_st, atol=1e-12)
         got.append(spec_st)
     assert np.max(np.abs(got[0] - got[1])) > 1e-3
+
+
+def test_a_tolerance_with_nothing_to_act_on_gives_no_sobol_indices():
+    """Crossing on a single plate has no stream (nothing to cross): the variance-based
+    sensitivity gives no indices and the rare-reject search is skipped, instead of failing
+    (a case the differential fuzzing met; common practice: nothing varies, nothing to split)."""
+    spec = SPEC.replace("TOLERANCES", "crossing_deg = { sigma = 3 }").replace(
+        "variance_samples = 0", "variance_samples = 64"
+    )
+    ds = tolerance.run(loads(spec, "cut.toml"), samples=512)
+    assert np.all(np.isnan(ds["sobol_pass_total"].values))
