@@ -390,7 +390,8 @@ def _kernel_stokes(plate, wl, thick, axes, temp, aoi, poi, alpha):
     sample = (np.asarray(thick, dtype=float), tfac, np.cos(th), np.sin(th),
               math.sin(math.radians(aoi)) ** 2, np.cos(phi) ** 2, np.sin(phi) ** 2,
               math.cos(math.radians(alpha)), math.sin(math.radians(alpha)),
-              0.0, 0.0, 1.0)  # a linear input: no imaginary parts, fully polarized
+              0.0, 0.0, 1.0,  # a linear input: no imaginary parts, fully polarized
+              np.zeros((len(thick), 2)))  # optic axes in the faces: no cut
     stokes_one(optics, sample, plate.signs(), out)
     return out
 

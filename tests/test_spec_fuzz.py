@@ -181,6 +181,7 @@ KNOWN = [
         id="lines-date-json",
     ),
     pytest.param("sld_circular.toml", 'fwhm = "20nm"', "fwhm = 07:32:00", id="fwhm-time-json"),
+    pytest.param("laser_faces.toml", 'shape = "laser"', "shape = []", id="shape-list-unhashable"),
 ]
 
 

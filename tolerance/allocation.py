@@ -66,7 +66,12 @@ ALTERNATIVES = 3
 #: Samples in the first (and any later) step of an evaluation that may stop early, at least.
 PREFIX = 2048
 #: Physical bounds on a tolerance's reach (6 σ, the half width or half range). [key's unit]
-ANGLE_BOUND = {"clocking_deg": 45.0, "crossing_deg": 45.0, "input_azimuth_deg": 45.0}
+ANGLE_BOUND = {
+    "clocking_deg": 45.0,
+    "crossing_deg": 45.0,
+    "input_azimuth_deg": 45.0,
+    "cut_deg": 45.0,
+}
 TILT_BOUND = 88.0
 RETARDANCE_BOUND = 0.5
 TEMPERATURE_BOUND = 100.0
@@ -817,6 +822,8 @@ def drawing_row(study: Study, cand: Candidate, tol: Mapping[str, Distribution], 
         row["temperature_min_c"] = t0 - plus_minus(t)
         row["temperature_max_c"] = t0 + plus_minus(t)
     row["input_azimuth_tol_deg"] = plus_minus(tol.get("input_azimuth_deg"))
+    if "cut_deg" in tol:  # the optic axis within ± this of the face (each plate)
+        row["cut_tol_deg"] = plus_minus(tol.get("cut_deg"))
     row["yield"] = yield_
     return row
 

@@ -71,7 +71,10 @@ class SampleInputs(NamedTuple):
     fast-axis angle, sin² of the angle of incidence (S,), cos²/sin² of the plane of incidence
     against the optic axis, and the input: its Jones vector (ca + i·cai, sa + i·sai) of unit
     length (S,) (a linear state at α: cos α, sin α and zero imaginary parts) and the degree of
-    polarization ``dop`` (S,) that scales the output Stokes vector (1 for a pure state)."""
+    polarization ``dop`` (S,) that scales the output Stokes vector (1 for a pure state); ``cut``
+    (S, L, 2): sin κ of each layer's optic axis tipped out of the face by κ and the tangential
+    wave vector along that axis, sin θᵢ·cos κ·cos φ (all zero for axes in the face; see
+    :func:`_cut_retardance`)."""
 
     thick: np.ndarray
     tfac: np.ndarray
@@ -85,6 +88,7 @@ class SampleInputs(NamedTuple):
     cai: np.ndarray
     sai: np.ndarray
     dop: np.ndarray
+    cut: np.ndarray
 
 
 class Target(NamedTuple):
@@ -354,6 +358,45 @@ def _azimuth(st1, st2):
     return az
 
 
+@nb.njit(**_OPTS)
+def _cut_indices(no2, ne2, sin2i, cz, p):
+    """Normal components (N_e, N_o) [k₀] of the e- and o-waves' wave vectors, optic axis tipped
+    out of the face (see :func:`_cut_retardance`)."""
+    dd = ne2 - no2
+    A = no2 + dd * cz * cz
+    B = dd * cz * p
+    C = dd * p * p + no2 * (sin2i - ne2)
+    return (math.sqrt(B * B - A * C) - B) / A, math.sqrt(no2 - sin2i)
+
+
+@nb.njit(**_OPTS)
+def _cut_retardance(k0, no2, ne2, th, tf, sin2i, cz, p):
+    """Retardance [rad] of one layer whose optic axis is tipped out of the face (cz = sin κ ≠ 0).
+
+    Exact for any optic-axis orientation (Veiras, Perez & Garea, Appl. Opt. 49, 2769 (2010)):
+    N_o = sqrt(n_o² − sin²θᵢ) and N_e = (sqrt(B² − A·C) − B)/A with A = n_o² + Δ·cz²,
+    B = Δ·cz·p, C = Δ·p² + n_o²·(sin²θᵢ − n_e²), Δ = n_e² − n_o² and p = sin θᵢ·cos κ·cos φ
+    (:func:`tolerance.retardance.cut_index_difference`).  Kept out of line (not inlined) so that
+    the in-face path's code, and its bits, stay as they were.
+    """
+    Ne, No = _cut_indices(no2, ne2, sin2i, cz, p)
+    return k0 * th * abs(Ne - No) * tf
+
+
+@nb.njit(**_OPTS)
+def _cut_row(k0, no2l, ne2l, th, tf, sin2i, cz, p, pj, ret, hh):
+    """:func:`_cut_retardance` over one layer's wavelengths into the retardance and half-
+    retardance rows; returns how many half-retardances leave :data:`SINCOS_LIMIT`."""
+    bad = 0
+    for w in range(k0.shape[0]):
+        delta = _cut_retardance(k0[w], no2l[w], ne2l[w], th, tf, sin2i, cz, p)
+        ret[w] += pj * delta
+        h = 0.5 * delta
+        hh[w] = h
+        bad += 0 if abs(h) < SINCOS_LIMIT else 1
+    return bad
+
+
 @nb.njit(inline="always", **_OPTS)
 def _propagate(
     k0,
@@ -372,26 +415,32 @@ def _propagate(
     sa,
     proj,
     n_layers,
-    cai=0.0,
-    sai=0.0,
-    dop=1.0,
+    cai,
+    sai,
+    dop,
+    cut,
 ):
     """Jones vector of the input (ca + i·cai, sa + i·sai) after the layers, one wavelength;
     returns Stokes (times ``dop``) and retardance with the arithmetic of :func:`_spectrum`
-    (used for discrete source lines)."""
+    (used for discrete source lines); ``cut`` (L, 2) as :class:`SampleInputs`."""
     xr = ca
     xi = cai
     yr = sa
     yi = sai
     ret = 0.0
     for l in range(n_layers):
-        if sin2i == 0.0:
-            dN = abs(dn[l])
+        if cut[l, 0] != 0.0:
+            delta = _cut_retardance(
+                k0, no2[l], ne2[l], thick[l], tfac[l], sin2i, cut[l, 0], cut[l, 1]
+            )
         else:
-            No = math.sqrt(no2[l] - sin2i)
-            Ne = math.sqrt(ne2[l] - sin2i * sphi2[l] - rat[l] * sin2i * cphi2[l])
-            dN = abs(Ne - No)
-        delta = k0 * thick[l] * dN * tfac[l]
+            if sin2i == 0.0:
+                dN = abs(dn[l])
+            else:
+                No = math.sqrt(no2[l] - sin2i)
+                Ne = math.sqrt(ne2[l] - sin2i * sphi2[l] - rat[l] * sin2i * cphi2[l])
+                dN = abs(Ne - No)
+            delta = k0 * thick[l] * dN * tfac[l]
         ret += proj[l] * delta
         s, c = _sincos_any(0.5 * delta)
         C = c2[l]
@@ -439,9 +488,10 @@ def _spectrum(
     sa,
     proj,
     work,
-    cai=0.0,
-    sai=0.0,
-    dop=1.0,
+    cai,
+    sai,
+    dop,
+    cut,
 ):
     """One sample's output over the grid: Stokes (s1, s2, s3) into work rows _XR, _XI, _YR and
     the retardance [rad] along the plate's axis into row _RET.
@@ -453,9 +503,11 @@ def _spectrum(
     3rd ed., CRC Press 2011, ch. 5 and 6: a retarder's Mueller matrix has first row and column
     (1, 0, 0, 0)).  A zero imaginary part and ``dop`` = 1 give exactly the linear-input bits.
 
-    ``no2T`` … ``dnT`` are (L, W).  Every loop over wavelength vectorizes; a layer whose
-    half-retardance leaves :data:`SINCOS_LIMIT` somewhere takes the scalar path, which makes
-    the same per-element choice, so the bits never depend on the path.
+    ``no2T`` … ``dnT`` are (L, W); ``cut`` (L, 2) as :class:`SampleInputs` (a layer with a
+    non-zero cut angle takes :func:`_cut_row`, the others today's arithmetic).  Every loop
+    over wavelength vectorizes; a layer whose half-retardance leaves :data:`SINCOS_LIMIT`
+    somewhere takes the scalar path, which makes the same per-element choice, so the bits never
+    depend on the path.
     """
     W = k0.shape[0]
     L = thick.shape[0]
@@ -476,7 +528,9 @@ def _spectrum(
         tf = tfac[l]
         pj = proj[l]
         bad = 0
-        if sin2i == 0.0:
+        if cut[l, 0] != 0.0:
+            bad = _cut_row(k0, no2T[l], ne2T[l], th, tf, sin2i, cut[l, 0], cut[l, 1], pj, ret, hh)
+        elif sin2i == 0.0:
             dnl = dnT[l]
             for w in range(W):
                 delta = k0[w] * th * abs(dnl[w]) * tf
@@ -584,7 +638,7 @@ def _observable_rows(work, dop=1.0):
 def _one_sample(optics, sample, proj):
     """The work rows of one sample at every wavelength (the one-sample kernels' common part)."""
     k0, no2, ne2, rat, dn = optics
-    thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, cai, sai, dop = sample
+    thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, cai, sai, dop, cut = sample
     work = np.empty((N_WORK, k0.shape[0]))
     _spectrum(
         k0,
@@ -606,6 +660,7 @@ def _one_sample(optics, sample, proj):
         cai,
         sai,
         dop,
+        cut,
     )
     return work
 
@@ -700,7 +755,7 @@ def _keep_sample(work, kept_s):
 
 @nb.njit(inline="always", **_OPTS)
 def _lines_average(
-    lines, s, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, L, cai, sai, dop
+    lines, s, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, L, cai, sai, dop, cut
 ):
     """Power-weighted Stokes sums of one sample over the discrete source lines."""
     lk0, lno2, lne2, lrat, ldn, line_weight = lines
@@ -729,6 +784,7 @@ def _lines_average(
             cai,
             sai,
             dop,
+            cut,
         )
         lw = line_weight[k]
         a1 += lw * l1
@@ -762,7 +818,7 @@ def chunk_pass(optics, grid_weight, lines, samples, target, stats, outs):
     depend on T.
     """
     k0, no2, ne2, rat, dn = optics
-    thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, cai, sai, dop = samples
+    thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, cai, sai, dop, cut = samples
     proj, goal, metric_kind, w_design = target
     do_hist, lo, inv_width, hist, vmin, vmax, block_sums, block_size, ret_shift = stats
     worst, spec_stokes, design_stokes, keep, kept = outs
@@ -820,6 +876,7 @@ def chunk_pass(optics, grid_weight, lines, samples, target, stats, outs):
                     cai[s],
                     sai[s],
                     dop[s],
+                    cut[s],
                 )
                 _metric_row(work, g1, g2, g3, metric_kind, dop[s])
                 wmin, a1, a2, a3 = _band_summary(m, st1, st2, st3, grid_weight, worst_is_max)
@@ -861,6 +918,7 @@ def chunk_pass(optics, grid_weight, lines, samples, target, stats, outs):
                     cai[s],
                     sai[s],
                     dop[s],
+                    cut[s],
                 )
                 a1 += l1
                 a2 += l2

@@ -45,6 +45,7 @@ from .kernel import (
     SINCOS_LIMIT,
     _atan2,
     _band_summary,
+    _cut_indices,
     _fold_sample,
     _is_max,
     _keep_sample,
@@ -134,6 +135,33 @@ def _face_layer(k0, th, tf, sin2i, no2, ne2, rat, dn, sp, cp, nbar):
     return delta, mean
 
 
+@nb.njit(**_OPTS)
+def _face_cut(k0, th, tf, sin2i, no2, ne2, cz, p):
+    """:func:`_face_layer` for an optic axis tipped out of the face (cz = sin κ ≠ 0; the exact
+    normal components of :func:`tolerance.kernel._cut_retardance`)."""
+    Ne, No = _cut_indices(no2, ne2, sin2i, cz, p)
+    return k0 * th * abs(Ne - No) * tf, k0 * th * 0.5 * (No + Ne)
+
+
+@nb.njit(**_OPTS)
+def _face_cut_row(k0, th, tf, sin2i, no2l, ne2l, cz, p, pj, sg, air_gap, work, big):
+    """One layer with a cut angle over the wavelengths, as :func:`_spectrum_faces` does the
+    others: retardance, half-retardance, mean phase and relative retardance rows; returns the
+    largest phase seen so far."""
+    ret = work[_RET]
+    hh = work[_H]
+    phi = work[_RW]
+    drel = work[_AR]
+    for w in range(k0.shape[0]):
+        delta, mean = _face_cut(k0[w], th, tf, sin2i, no2l[w], ne2l[w], cz, p)
+        ret[w] += pj * delta
+        hh[w] = 0.5 * delta
+        phi[w] = mean if air_gap else phi[w] + mean
+        drel[w] += sg * delta
+        big = max(big, abs(mean) + abs(delta))
+    return big
+
+
 @nb.njit(inline="always", **_OPTS)
 def _layer_op(xr, xi, yr, yi, C, S, h):
     """The ideal retarder of half-retardance h, fast axis (C, S) (as :mod:`tolerance.kernel`)."""
@@ -148,7 +176,7 @@ def _layer_op(xr, xi, yr, yi, C, S, h):
 @nb.njit(**_OPTS)
 def _one_wavelength(
     k0, no2, ne2, rat, dn, nbar, rf, tf_, rs, ts, sgn, air_gap,
-    thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, L,
+    thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, L, cut,
 ):  # fmt: skip
     """Normalised Stokes and retardance [rad] of one sample at one wavelength, with faces.
 
@@ -162,10 +190,15 @@ def _one_wavelength(
     phi = 0.0
     drel = 0.0
     for l in range(L):
-        delta, mean = _face_layer(
-            k0, thick[l], tfac[l], sin2i, no2[l], ne2[l], rat[l], dn[l], sphi2[l], cphi2[l],
-            nbar[l],
-        )  # fmt: skip
+        if cut[l, 0] != 0.0:
+            delta, mean = _face_cut(
+                k0, thick[l], tfac[l], sin2i, no2[l], ne2[l], cut[l, 0], cut[l, 1]
+            )
+        else:
+            delta, mean = _face_layer(
+                k0, thick[l], tfac[l], sin2i, no2[l], ne2[l], rat[l], dn[l], sphi2[l], cphi2[l],
+                nbar[l],
+            )  # fmt: skip
         ret += proj[l] * delta
         C = c2[l]
         S = s2[l]
@@ -192,7 +225,9 @@ def _one_wavelength(
 
 
 @nb.njit(**_OPTS)
-def _spectrum_scalar(optics, faces, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, work):
+def _spectrum_scalar(
+    optics, faces, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, work, cut
+):  # fmt: skip
     """:func:`_spectrum_faces` one wavelength at a time (huge phases: the C library's sine)."""
     k0, no2, ne2, rat, dn = optics
     nbar, rho_f, tau_f, rho_s, tau_s, sgn, air_gap = faces
@@ -200,7 +235,7 @@ def _spectrum_scalar(optics, faces, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca
     for w in range(k0.shape[0]):
         st1, st2, st3, ret = _one_wavelength(
             k0[w], no2[w], ne2[w], rat[w], dn[w], nbar[w], rho_f[w], tau_f[w], rho_s[w],
-            tau_s[w], sgn, air_gap, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, L,
+            tau_s[w], sgn, air_gap, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, L, cut,
         )  # fmt: skip
         work[_XR, w] = st1
         work[_XI, w] = st2
@@ -210,7 +245,7 @@ def _spectrum_scalar(optics, faces, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca
 
 @nb.njit(**_OPTS)
 def _spectrum_faces(
-    optics, faces, tr, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, work
+    optics, faces, tr, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, work, cut
 ):  # fmt: skip
     """One sample's normalised Stokes into work rows _XR, _XI, _YR and retardance into _RET.
 
@@ -256,7 +291,11 @@ def _spectrum_faces(
         nbl = nbT[l]
         sp = sphi2[l]
         cp = cphi2[l]
-        if sin2i == 0.0:
+        if cut[l, 0] != 0.0:
+            big = _face_cut_row(
+                k0, th, tf, sin2i, no2l, ne2l, cut[l, 0], cut[l, 1], pj, sg, air_gap, work, big
+            )
+        elif sin2i == 0.0:
             # mean = k0·d·n̄ and delta as the ideal kernel (hoisted branches: loops vectorize)
             for w in range(W):
                 kt = k0[w] * th
@@ -279,7 +318,7 @@ def _spectrum_faces(
                 big = max(big, abs(mean) + abs(delta))
         if big >= 0.25 * SINCOS_LIMIT:
             _spectrum_scalar(
-                optics, faces, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, work
+                optics, faces, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, work, cut
             )
             return
         for w in range(W):
@@ -352,7 +391,9 @@ def _transposes(optics, faces):
 
 
 @nb.njit(**_OPTS)
-def _lines_faces(lines, line_faces, s, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj):
+def _lines_faces(
+    lines, line_faces, s, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, cut
+):  # fmt: skip
     """Power-weighted Stokes sums of one sample over the discrete source lines, with faces."""
     lk0, lno2, lne2, lrat, ldn, line_weight = lines
     nbar, rho_f, tau_f, rho_s, tau_s, sgn, air_gap = line_faces
@@ -365,7 +406,7 @@ def _lines_faces(lines, line_faces, s, thick, tfac, c2, s2, sin2i, cphi2, sphi2,
         l1, l2, l3, _ = _one_wavelength(
             lk0[ss, k], lno2[ss, k], lne2[ss, k], lrat[ss, k], ldn[ss, k], nbar[k], rho_f[k],
             tau_f[k], rho_s[k], tau_s[k], sgn, air_gap, thick, tfac, c2, s2, sin2i, cphi2,
-            sphi2, ca, sa, proj, L,
+            sphi2, ca, sa, proj, L, cut,
         )  # fmt: skip
         lw = line_weight[k]
         a1 += lw * l1
@@ -378,11 +419,13 @@ def _lines_faces(lines, line_faces, s, thick, tfac, c2, s2, sin2i, cphi2, sphi2,
 def values_one_faces(optics, faces, sample, proj, goal, metric_kind, out, stokes):
     """Retardance, axial ratio, azimuth and metric (N_VAR, W) and normalised Stokes (W, 3) of
     one sample, with the arithmetic of :func:`chunk_pass_faces`."""
-    thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, _cai, _sai, _dop = sample
+    thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, _cai, _sai, _dop, cut = sample
     W = optics[0].shape[0]
     work = np.empty((N_WORK, W))
     tr = _transposes(optics, faces)
-    _spectrum_faces(optics, faces, tr, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, work)
+    _spectrum_faces(
+        optics, faces, tr, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, work, cut
+    )  # fmt: skip
     _metric_row(work, goal[0], goal[1], goal[2], metric_kind)
     for w in range(W):
         stokes[w, 0] = work[_XR, w]
@@ -400,7 +443,7 @@ def values_one_faces(optics, faces, sample, proj, goal, metric_kind, out, stokes
 def chunk_pass_faces(optics, faces, grid_weight, lines, line_faces, samples, target, stats, outs):
     """:func:`tolerance.kernel.chunk_pass` for a plate with faces (``faces``, ``line_faces``:
     :class:`FaceOptics` on the grid and at the source lines); the same outputs and threading."""
-    thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, _cai, _sai, _dop = samples
+    thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, _cai, _sai, _dop, cut = samples
     proj, goal, metric_kind, w_design = target
     do_hist, lo, inv_width, hist, vmin, vmax, block_sums, block_size, ret_shift = stats
     worst, spec_stokes, design_stokes, keep, kept = outs
@@ -434,7 +477,7 @@ def chunk_pass_faces(optics, faces, grid_weight, lines, line_faces, samples, tar
             for s in range(s_lo, s_hi):
                 _spectrum_faces(
                     optics, faces, tr, thick[s], tfac[s], c2[s], s2[s], sin2i[s], cphi2[s],
-                    sphi2[s], ca[s], sa[s], proj, work,
+                    sphi2[s], ca[s], sa[s], proj, work, cut[s],
                 )  # fmt: skip
                 _metric_row(work, g1, g2, g3, metric_kind)
                 wmin, a1, a2, a3 = _band_summary(m, st1, st2, st3, grid_weight, worst_is_max)
@@ -452,7 +495,7 @@ def chunk_pass_faces(optics, faces, grid_weight, lines, line_faces, samples, tar
                         _keep_sample(work, kept[s])
                 l1, l2, l3 = _lines_faces(
                     lines, line_faces, s, thick[s], tfac[s], c2[s], s2[s], sin2i[s], cphi2[s],
-                    sphi2[s], ca[s], sa[s], proj,
+                    sphi2[s], ca[s], sa[s], proj, cut[s],
                 )  # fmt: skip
                 worst[s] = wmin
                 spec_stokes[s, 0] = a1 + l1

@@ -280,6 +280,7 @@ def sample_inputs(case: Case, study: Study, draws: Draws, start: int, stop: int,
         poi = np.zeros(n)
     sin2i = np.sin(np.radians(aoi)) ** 2
     phi = np.radians(poi[:, None] - optic)
+    cut = _cut_inputs(tol, value, aoi, phi, n, L)
     alpha = study.input.azimuth_deg
     if "input_azimuth_deg" in tol:
         alpha = alpha + value("input_azimuth_deg")
@@ -302,8 +303,26 @@ def sample_inputs(case: Case, study: Study, draws: Draws, start: int, stop: int,
         c(cai),
         c(sai),
         c(dop),
+        cut,
     )
     return inputs, {"drift": drift, "temperature": temp, "aoi": aoi}
+
+
+def _cut_inputs(tol, value, aoi, phi, n: int, L: int) -> np.ndarray:
+    """Per sample and layer (S, L, 2): sin κ of the drawn cut angle κ and p = sin θᵢ·cos κ·
+    cos φ, the tangential wave vector along the optic axis [k₀] (φ: plane of incidence from the
+    layer's optic axis; :func:`tolerance.retardance.cut_index_difference`).  All zero without
+    ``cut_deg``, and wherever κ = 0, which keeps the kernel on its in-face arithmetic."""
+    out = np.zeros((n, L, 2))
+    if "cut_deg" not in tol:
+        return out
+    for j in range(L):
+        k = np.radians(value("cut_deg", j))
+        sk = np.sin(k)
+        out[:, j, 0] = sk
+        p = np.sin(np.radians(aoi)) * np.cos(k) * np.cos(phi[:, j])
+        out[:, j, 1] = np.where(sk != 0.0, p, 0.0)
+    return out
 
 
 def _train_draws(case: Case, study: Study, tol, value, n: int):

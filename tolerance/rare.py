@@ -123,6 +123,8 @@ def reject_estimate(eng, case, res, budget: int = EVALUATIONS) -> RejectEstimate
     if run.rare != "auto" or res.yield_ < RARE_YIELD or not case.active:
         return plain
     streams = case_streams(case)
+    if not streams:  # nothing acts on this plate (crossing on a single plate)
+        return plain
     seed_seq = np.random.SeedSequence(eng.seed, spawn_key=(17, _case_key(case)))
     rng = np.random.default_rng(seed_seq)
 

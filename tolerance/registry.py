@@ -86,6 +86,10 @@ class Registry(Mapping):
     def __getitem__(self, name: str) -> Entry:
         return self._entries[name]
 
+    def __contains__(self, name) -> bool:
+        # a spec value such as [] or {} is not a name: not held, rather than unhashable
+        return isinstance(name, str) and name in self._entries
+
     def __iter__(self) -> Iterator[str]:
         return iter(self._entries)
 

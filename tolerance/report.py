@@ -629,6 +629,7 @@ _TOL_WORDS = {
     "tilt_deg": "angle of incidence (its magnitude; plane-of-incidence azimuth uniform)",
     "temperature_c": "plate temperature",
     "input_azimuth_deg": "input azimuth",
+    "cut_deg": "optic axis out of the face, crystal cut (each plate)",
 }
 
 

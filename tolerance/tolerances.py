@@ -5,6 +5,13 @@ report's words and the CLI all read it.  Each entry's ``extra`` carries ``short`
 results grid), ``per_layer`` (drawn independently for each layer), ``max_reach`` (the largest
 deviation that is physically sensible, or None) and ``unit_kind`` ("length" when a width may be
 written with a unit such as ``"0.2um"``).
+
+``cut_deg`` is the angle κ between a layer's optic axis and its face, tipped in the plane of the
+axis and the normal (the fast axis keeps its azimuth; an error of the axis within the face is
+``clocking_deg``).  Its phase is the exact one for an arbitrary optic axis, with the angle of
+incidence of ``tilt_deg`` and that tilt's uniform plane-of-incidence azimuth
+(:func:`tolerance.retardance.cut_index_difference`; Veiras, Perez & Garea, Appl. Opt. 49, 2769
+(2010)); the azimuth of the tip relative to the plane of incidence is therefore uniform.
 """
 
 from __future__ import annotations
@@ -74,6 +81,16 @@ TOLERANCES.add(
     unit="deg",
     short="input_azimuth",
     per_layer=False,
+    max_reach=45.0,
+    unit_kind=None,
+)
+TOLERANCES.add(
+    "cut_deg",
+    "each plate's optic axis tipped out of the face (crystal cut error), independently; "
+    "exact phase with the tilt",
+    unit="deg",
+    short="cut",
+    per_layer=True,
     max_reach=45.0,
     unit_kind=None,
 )

@@ -157,6 +157,9 @@ def sobol_indices(eng, case, n_base: int, n_boot: int = BOOTSTRAP) -> SobolIndic
     }
     # a tolerance with no stream here (crossing on a single plate) does nothing: no index
     keys = [k for k, cols in groups.items() if cols]
+    if not keys:  # nothing acts on this plate: no indices, and no evaluations spent
+        empty = MappingProxyType({})
+        return SobolIndices(empty, empty, "none", int(n_base), 0)
     groups = [groups[k] for k in keys]
     xi = pick_freeze_points(eng.seed, streams, groups, n_base)
     worst, pm = evaluate_points(eng, case, streams, xi)
