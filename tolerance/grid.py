@@ -26,7 +26,7 @@ from .environment import (
 )
 from .metrics import METRICS
 from .safety import caution
-from .tolerances import SHORT
+from .tolerances import short_name
 from .version import __version__
 
 
@@ -413,7 +413,7 @@ def _yield_values(results, tol_names) -> dict:
         "yield_high": np.array([r.yield_high for r in results]),
         "sensitivity_alone": sens("sens_alone"),
         "sensitivity_without": sens("sens_without"),
-        "dominant": np.array([SHORT.get(r.dominant, r.dominant) for r in results], dtype=object),
+        "dominant": np.array([short_name(r.dominant) for r in results], dtype=object),
         **_margin_values(results, tol_names),
     }
 
@@ -427,7 +427,7 @@ def _margin_values(results, tol_names) -> dict:
             [[r.margin_gain.get(t, np.nan) for t in tol_names] for r in results]
         ).reshape(C, len(tol_names)),
         "margin_dominant": np.array(
-            [SHORT.get(r.margin_dominant, r.margin_dominant) for r in results], dtype=object
+            [short_name(r.margin_dominant) for r in results], dtype=object
         ),
     }
 
@@ -450,7 +450,7 @@ def _explain_values(results, tol_keys) -> dict:
     rej = [r.reject for r in results]
     nan = float("nan")
     out["dominant_variance"] = np.array(
-        [SHORT.get(r.dominant_variance, r.dominant_variance) for r in results], dtype=object
+        [short_name(r.dominant_variance) for r in results], dtype=object
     )
     out["reject_rate"] = np.array([x.rate if x else nan for x in rej])
     out["reject_rate_low"] = np.array([x.low if x else nan for x in rej])
@@ -559,7 +559,7 @@ def to_dataset(eng, results, tol_keys) -> xr.Dataset:
     study = eng.study
     cases = eng.cases
     names = [c.plate.name for c in cases]
-    tol_names = [SHORT[k] for k in tol_keys]
+    tol_names = [short_name(k) for k in tol_keys]
     info = METRICS[study.goal.metric].extra
     mu, mlong = info["unit"], info["long_name"]
     env = study.environment
@@ -569,9 +569,9 @@ def to_dataset(eng, results, tol_keys) -> xr.Dataset:
     short_results = [
         dataclasses.replace(
             r,
-            sens_alone={SHORT[k]: v for k, v in r.sens_alone.items()},
-            sens_without={SHORT[k]: v for k, v in r.sens_without.items()},
-            margin_gain={SHORT[k]: v for k, v in r.margin_gain.items()},
+            sens_alone={short_name(k): v for k, v in r.sens_alone.items()},
+            sens_without={short_name(k): v for k, v in r.sens_without.items()},
+            margin_gain={short_name(k): v for k, v in r.margin_gain.items()},
         )
         for r in results
     ]

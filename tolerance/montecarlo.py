@@ -43,7 +43,7 @@ from .kernel import (
 from .plates import Plate
 from .polarization import goal_vector
 from .study import Candidate, Study
-from .tolerances import SHORT
+from .tolerances import SHORT, element_key, expand_train, order_key, split_key
 
 #: Histogram bins per variable and wavelength (fewer for very long grids).
 BINS = 2048
@@ -72,8 +72,10 @@ class Case:
 
     @property
     def active(self) -> tuple[str, ...]:
-        """Tolerances that vary (zero widths left out), in the grid's order."""
-        return tuple(k for k in SHORT if k in self.tolerances and not self.tolerances[k].is_zero)
+        """Tolerances that vary (zero widths left out), in the grid's order (a train's by
+        element after each tolerance)."""
+        act = [k for k, v in self.tolerances.items() if not v.is_zero]
+        return tuple(sorted(act, key=order_key))
 
     @property
     def fixed(self) -> tuple[str, ...]:
@@ -234,9 +236,10 @@ def sample_inputs(case: Case, study: Study, draws: Draws, start: int, stop: int,
     n = stop - start
     tol = {k: v for k, v in case.tolerances.items() if active is None or k in active}
 
-    def value(key, index=0, center=0.0):
+    def value(key, index=0, center=0.0, name=None):
+        # ``name``: the tolerance's name when it differs from its stream's (a train element's)
         z, u = draws(key, index, start, stop)
-        return tol[key].draw(z, u, center=center)
+        return tol[name or key].draw(z, u, center=center)
 
     thick = np.empty((n, L))
     axis = np.empty((n, L))
@@ -254,18 +257,26 @@ def sample_inputs(case: Case, study: Study, draws: Draws, start: int, stop: int,
     if owner is not None:
         clocks, scales = _train_draws(case, study, tol, value, n)
     for j, la in enumerate(plate.layers):
+        t_name = x_name = None
         if owner is not None:
             # a train: each element's mount has its own clocking (stream index = element) and
-            # its own retardance scale; crossing acts between the layers of one element only
+            # its own retardance scale; crossing acts between the layers of one element only;
+            # thickness and crossing read the element's own tolerance (stream index = layer)
             clock, scale = clocks[owner[j]], scales[owner[j]]
             first = j == 0 or owner[j - 1] != owner[j]
+            t_name = element_key("thickness_um", owner[j])
+            x_name = element_key("crossing_deg", owner[j])
         else:
             first = j == 0
-        if "thickness_um" in tol:
-            thick[:, j] = la.thickness_um * scale + value("thickness_um", j)
+        if (t_name or "thickness_um") in tol:
+            thick[:, j] = la.thickness_um * scale + value("thickness_um", j, name=t_name)
         else:
             thick[:, j] = la.thickness_um * scale
-        cross = value("crossing_deg", j) if not first and "crossing_deg" in tol else 0.0
+        cross = (
+            value("crossing_deg", j, name=x_name)
+            if not first and (x_name or "crossing_deg") in tol
+            else 0.0
+        )
         axis[:, j] = la.axis_deg + clock + cross
         optic[:, j] = la.optic_axis_deg + clock + cross
         m = la.material
@@ -310,14 +321,19 @@ def _train_draws(case: Case, study: Study, tol, value, n: int):
     """Per element of a train: the mount's clocking [deg] and the retardance scale factor.
 
     Element e reads stream index e of ``clocking_deg`` and ``retardance_waves`` (independent
-    mounts and plates); its retardance error is read at its own design wavelength.
+    mounts and plates) through its own tolerances (``clocking_deg[element e]``); its retardance
+    error is read at its own ``at`` if its table gives one, else at its design wavelength.
     """
     clocks, scales = [], []
+    specs = case.candidate.elements or ()
     for e, el in enumerate(case.plate.details["elements"]):
-        clocks.append(value("clocking_deg", e) if "clocking_deg" in tol else np.zeros(n))
-        if "retardance_waves" in tol:
-            r = nominal_retardance_waves(el, float(el.design_nm))
-            scales.append(1.0 + np.asarray(value("retardance_waves", e)) / r)
+        c_name, r_name = element_key("clocking_deg", e), element_key("retardance_waves", e)
+        clocks.append(value("clocking_deg", e, name=c_name) if c_name in tol else np.zeros(n))
+        if r_name in tol:
+            own = specs[e].retardance_at_nm if e < len(specs) else None
+            at = float(own) if own is not None else float(el.design_nm)
+            r = nominal_retardance_waves(el, at)
+            scales.append(1.0 + np.asarray(value("retardance_waves", e, name=r_name)) / r)
         else:
             scales.append(1.0)
     return clocks, scales
@@ -572,12 +588,21 @@ class Engine:
             cand = candidate
         plate = plate if plate is not None else cand.plate
         tol = dict(self.study.tolerances_for(cand) if tolerances is None else tolerances)
+        if cand.elements is not None and tolerances is not None:
+            tol = expand_train(
+                tol,
+                [el.tolerances for el in cand.elements],
+                [len(el.plate.layers) for el in cand.elements],
+            )
         for k, f in (scale or {}).items():
-            if k not in tol:
+            # a train's tolerance named without an element scales it on every element
+            hits = [k] if k in tol else [t for t in tol if split_key(t)[0] == k]
+            if not hits:
                 raise RetolError(
                     k, "is not a tolerance of this candidate", f"known: {', '.join(tol)}"
                 )
-            tol[k] = tol[k].scaled(f)
+            for t in hits:
+                tol[t] = tol[t].scaled(f)
         w_design = int(np.argmin(np.abs(self.grid - plate.design_nm)))
         goal = self.study.goal
         if goal.state == "circular":
@@ -1007,7 +1032,7 @@ def _pass_task(sample_range, eng: Engine, case: Case, active) -> int:
 def tolerance_names(cases) -> tuple[str, ...]:
     """Every tolerance active in any case, in the grid's order."""
     act = {k for c in cases for k in c.active}
-    return tuple(k for k in SHORT if k in act)
+    return tuple(sorted(act, key=order_key))
 
 
 def check_finite(case: Case, acc: Accumulator, nom: Nominal, pass_metric) -> None:

@@ -682,6 +682,24 @@ def _override_words(spec) -> list[str]:
                 + "; ".join(parts)
                 + "."
             )
+        for e, el in enumerate(cand.get("elements") or [] if isinstance(cand, dict) else []):
+            tols = el.get("tolerances") if isinstance(el, dict) else None
+            if isinstance(tols, dict) and tols:
+                parts = [
+                    f"{_TOL_WORDS.get(k, k)}: {_distribution_words(v, k)}" for k, v in tols.items()
+                ]
+                out.append(
+                    f"Element {e} of {_s(cand.get('name', '?'))} has its own tolerances — "
+                    + "; ".join(parts)
+                    + "."
+                )
+        if isinstance(cand, dict) and cand.get("elements"):
+            out.append(
+                f"{_s(cand.get('name', '?'))} is a train: each element's plate and mount "
+                "tolerances (thickness, retardance, clocking, crossing) are drawn independently "
+                "for each element and reported per element (e.g. clocking[element 1]; element 0 "
+                "is the first the light meets)."
+            )
     return out
 
 

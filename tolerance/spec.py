@@ -33,7 +33,7 @@ from .study import (
     WavelengthGrid,
     _proxy,
 )
-from .tolerances import TOLERANCES, check_bounds
+from .tolerances import PER_ELEMENT, TOLERANCES, check_bounds
 from .units import interval_nm, length_um, wavelength_nm
 
 TOP_KEYS = (
@@ -886,13 +886,14 @@ def _train(ctx: _Ctx, c: dict, name: str, where: str, default_design) -> Candida
         )
     elements = []
     for k, e in enumerate(els):
-        if "elements" in e or "tolerances" in e or "name" in e:
-            bad = next(x for x in ("elements", "tolerances", "name") if x in e)
+        if "elements" in e or "name" in e:
+            bad = next(x for x in ("elements", "name") if x in e)
             raise ctx.err(
                 f"{where}elements[{k}].{bad}",
                 "is not allowed in an element",
-                "elements are plates; tolerances go in the candidate's own table",
+                "elements are plates in their own mounts; name the candidate instead",
             )
+        _check_element_tolerances(ctx, e.get("tolerances"), f"{where}elements[{k}].tolerances")
         elements.append(_candidate(ctx, {**e, "name": f"{name} #{k}"}, k, default_design))
     tol, at_nm = {}, None
     if "tolerances" in c:
@@ -912,6 +913,22 @@ def _train(ctx: _Ctx, c: dict, name: str, where: str, default_design) -> Candida
         elements=tuple(elements),
     )
     return dataclasses.replace(cand, plate=train_plate(name, cand.elements))
+
+
+def _check_element_tolerances(ctx: _Ctx, table, where: str) -> None:
+    """An element's own tolerances are those of its plate and mount (:data:`PER_ELEMENT`)."""
+    if table is None:
+        return
+    if not isinstance(table, dict):
+        raise ctx.err(where, "must be a table", "e.g. tolerances = { clocking_deg = { sigma = 0.2 } }")
+    ctx.check_keys(table, list(TOLERANCES), f"{where}.")
+    for key in table:
+        if key not in PER_ELEMENT:
+            raise ctx.err(
+                f"{where}.{key}",
+                "acts on the whole train, not on one element",
+                "give it in the candidate's tolerances or in [tolerances]",
+            )
 
 
 def _raw_candidate(c: dict) -> dict:

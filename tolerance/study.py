@@ -16,7 +16,7 @@ import numpy as np
 
 from .distributions import Distribution
 from .frozen import ReadOnlyMapping
-from .tolerances import DRIFT, SHORT
+from .tolerances import DRIFT, SHORT, expand_train
 
 
 def _proxy(d) -> Mapping:
@@ -462,11 +462,22 @@ class Study:
         return Path(self.spec_path).name if self.spec_path != "<spec>" else self.spec_path
 
     def tolerances_for(self, candidate: Candidate) -> Mapping[str, Distribution]:
-        """The candidate's tolerances: the study's, overridden by its own, plus the laser drift."""
+        """The candidate's tolerances: the study's, overridden by its own, plus the laser drift.
+
+        For a train the plate and mount tolerances (:data:`~tolerance.tolerances.PER_ELEMENT`)
+        are named per element (``clocking_deg[element 1]``), each element's own table first.
+        """
         tol = dict(self.tolerances)
         tol.update(candidate.tolerances)
         if self.source.drift is not None:
             tol[DRIFT] = self.source.drift
+        if candidate.elements is not None:
+            # a train: each element's plate and mount tolerances by name, its own table first
+            tol = expand_train(
+                tol,
+                [el.tolerances for el in candidate.elements],
+                [len(el.plate.layers) for el in candidate.elements],
+            )
         return _proxy(tol)
 
     def candidate(self, name: str) -> Candidate:
