@@ -426,9 +426,7 @@ def _margin_values(results, tol_names) -> dict:
         "margin_gain": np.array(
             [[r.margin_gain.get(t, np.nan) for t in tol_names] for r in results]
         ).reshape(C, len(tol_names)),
-        "margin_dominant": np.array(
-            [short_name(r.margin_dominant) for r in results], dtype=object
-        ),
+        "margin_dominant": np.array([short_name(r.margin_dominant) for r in results], dtype=object),
     }
 
 

@@ -920,7 +920,9 @@ def _check_element_tolerances(ctx: _Ctx, table, where: str) -> None:
     if table is None:
         return
     if not isinstance(table, dict):
-        raise ctx.err(where, "must be a table", "e.g. tolerances = { clocking_deg = { sigma = 0.2 } }")
+        raise ctx.err(
+            where, "must be a table", "e.g. tolerances = { clocking_deg = { sigma = 0.2 } }"
+        )
     ctx.check_keys(table, list(TOLERANCES), f"{where}.")
     for key in table:
         if key not in PER_ELEMENT:

@@ -38,7 +38,8 @@ def keyed_streams(case) -> tuple[tuple[str, tuple[str, int]], ...]:
     (index = layer, crossing from the element's second layer on).
     """
     L = len(case.plate.layers)
-    owner = case.plate.details.get("element_of_layer") if case.plate.construction == "train" else None
+    train = case.plate.construction == "train"
+    owner = case.plate.details.get("element_of_layer") if train else None
     out = []
     for key in case.active:
         base, e = split_key(key)

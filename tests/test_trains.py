@@ -1,0 +1,296 @@
+"""Trains of separately mounted plates: each element's own tolerances, per-element sensitivity,
+allocation and drawing rows.
+
+Sources
+-------
+[derived] Derived in the test's docstring.
+[AB] R. M. A. Azzam and N. M. Bashara, Ellipsometry and Polarized Light (North-Holland, 1977),
+    sec. 2.6: a retarder of retardance delta turns the Poincare sphere by delta about its axis;
+    a half-wave plate at theta turns a linear state at alpha to 2 theta - alpha.
+[sympy] sympy.physics.optics.polarization (SymPy): ``half_wave_retarder(theta)``,
+    ``quarter_wave_retarder(theta)``, ``jones_vector(psi, chi)``, ``jones_2_stokes`` (S3 of
+    the opposite sign to this package's, so negated).
+[GUM] JCGM 100:2008, 5.1.2: independent contributions add in quadrature.
+"""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+import sympy as sp
+from click.testing import CliRunner
+from sympy.physics.optics import polarization as spol
+
+from tolerance import allocation as A
+from tolerance.cli.main import cli
+from tolerance.errors import RetolError
+from tolerance.montecarlo import Engine, run, sample_inputs
+from tolerance.spec import loads
+from tolerance.study import Study
+
+_th, _psi, _chi = sp.symbols("theta psi chi", real=True)
+_a, _b, _c, _d = sp.symbols("a b c d", real=True)
+SYM_QWP = sp.lambdify(_th, spol.quarter_wave_retarder(_th), "numpy")
+SYM_HWP = sp.lambdify(_th, spol.half_wave_retarder(_th), "numpy")
+SYM_JONES = sp.lambdify((_psi, _chi), spol.jones_vector(_psi, _chi), "numpy")
+SYM_STOKES = sp.lambdify(
+    (_a, _b, _c, _d), spol.jones_2_stokes(sp.Matrix([_a + sp.I * _b, _c + sp.I * _d])), "numpy"
+)
+
+# A half-wave plate at 45 deg lit along its axis (linear 45 deg) passes the state unchanged;
+# the quarter-wave plate at 0 deg then makes it circular.
+TRAIN = """title = "train"
+[wavelength]
+start = "633nm"
+stop = "633nm"
+step = "1nm"
+[source]
+shape = "laser"
+center = "633nm"
+[input]
+azimuth_deg = 45
+[goal]
+state = "circular"
+handedness = "{hand}"
+metric = "sphere_angle_deg"
+max = {limit}
+[[candidate]]
+name = "hwp+qwp"
+{cand_tol}
+[[candidate.elements]]
+construction = "zero-order"
+material = "quartz"
+waves = 0.5
+design = "633nm"
+axis_deg = 45
+{tol0}
+[[candidate.elements]]
+construction = "zero-order"
+material = "quartz"
+waves = 0.25
+design = "633nm"
+axis_deg = 0
+{tol1}
+[tolerances]
+{tol}
+"""
+
+
+def spec(tol0="", tol1="", tol="", cand_tol="", limit=1.0, hand=None):
+    return TRAIN.format(
+        tol0=tol0, tol1=tol1, tol=tol, cand_tol=cand_tol, limit=limit, hand=hand or HAND
+    )
+
+
+def _hand():
+    st = loads(spec(hand="right"), "t.toml")
+    eng = Engine(st, samples=512, seed=1)
+    s3 = eng.nominal(eng.case(0)).design_stokes[2]
+    return "right" if s3 > 0 else "left"
+
+
+HAND = _hand()
+
+
+def study(**kw):
+    return loads(spec(**kw), "t.toml")
+
+
+def test_element_tolerances_named_per_element_and_overridden():
+    """An element's own table overrides the candidate's, which overrides [tolerances]; a
+    tolerance written without an element acts on every element; train-wide ones keep their
+    names."""
+    st = study(
+        tol1="tolerances = { clocking_deg = { sigma = 0.05 } }",
+        cand_tol="tolerances = { thickness_um = { sigma = 0.02 } }",
+        tol="clocking_deg = { sigma = 0.3 }\nthickness_um = { sigma = 0.1 }\n"
+        "tilt_deg = { sigma = 1 }",
+    )
+    tol = st.tolerances_for(st.candidates[0])
+    assert tol["clocking_deg[element 0]"].sigma == 0.3
+    assert tol["clocking_deg[element 1]"].sigma == 0.05
+    assert tol["thickness_um[element 0]"].sigma == 0.02
+    assert tol["thickness_um[element 1]"].sigma == 0.02
+    assert tol["tilt_deg"].sigma == 1.0
+    assert "clocking_deg" not in tol and "crossing_deg[element 0]" not in tol
+    # the study's JSON (stored in every grid) loads back into an equal study
+    assert Study.from_dict(json.loads(st.to_json())) == st
+
+
+def test_draws_independent_and_on_the_right_element():
+    """Thickness on element 1 only moves layer 1 (element 0's layer stays nominal); clocking on
+    both elements draws from separate streams: uncorrelated, each with its own sigma."""
+    n = 8192
+    st = study(
+        tol0="tolerances = { clocking_deg = { sigma = 1.0 } }",
+        tol1="tolerances = { clocking_deg = { sigma = 0.5 }, thickness_um = { sigma = 0.2 } }",
+    )
+    eng = Engine(st, samples=n, seed=4)
+    case = eng.case(0)
+    inp, _ = sample_inputs(case, st, eng.draws, 0, n)
+    t0 = case.plate.layers[0].thickness_um
+    assert np.all(inp.thick[:, 0] == t0)
+    assert np.std(inp.thick[:, 1]) == pytest.approx(0.2, rel=0.05)
+    ang = 0.5 * np.degrees(np.arctan2(inp.s2, inp.c2))
+    e0, e1 = ang[:, 0] - 45.0, ang[:, 1]
+    assert abs(np.corrcoef(e0, e1)[0, 1]) < 0.05
+    assert np.std(e0) == pytest.approx(1.0, rel=0.05)
+    assert np.std(e1) == pytest.approx(0.5, rel=0.05)
+
+
+@pytest.mark.parametrize("element,factor", [(0, 4.0), (1, 2.0)])
+def test_clocking_on_one_element_closed_form(element, factor):
+    """[derived] Clocking e ~ U(-w, w) on one element only.
+
+    Element 1 (the QWP at 0, lit at 45 deg): as for a single plate the output's latitude is
+    2(45 - |e|), so the sphere angle from the circular goal is 2|e| [AB].  Element 0 (the HWP
+    at 45 + e, lit at 45): its output is linear at 2(45 + e) - 45 = 45 + 2e [AB], which the
+    QWP at 0 takes to latitude 2(45 - 2|e|): sphere angle 4|e|.  So the yield of max = L is
+    min(1, L / (k w)) with k = 4 (element 0) or 2 (element 1); checked per sample (the drawn
+    angle of that element's stream) to 1e-6 deg and the yield within 4 binomial sigmas.
+    """
+    w, L, n = 1.0, 1.0, 8192
+    own = "tolerances = { clocking_deg = { uniform = 1.0 } }"
+    st = study(limit=L, **{f"tol{element}": own})
+    eng = Engine(st, samples=n, seed=3)
+    case = eng.case(0)
+    assert case.active == (f"clocking_deg[element {element}]",)
+    worst, _ = eng.pass_values(case)
+    z, u = eng.draws("clocking_deg", element, 0, n)
+    e = case.tolerances[f"clocking_deg[element {element}]"].draw(z, u, center=0.0)
+    np.testing.assert_allclose(worst, factor * np.abs(e), atol=1e-6)
+    p = min(1.0, L / (factor * w))
+    assert abs(eng.pass_rate(case) - p) < 4 * np.sqrt(p * (1 - p) / n)
+
+
+def test_both_clockings_against_sympy():
+    """[sympy] Both mounts clock at once: each sample's sphere angle is that of the forward
+    Jones product QWP(e1) . HWP(45 + e0) on linear 45 deg, with the drawn e0 and e1."""
+    n = 512
+    st = study(
+        tol0="tolerances = { clocking_deg = { sigma = 1.0 } }",
+        tol1="tolerances = { clocking_deg = { sigma = 2.0 } }",
+        limit=3.0,
+    )
+    eng = Engine(st, samples=n, seed=8)
+    case = eng.case(0)
+    worst, _ = eng.pass_values(case)
+    e = []
+    for k in (0, 1):
+        z, u = eng.draws("clocking_deg", k, 0, n)
+        e.append(case.tolerances[f"clocking_deg[element {k}]"].draw(z, u, center=0.0))
+    E = np.asarray(SYM_JONES(np.pi / 4, 0.0), dtype=complex).ravel()
+    ref = np.empty(n)
+    for i in range(n):
+        J = np.asarray(SYM_QWP(np.radians(e[1][i])), dtype=complex) @ np.asarray(
+            SYM_HWP(np.radians(45.0 + e[0][i])), dtype=complex
+        )
+        out = J @ E
+        s = np.asarray(SYM_STOKES(out[0].real, out[0].imag, out[1].real, out[1].imag), float)
+        s = s.ravel() / s.ravel()[0]
+        s[3] = -s[3]
+        ref[i] = np.degrees(np.arccos(np.clip(s[1:] @ case.goal, -1, 1)))
+    np.testing.assert_allclose(worst, ref, atol=1e-5)
+
+
+def test_sensitivity_names_the_element():
+    """[derived] The grid's sensitivity rows are per element; with element 0 at U(±0.5) and
+    element 1 at U(±0.5) and max = 1 deg, element 0 alone gives min(1, 1/(4·0.5)) = 0.5 and
+    element 1 alone gives 1 (2·0.5 = 1 never exceeds max), so element 0 dominates."""
+    st = study(
+        tol0="tolerances = { clocking_deg = { uniform = 0.5 } }",
+        tol1="tolerances = { clocking_deg = { uniform = 0.5 } }",
+    )
+    g = run(st, samples=4096, seed=2)
+    names = [str(t) for t in g["tolerance_name"].values]
+    assert names == ["clocking[element 0]", "clocking[element 1]"]
+    alone = g["sensitivity_alone"].sel(candidate="hwp+qwp")
+    assert float(alone.sel(tolerance_name="clocking[element 0]")) == pytest.approx(
+        0.5, abs=4 * np.sqrt(0.25 / 4096)
+    )
+    assert float(alone.sel(tolerance_name="clocking[element 1]")) == 1.0
+    assert str(g["dominant"].sel(candidate="hwp+qwp").values) == "clocking[element 0]"
+
+
+def test_drawing_rows_one_per_element():
+    """[GUM] One drawing row per element with its own ± (3 sigma of a normal form) and the
+    train-wide ones repeated; the retardance ± of element 1 from its thickness alone is
+    0.25 · Δt / d (retardance proportional to thickness, derived)."""
+    st = study(
+        tol1="tolerances = { thickness_um = { sigma = 0.1 }, clocking_deg = { sigma = 0.2 } }",
+        tol="clocking_deg = { sigma = 0.5 }\ntilt_deg = { sigma = 1 }",
+    )
+    c = st.candidates[0]
+    rows = A.drawing_rows(st, c, st.tolerances_for(c), 0.9)
+    assert [r["element"] for r in rows] == [0, 1]
+    assert [r["fast_axis_deg"] for r in rows] == [45.0, 0.0]
+    assert [r["construction"] for r in rows] == ["zero-order", "zero-order"]
+    assert rows[0]["material"] == "quartz"
+    assert rows[0]["clocking_tol_deg"] == pytest.approx(1.5)
+    assert rows[1]["clocking_tol_deg"] == pytest.approx(0.6)
+    assert rows[0]["layer1_thickness_tol_um"] == 0.0
+    assert rows[1]["layer1_thickness_tol_um"] == pytest.approx(0.3)
+    d = c.elements[1].plate.layers[0].thickness_um
+    assert rows[1]["retardance_tol_waves"] == pytest.approx(0.25 * 0.3 / d, rel=1e-6)
+    assert rows[0]["retardance_waves"] == pytest.approx(0.5, abs=1e-9)
+    assert all(r["tilt_tol_deg"] == pytest.approx(3.0) for r in rows)
+
+
+def test_allocation_per_element_closed_form():
+    """[derived] Only element 1 (the QWP) clocks, U(±w): yield min(1, L/(2w)), so the loosest
+    half width for yield Y is L / (2 Y).  ``retol allocate`` varies it under its element name
+    and the answer's Monte Carlo width interval holds the closed form."""
+    st = study(tol1="tolerances = { clocking_deg = { uniform = 0.3 } }", limit=1.0)
+    res = A.allocate(st, 0.8, samples=4096, seed=5)
+    ca = res.candidates[0]
+    a = ca.alone["clocking_deg[element 1]"]
+    exact = 1.0 / (2 * 0.8)
+    assert a.width_low <= exact <= a.width_high
+    assert a.width == pytest.approx(exact, rel=0.05)
+    rows = A.drawing_rows_for_allocation(res, st)
+    assert [r["element"] for r in rows] == [0, 1]
+    assert rows[1]["clocking_tol_deg"] == pytest.approx(
+        ca.balanced.widths["clocking_deg[element 1]"]
+    )
+    # --vary takes an element's name too
+    assert A.check_vary(st, ["clocking_deg[element 1]"]) == ("clocking_deg[element 1]",)
+
+
+@pytest.mark.parametrize(
+    "tol0,field",
+    [
+        ("tolerances = { tilt_deg = { sigma = 1 } }", "elements[0].tolerances.tilt_deg"),
+        ("tolerances = { clocking = { sigma = 1 } }", "elements[0].tolerances.clocking"),
+        ("tolerances = 3", "elements[0].tolerances"),
+        ("tolerances = { clocking_deg = { sigma = -1 } }", "clocking_deg"),
+        ("tolerances = { clocking_deg = { sigma = 60 } }", "clocking_deg"),
+    ],
+)
+def test_bad_element_tolerances_one_line(tol0, field):
+    with pytest.raises(RetolError) as ei:
+        study(tol0=tol0)
+    msg = str(ei.value)
+    assert "\n" not in msg and field in msg
+
+
+def test_cli_run_json_and_drawing_per_element(tmp_path):
+    """``retol run``: summary.csv and the JSON name the element of each sensitivity; drawing.csv
+    has a row per element."""
+    p = tmp_path / "t.toml"
+    p.write_text(
+        spec(
+            tol0="tolerances = { clocking_deg = { uniform = 0.5 } }",
+            tol1="tolerances = { clocking_deg = { uniform = 0.2 } }",
+        )
+    )
+    out = tmp_path / "out"
+    r = CliRunner().invoke(cli, ["run", str(p), "--out", str(out), "--samples", "1024", "--json"])
+    assert r.exit_code == 0, r.output
+    head = (out / "summary.csv").read_text().splitlines()[0]
+    assert "yield_alone_clocking[element 1]" in head
+    lines = (out / "drawing.csv").read_text().splitlines()
+    cols = lines[0].split(",")
+    assert cols[:2] == ["candidate", "element"] and len(lines) == 3
+    assert '"clocking[element 0]"' in r.output and '"clocking[element 1]"' in r.output
