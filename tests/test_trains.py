@@ -294,3 +294,17 @@ def test_cli_run_json_and_drawing_per_element(tmp_path):
     cols = lines[0].split(",")
     assert cols[:2] == ["candidate", "element"] and len(lines) == 3
     assert '"clocking[element 0]"' in r.output and '"clocking[element 1]"' in r.output
+
+
+def test_sobol_sampling_draws_every_mount():
+    """Sobol' sampling gives each element's mount its own dimension: the two clockings are
+    uncorrelated (a train used to have no dimension for element 1's clocking)."""
+    text = spec(tol="clocking_deg = { sigma = 1.0 }") + '[run]\nsampling = "sobol"\n'
+    st = loads(text, "t.toml")
+    eng = Engine(st, samples=2048, seed=4)
+    case = eng.case(0)
+    inp, _ = sample_inputs(case, st, eng.draws, 0, eng.samples)
+    ang = 0.5 * np.degrees(np.arctan2(inp.s2, inp.c2))
+    e0, e1 = ang[:, 0] - 45.0, ang[:, 1]
+    assert abs(np.corrcoef(e0, e1)[0, 1]) < 0.05
+    assert np.std(e1) == pytest.approx(1.0, rel=0.05)

@@ -563,6 +563,12 @@ class Engine:
         per_layer = {k for k, e in TOLERANCES.items() if e.extra["per_layer"]}
         layers = max([sampler.SOBOL_LAYERS] + [len(c.plate.layers) for c in study.candidates])
         layout = sampler.sobol_layout(tuple(SHORT) + sampler.EXTRA_STREAMS, per_layer, layers)
+        # a train's later mounts and plates (clocking and retardance of element e >= 1) get
+        # dimensions after all others, so that studies without trains keep their points
+        elements = max([len(c.elements or ()) for c in study.candidates] + [0])
+        for e in range(1, elements):
+            for name in ("clocking_deg", "retardance_waves"):
+                layout.setdefault((name, e), max(layout.values()) + 1)
         return sampler.SobolDraws(self.seed, m, R, layout, DRAW_CACHE_BYTES)
 
     # ------------------------------------------------------------------ cases
