@@ -308,3 +308,19 @@ def test_sobol_sampling_draws_every_mount():
     e0, e1 = ang[:, 0] - 45.0, ang[:, 1]
     assert abs(np.corrcoef(e0, e1)[0, 1]) < 0.05
     assert np.std(e1) == pytest.approx(1.0, rel=0.05)
+
+
+def test_readme_train_snippet_loads():
+    """README's train example (its ```toml block) is a valid candidate with element tables."""
+    import re
+    from pathlib import Path
+
+    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
+    sec = readme.split("## Trains of plates", 1)[1].split("\n## ", 1)[0]
+    block = re.search(r"```toml\n(.*?)```", sec, re.S).group(1)
+    head = spec().split("[[candidate]]")[0]
+    st = loads(head + block, "readme.toml")
+    tol = st.tolerances_for(st.candidates[0])
+    assert tol["clocking_deg[element 0]"].sigma == 0.1
+    assert tol["clocking_deg[element 1]"].half_width == 0.5
+    assert tol["thickness_um[element 1]"].sigma == 0.05
