@@ -212,6 +212,11 @@ def test_sensitivity_names_the_element():
     )
     assert float(alone.sel(tolerance_name="clocking[element 1]")) == 1.0
     assert str(g["dominant"].sel(candidate="hwp+qwp").values) == "clocking[element 0]"
+    # Sobol' indices per element too: element 0 carries (nearly) all the variance of the metric
+    tot = g["sobol_total"].sel(candidate="hwp+qwp")
+    t0 = float(tot.sel(tolerance_name="clocking[element 0]"))
+    t1 = float(tot.sel(tolerance_name="clocking[element 1]"))
+    assert np.isfinite(t0) and np.isfinite(t1) and t0 > t1
 
 
 def test_drawing_rows_one_per_element():
@@ -324,3 +329,20 @@ def test_readme_train_snippet_loads():
     assert tol["clocking_deg[element 0]"].sigma == 0.1
     assert tol["clocking_deg[element 1]"].half_width == 0.5
     assert tol["thickness_um[element 1]"].sigma == 0.05
+
+
+def test_cost_table_prices_one_element():
+    """[derived] Only element 1 clocks, U(±w): yield min(1, L/(2w)) with L = 1 deg, so of the
+    offered half widths 1.0, 0.7, 0.5, 0.3 (yields 0.5, 0.71, 1, 1) the cheapest reaching 0.8
+    is 0.5.  The cost key names that element (a quoted TOML key)."""
+    text = spec(tol1="tolerances = { clocking_deg = { uniform = 0.3 } }") + (
+        '[allocation.cost]\n"clocking_deg[element 1]" = '
+        "{ widths = [1.0, 0.7, 0.5, 0.3], cost = [0, 1, 2, 3] }\n"
+    )
+    st = loads(text, "t.toml")
+    res = A.allocate(st, 0.8, samples=2048, seed=5)
+    best = res.candidates[0].cheapest.best
+    assert best.widths == {"clocking_deg[element 1]": 0.5} and best.cost == 2
+    with pytest.raises(RetolError) as ei:
+        loads(text.replace("element 1]", "element 5]"), "t.toml")
+    assert "\n" not in str(ei.value) and "element 5" in str(ei.value)

@@ -510,13 +510,13 @@ def allocate_cheapest(
     cost order from there, skipping without evaluation every combination looser than a known
     failure (yield cannot rise when widths grow) and every one tighter than a known success.
     """
-    # a cost table names a tolerance; on a train it prices each element's width alike
-    keys = [k for c in cost for k in vary if split_key(k)[0] == c]
+    # a cost table names a tolerance (on a train: every element's width alike) or one element's
+    keys = [k for c in cost for k in vary if k == c or (split_key(k)[0] == c and k not in cost)]
     if not keys:
         return None
     opts = {}
     for k in keys:
-        w, c = cost[split_key(k)[0]]
+        w, c = cost[k] if k in cost else cost[split_key(k)[0]]
         pairs = sorted(zip(w, c, strict=True), key=lambda p: -p[0])  # loosest first
         kept = []
         for wi, ci in reversed(pairs):  # tightest first: keep only if cheaper than all tighter

@@ -33,7 +33,7 @@ from .study import (
     WavelengthGrid,
     _proxy,
 )
-from .tolerances import PER_ELEMENT, TOLERANCES, check_bounds
+from .tolerances import PER_ELEMENT, TOLERANCES, check_bounds, split_key
 from .units import interval_nm, length_um, wavelength_nm
 
 TOP_KEYS = (
@@ -222,8 +222,13 @@ def _tolerances(ctx: _Ctx, table: dict, where="[tolerances]") -> tuple[dict, flo
     return out, at_nm
 
 
-def _allocation(ctx: _Ctx, raw: dict, tolerances: dict):
-    """``[allocation]``: target_yield in (0, 1) and ``cost`` tables of widths and costs."""
+def _allocation(ctx: _Ctx, raw: dict, tolerances: dict, candidates=()):
+    """``[allocation]``: target_yield in (0, 1) and ``cost`` tables of widths and costs.
+
+    A cost key names a tolerance the spec gives (in ``[tolerances]``, a candidate's or a train
+    element's table), or one element's tolerance of a train (``"clocking_deg[element 1]"``,
+    which then prices that element alone; the plain name prices every element alike).
+    """
     import math
 
     from .study import AllocationSettings
@@ -243,7 +248,27 @@ def _allocation(ctx: _Ctx, raw: dict, tolerances: dict):
     table = a.get("cost", {})
     if not isinstance(table, dict):
         raise ctx.err("[allocation].cost", "must be a table", "e.g. [allocation.cost]")
-    ctx.check_keys(table, list(TOLERANCES), "[allocation.cost].")
+    given = set(tolerances)
+    elements = 0
+    for c in candidates:
+        given |= set(c.tolerances)
+        for el in c.elements or ():
+            given |= set(el.tolerances)
+        elements = max(elements, len(c.elements or ()))
+    named = [k for k in table if split_key(k)[1] is not None]
+    ctx.check_keys(
+        {k: v for k, v in table.items() if k not in named}, list(TOLERANCES), "[allocation.cost]."
+    )
+    for key in named:
+        base, e = split_key(key)
+        if base not in PER_ELEMENT or e >= elements:
+            raise ctx.err(
+                f"[allocation.cost].{key}",
+                "names no element tolerance of a train in this spec",
+                f"use one of {', '.join(PER_ELEMENT)} with an element 0..{max(elements - 1, 0)}"
+                if elements
+                else "element names apply to trains only",
+            )
     for key, entry in table.items():
         where = f"[allocation.cost].{key}"
         if not isinstance(entry, dict) or set(entry) != {"widths", "cost"}:
@@ -271,7 +296,7 @@ def _allocation(ctx: _Ctx, raw: dict, tolerances: dict):
             raise ctx.err(
                 where, "widths are not sorted", "list them loosest first, e.g. [1, 0.5, 0.2]"
             )
-        if key not in tolerances:
+        if split_key(key)[0] not in given:
             raise ctx.err(where, "is not a tolerance this spec gives", f"add {key} to [tolerances]")
         cost[key] = (tuple(float(v) for v in w), tuple(float(v) for v in c))
     return AllocationSettings(target, _proxy(cost))
@@ -775,7 +800,7 @@ def validate(raw: dict, path: str = "<spec>", base_dir=None, source_text=None) -
         base_dir=None if base_dir is None else str(base_dir),
         source_text=source_text,
         retardance_at_nm=at_nm,
-        allocation=_allocation(ctx, raw, tolerances),
+        allocation=_allocation(ctx, raw, tolerances, candidates),
     )
     _check_ranges(study)
     _check_retardance_at(ctx, study)
