@@ -346,3 +346,36 @@ def test_cost_table_prices_one_element():
     with pytest.raises(RetolError) as ei:
         loads(text.replace("element 1]", "element 5]"), "t.toml")
     assert "\n" not in str(ei.value) and "element 5" in str(ei.value)
+
+
+def test_element_retardance_tolerance_scales_that_element_only():
+    """[derived] retardance_waves on element 1 only, read at its own ``at``: retardance is
+    proportional to thickness at a fixed wavelength, so element 1's layer is scaled by
+    1 + e / R1 (R1 its nominal retardance at ``at``) and element 0's stays nominal."""
+    from tolerance.montecarlo import nominal_retardance_waves
+
+    n = 2048
+    st = study(tol1='tolerances = { retardance_waves = { sigma = 0.002, at = "640nm" } }')
+    assert Study.from_dict(json.loads(st.to_json())) == st
+    eng = Engine(st, samples=n, seed=6)
+    case = eng.case(0)
+    inp, _ = sample_inputs(case, st, eng.draws, 0, n)
+    el0, el1 = (el.plate for el in st.candidates[0].elements)
+    assert np.all(inp.thick[:, 0] == el0.layers[0].thickness_um)
+    z, u = eng.draws("retardance_waves", 1, 0, n)
+    e = case.tolerances["retardance_waves[element 1]"].draw(z, u, center=0.0)
+    r1 = nominal_retardance_waves(el1, 640.0)
+    np.testing.assert_allclose(
+        inp.thick[:, 1], el1.layers[0].thickness_um * (1 + e / r1), rtol=1e-12
+    )
+
+
+def test_cli_spec_error_is_one_line(tmp_path):
+    """A train-wide tolerance in an element's table: exit 2, one line naming the field."""
+    p = tmp_path / "bad.toml"
+    p.write_text(spec(tol0="tolerances = { temperature_c = { sigma = 1 } }"))
+    r = CliRunner().invoke(cli, ["run", str(p), "--out", str(tmp_path / "o")])
+    assert r.exit_code == 2
+    lines = [x for x in r.output.splitlines() if x.strip()]
+    assert len(lines) == 1 and "elements[0].tolerances.temperature_c" in lines[0]
+    assert not (tmp_path / "o").exists()
