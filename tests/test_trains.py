@@ -400,3 +400,171 @@ def test_rare_reject_rate_of_two_independent_mounts():
     assert str(g["reject_method"].values[0]) == "importance sampling"
     assert float(g["reject_rate_low"][0]) <= exact <= float(g["reject_rate_high"][0])
     assert float(g["reject_rate"][0]) == pytest.approx(exact, rel=0.05)
+
+
+# ----------------------------------------------------------------------------- polarizer elements
+
+POL_TRAIN = """title = "polarizer train"
+[wavelength]
+start = "633nm"
+stop = "633nm"
+step = "1nm"
+[source]
+shape = "laser"
+center = "633nm"
+[input]
+{inp}
+[goal]
+state = "circular"
+metric = "sphere_angle_deg"
+max = 1
+[[candidate]]
+name = "pol+plate"
+[[candidate.elements]]
+polarizer = {theta}
+extinction_db = {er}
+{ptol}
+[[candidate.elements]]
+construction = "zero-order"
+material = "quartz"
+waves = {waves}
+design = "633nm"
+axis_deg = 0
+"""
+
+
+def pol_study(theta=30.0, er=40.0, inp="azimuth_deg = 0", ptol="", waves=0.5):
+    text = POL_TRAIN.format(theta=theta, er=er, inp=inp, ptol=ptol, waves=waves)
+    return loads(text, "p.toml")
+
+
+_t = sp.symbols("t", positive=True)
+# a linear polarizer of minor amplitude transmittance t at theta: R(-theta) diag(1, t) R(theta)
+_R = sp.Matrix([[sp.cos(_th), sp.sin(_th)], [-sp.sin(_th), sp.cos(_th)]])
+SYM_POL = sp.lambdify((_th, _t), _R.T * sp.diag(1, _t) * _R, "numpy")
+
+
+def test_sympy_polarizer_matches_sympy_ideal():
+    """[sympy] Our finite-extinction form at t = 0 is sympy's ``linear_polarizer``."""
+    for th in np.radians([0.0, 17.0, 45.0, 100.0]):
+        ideal = np.asarray(sp.lambdify(_th, spol.linear_polarizer(_th), "numpy")(th), dtype=complex)
+        np.testing.assert_allclose(np.asarray(SYM_POL(th, 0.0), dtype=complex), ideal, atol=1e-15)
+
+
+def _sym_stokes(out):
+    s = np.asarray(SYM_STOKES(out[0].real, out[0].imag, out[1].real, out[1].imag), float).ravel()
+    s = s / s[0]
+    s[3] = -s[3]
+    return s[1:]
+
+
+@pytest.mark.parametrize("theta", [0.0, 20.0, 45.0, 70.0, 89.0])
+def test_polarizer_element_malus_and_sympy(theta):
+    """Malus's law with a finite extinction ratio (E. Hecht, Optics, 5th ed., sec. 8.2;
+    the leak of an imperfect polarizer, common practice): linear light at 0 deg through a
+    polarizer at theta of 40 dB passes cos² theta + 10^-4 sin² theta of its power; the state
+    after it and a half-wave plate at 0 is the [sympy] Jones product HWP(0)·P(theta, t)·E."""
+    from tolerance.montecarlo import transmission
+
+    st = pol_study(theta=theta)
+    c = st.candidates[0]
+    th = np.radians(theta)
+    t2 = 10 ** (-40 / 10)
+    assert transmission(st.input, c.plate) == pytest.approx(
+        np.cos(th) ** 2 + t2 * np.sin(th) ** 2, rel=1e-12
+    )
+    eng = Engine(st, samples=512, seed=1)
+    nom = eng.nominal(eng.case(0))
+    E = np.asarray(SYM_JONES(0.0, 0.0), dtype=complex).ravel()
+    out = np.asarray(SYM_HWP(0.0), dtype=complex) @ (
+        np.asarray(SYM_POL(th, np.sqrt(t2)), dtype=complex) @ E
+    )
+    np.testing.assert_allclose(nom.design_stokes, _sym_stokes(out), atol=1e-9)
+
+
+def test_polarizer_clocking_closed_form_and_sympy():
+    """[derived] Linear light at 45 deg, a 40 dB polarizer clocked to 45 + e, a QWP at 0: the
+    light after the polarizer is cos e along its axis and −t sin e across it, i.e. linear at
+    45 + e − atan(t tan e), which the QWP takes to a sphere angle 2|e − atan(t tan e)| from
+    circular [AB].  Checked per sample against that closed form and the [sympy] product."""
+    n = 1024
+    st = pol_study(
+        theta=45.0,
+        inp="azimuth_deg = 45",
+        ptol="tolerances = { clocking_deg = { uniform = 2.0 } }",
+        waves=0.25,
+    )
+    st = _with_hand(st, _hand_of(st))
+    eng = Engine(st, samples=n, seed=9)
+    case = eng.case(0)
+    assert case.active == ("clocking_deg[element 0]",)
+    worst, _ = eng.pass_values(case)
+    z, u = eng.draws("clocking_deg", 0, 0, n)
+    e = np.radians(case.tolerances["clocking_deg[element 0]"].draw(z, u, center=0.0))
+    t = 10 ** (-40 / 20)
+    np.testing.assert_allclose(
+        worst, 2 * np.degrees(np.abs(e - np.arctan(t * np.tan(e)))), atol=1e-6
+    )
+    E = np.asarray(SYM_JONES(np.pi / 4, 0.0), dtype=complex).ravel()
+    for i in range(0, n, 64):
+        out = np.asarray(SYM_QWP(0.0), dtype=complex) @ (
+            np.asarray(SYM_POL(np.pi / 4 + e[i], t), dtype=complex) @ E
+        )
+        ref = np.degrees(np.arccos(np.clip(_sym_stokes(out) @ case.goal, -1, 1)))
+        assert worst[i] == pytest.approx(ref, abs=1e-6)
+
+
+def _hand_of(st):
+    eng = Engine(st, samples=512, seed=1)
+    s3 = eng.nominal(eng.case(0)).design_stokes[2]
+    return "right" if s3 > 0 else "left"
+
+
+def _with_hand(st, hand):
+    import dataclasses
+
+    return dataclasses.replace(st, goal=dataclasses.replace(st.goal, handedness=hand))
+
+
+def test_unpolarized_light_through_a_polarizer():
+    """Goldstein, Polarized Light (2011), ch. 5: a diattenuator of intensity transmittances
+    1 and t² passes (1 + t²)/2 of unpolarized light with degree of polarization
+    (1 − t²)/(1 + t²).  Unpolarized input (dop = 0), 20 dB polarizer at 30 deg, half-wave
+    plate at 0: the output's length is that degree, its direction linear at −30 deg."""
+    from tolerance.montecarlo import transmission
+
+    st = pol_study(theta=30.0, er=20.0, inp="azimuth_deg = 0\ndop = 0")
+    t2 = 0.01
+    assert transmission(st.input, st.candidates[0].plate) == pytest.approx((1 + t2) / 2)
+    eng = Engine(st, samples=512, seed=1)
+    nom = eng.nominal(eng.case(0))
+    p = (1 - t2) / (1 + t2)
+    expect = p * np.array([np.cos(np.radians(-60)), np.sin(np.radians(-60)), 0.0])
+    np.testing.assert_allclose(nom.spec_stokes, expect, atol=1e-12)
+
+
+def test_polarizer_drawing_row_json_and_errors():
+    """The polarizer's drawing row; the study's JSON loads back equal; one-line errors."""
+    st = pol_study(ptol="tolerances = { clocking_deg = { sigma = 0.5 } }")
+    assert Study.from_dict(json.loads(st.to_json())) == st
+    c = st.candidates[0]
+    rows = A.drawing_rows(st, c, st.tolerances_for(c), 0.9)
+    assert rows[0]["construction"] == "polarizer" and rows[0]["extinction_db"] == 40.0
+    assert rows[0]["transmission_axis_deg"] == 30.0
+    assert rows[0]["clocking_tol_deg"] == pytest.approx(1.5)
+    assert "thickness_um[element 0]" not in st.tolerances_for(c)
+    bad = [
+        (dict(ptol="tolerances = { thickness_um = { sigma = 0.1 } }"), "tolerances.thickness_um"),
+        (dict(er=0), "extinction_db"),
+        (dict(er=200), "extinction_db"),
+    ]
+    for kw, field in bad:
+        with pytest.raises(RetolError) as ei:
+            pol_study(**kw)
+        assert "\n" not in str(ei.value) and field in str(ei.value)
+    only = POL_TRAIN.split("[[candidate.elements]]\nconstruction")[0].format(
+        theta=0, er=30, inp="azimuth_deg = 0", ptol="", waves=0.5
+    )
+    with pytest.raises(RetolError) as ei:
+        loads(only, "p.toml")
+    assert "holds no plate" in str(ei.value)

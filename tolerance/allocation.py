@@ -816,6 +816,9 @@ def drawing_rows(study: Study, cand: Candidate, tol: Mapping[str, Distribution],
     shared = {k: v for k, v in tol.items() if split_key(k)[0] not in PER_ELEMENT}
     for e, el in enumerate(cand.elements):
         own = {k: tol[element_key(k, e)] for k in PER_ELEMENT if element_key(k, e) in tol}
+        if el.is_polarizer:
+            rows.append(_polarizer_row(study, cand.name, e, el, {**shared, **own}, yield_))
+            continue
         at = el.retardance_at_nm if el.retardance_at_nm is not None else el.plate.design_nm
         head = {
             "candidate": cand.name,
@@ -876,6 +879,31 @@ def drawing_row(
     return row
 
 
+def _polarizer_row(study: Study, name: str, e: int, el: Candidate, tol, yield_: float) -> dict:
+    """A polarizer element's drawing row: its extinction ratio, transmission axis and the ±
+    of its azimuth in its mount (the train-wide ones and the yield as on the other rows)."""
+    row = {
+        "candidate": name,
+        "element": e,
+        "construction": "polarizer",
+        "material": "",
+        "extinction_db": el.extinction_db,
+        "transmission_axis_deg": el.axis_deg,
+        "clocking_tol_deg": plus_minus(tol.get("clocking_deg")),
+        "tilt_tol_deg": plus_minus(tol.get("tilt_deg")),
+    }
+    t = tol.get("temperature_c")
+    t0 = study.environment.temperature_c
+    if t is not None and t.kind == "range":
+        row["temperature_min_c"], row["temperature_max_c"] = t.low, t.high
+    else:
+        row["temperature_min_c"] = t0 - plus_minus(t)
+        row["temperature_max_c"] = t0 + plus_minus(t)
+    row["input_azimuth_tol_deg"] = plus_minus(tol.get("input_azimuth_deg"))
+    row["yield"] = yield_
+    return row
+
+
 def _only(plate, j):
     import dataclasses
 
@@ -911,8 +939,8 @@ def write_drawing_csv(rows: list[dict], path) -> None:
     import csv
 
     cols: list[str] = []
-    for r in rows:
-        cols += [k for k in r if k not in cols]
+    for r in sorted(rows, key=lambda r: r.get("construction") == "polarizer"):
+        cols += [k for k in r if k not in cols]  # a plate's columns first
     with open(path, "w", newline="", encoding="utf-8") as fh:
         w = csv.writer(fh)
         w.writerow(cols)

@@ -25,6 +25,7 @@ from .environment import (
     tilt_error,
 )
 from .metrics import METRICS
+from .montecarlo import transmission
 from .safety import caution
 from .tolerances import short_name
 from .version import __version__
@@ -126,6 +127,9 @@ SCHEMA: dict[str, Var] = {
     "nominal_worst": Var(_C, "{mu}", "error-free worst {mlong} in band"),
     "nominal_spectral_metric": Var(_C, "{mu}", "error-free source-weighted {mlong}"),
     "nominal_dop": Var(_C, "1", "degree of polarization of the error-free output over the source"),
+    "nominal_transmission": Var(
+        _C, "1", "fraction of the input power the error-free candidate passes at its design"
+    ),
     "nominal_mueller": Var(
         ("candidate", "wavelength", "mueller_row", "mueller_column"),
         "1",
@@ -276,7 +280,7 @@ def _design_values(cases) -> dict:
     lay_ax = np.full((C, L), np.nan)
     for i, c in enumerate(cases):
         for j, la in enumerate(c.plate.layers):
-            lay_mat[i, j] = la.material.name
+            lay_mat[i, j] = la.material.name if la.extinction_db is None else "polarizer"
             lay_th[i, j] = la.thickness_um
             lay_ax[i, j] = la.axis_deg
     return {
@@ -577,6 +581,7 @@ def to_dataset(eng, results, tol_keys) -> xr.Dataset:
         "source_spectrum": np.asarray(eng.spectrum.density, float),
         "source_weight": np.asarray(eng.spectrum.grid_weight, float),
         **_design_values(cases),
+        "nominal_transmission": np.array([transmission(study.input, c.plate) for c in cases]),
         **_nominal_values(cases, results),
         **_sample_values(cases, results, study.run.quantiles),
         **_yield_values(short_results, tol_names),

@@ -598,7 +598,7 @@ class Engine:
             tol = expand_train(
                 tol,
                 [el.tolerances for el in cand.elements],
-                [len(el.plate.layers) for el in cand.elements],
+                [el.plate_layers for el in cand.elements],
             )
         for k, f in (scale or {}).items():
             # a train's tolerance named without an element scales it on every element
@@ -681,6 +681,20 @@ class Engine:
             )
         keep = keep_out is not None
         kept = keep_out if keep else np.zeros((1, N_VAR, 1), dtype=np.float32)
+        if has_polarizer(case.plate):
+            from .kernel_polarizer import chunk_pass_polarizer, polarizer_amplitudes
+
+            chunk_pass_polarizer(
+                optics,
+                np.array(self.spectrum.grid_weight, dtype=float),
+                self._line_optics(case.plate, extra["drift"]),
+                inputs,
+                Target(case.plate.signs(), case.goal, self.metric_code, case.w_design),
+                polarizer_amplitudes(case.plate),
+                stats,
+                SampleOutputs(worst, spec_st, des_st, keep, kept),
+            )
+            return worst, spec_st, des_st
         if not case.candidate.face_model.ideal:
             from .kernel_faces import chunk_pass_faces
 
@@ -759,6 +773,13 @@ class Engine:
         one = first_sample(inputs)
         values = np.empty((N_VAR, W))
         stokes = np.empty((W, 3))
+        if has_polarizer(case.plate):
+            from .kernel_polarizer import polarizer_amplitudes, values_one_polarizer
+
+            pol = polarizer_amplitudes(case.plate)
+            sig = case.plate.signs()
+            values_one_polarizer(optics, one, sig, pol, case.goal, self.metric_code, values, stokes)
+            return Nominal(values, stokes, float(worst[0]), spec_st[0], des_st[0])
         if not case.candidate.face_model.ideal:
             from .kernel_faces import values_one_faces
 
@@ -955,6 +976,32 @@ class Engine:
                 if progress:
                     progress(n_sens)
         return alone, without, full, nominal_pass, n_sens, p05_full, margin
+
+
+def has_polarizer(plate: Plate) -> bool:
+    """True for a train with a linear-polarizer element (the lossy kernel branch)."""
+    return any(la.extinction_db is not None for la in plate.layers)
+
+
+def transmission(inp, plate: Plate) -> float:
+    """Fraction of the input power the error-free plate or train passes at its design. [1]
+
+    1 for retarders (lossless); with a polarizer element w₁|J e_p|² + w₂|J e_⊥|², the input's
+    polarized part e_p and its orthogonal e_⊥ weighted (1 ± P)/2 (P its degree of
+    polarization), J the train's Jones matrix (:func:`tolerance.plates.plate_jones`).
+    """
+    if not has_polarizer(plate):
+        return 1.0
+    from .plates import plate_jones
+
+    J = plate_jones(plate, plate.design_nm, extrapolate=True)
+    xr, yr, xi, yi = inp.jones(np.radians(inp.azimuth_deg))
+    e_p = np.array([xr + 1j * xi, yr + 1j * yi])
+    e_o = np.array([-np.conj(e_p[1]), np.conj(e_p[0])])
+    p = inp.degree_of_polarization
+    return float(
+        0.5 * (1 + p) * np.sum(np.abs(J @ e_p) ** 2) + 0.5 * (1 - p) * np.sum(np.abs(J @ e_o) ** 2)
+    )
 
 
 def _check_faces_input(study: Study) -> None:

@@ -703,6 +703,31 @@ def _override_words(spec) -> list[str]:
     return out
 
 
+def _polarizer_words(grid, spec) -> list[str]:
+    """One line per train that holds a polarizer: its extinction, and the power it passes."""
+    out = []
+    for cand in spec.get("candidates", []) if isinstance(spec, dict) else []:
+        els = cand.get("elements") if isinstance(cand, dict) else None
+        pols = [(k, e) for k, e in enumerate(els or []) if isinstance(e, dict) and "polarizer" in e]
+        if not pols:
+            continue
+        name = _s(cand.get("name", "?"))
+        words = "; ".join(
+            f"element {k}: {_s(e.get('extinction_db'))} dB extinction, axis at "
+            f"{_s(e.get('polarizer'))} deg"
+            for k, e in pols
+        )
+        t = ""
+        if "nominal_transmission" in grid and name in [str(c) for c in grid["candidate"].values]:
+            frac = float(grid["nominal_transmission"].sel(candidate=name))
+            t = f" The error-free train passes {100 * frac:.4g} % of the input power at its design."
+        out.append(
+            f"{name} holds a linear polarizer ({words}); the goal judges the state of the light "
+            "it passes, normalised to that light's power." + t
+        )
+    return out
+
+
 def _faces_words(spec: dict) -> str:
     """The faces assumption: ideal by default; each candidate with faces named."""
     cands = spec.get("candidates") if isinstance(spec.get("candidates"), list) else []
@@ -778,6 +803,7 @@ def assumptions(grid) -> list[str]:
             text += f" ({_s(method)})"
     out.append(text + ".")
     out += _override_words(spec)
+    out += _polarizer_words(grid, spec)
     out.append("A sample passes when " + _goal_text(grid) + ".")
     rule = _s(grid.attrs.get("goal_rule") or "")
     out.append(
@@ -870,8 +896,8 @@ def drawing_section(grid, rows=None, figure_png: bytes | None = None) -> str:
     except Exception:  # an old grid without what the table needs: leave the section out
         return ""
     cols: list[str] = []
-    for r in rows:
-        cols += [k for k in r if k not in cols]
+    for r in sorted(rows, key=lambda r: r.get("construction") == "polarizer"):
+        cols += [k for k in r if k not in cols]  # a plate's columns first
     head = "".join(f"<th>{_e(c)}</th>" for c in cols)
     body = "".join(
         "<tr>" + "".join(f"<td>{_e(_cell(r.get(c)))}</td>" for c in cols) + "</tr>" for r in rows

@@ -909,8 +909,12 @@ def _train(ctx: _Ctx, c: dict, name: str, where: str, default_design) -> Candida
             f"must be a list of plate tables, got {els!r}",
             'e.g. elements = [{construction = "zero-order", material = "quartz", waves = 0.5}]',
         )
-    elements = []
+    elements: list = [None] * len(els)
+    polarizers = []
     for k, e in enumerate(els):
+        if "polarizer" in e:
+            polarizers.append(k)  # built once a plate gives the train its design
+            continue
         if "elements" in e or "name" in e:
             bad = next(x for x in ("elements", "name") if x in e)
             raise ctx.err(
@@ -919,7 +923,24 @@ def _train(ctx: _Ctx, c: dict, name: str, where: str, default_design) -> Candida
                 "elements are plates in their own mounts; name the candidate instead",
             )
         _check_element_tolerances(ctx, e.get("tolerances"), f"{where}elements[{k}].tolerances")
-        elements.append(_candidate(ctx, {**e, "name": f"{name} #{k}"}, k, default_design))
+        elements[k] = _candidate(ctx, {**e, "name": f"{name} #{k}"}, k, default_design)
+    plates = [el for el in elements if el is not None]
+    if not plates:
+        raise ctx.err(
+            f"{where}elements",
+            "holds no plate",
+            "a train needs at least one retarder element besides its polarizers",
+        )
+    for k in polarizers:
+        elements[k] = _polarizer_element(
+            ctx, els[k], f"{name} #{k}", f"{where}elements[{k}].", plates[0]
+        )
+    if polarizers and any(not el.face_model.ideal for el in plates):
+        raise ctx.err(
+            f"{where}elements",
+            "a train with a polarizer is modelled with ideal faces only",
+            'remove faces from its plates (faces = "ideal")',
+        )
     tol, at_nm = {}, None
     if "tolerances" in c:
         if not isinstance(c["tolerances"], dict):
@@ -958,7 +979,56 @@ def _check_element_tolerances(ctx: _Ctx, table, where: str) -> None:
             )
 
 
+def _polarizer_element(ctx: _Ctx, e: dict, name: str, where: str, first_plate) -> Candidate:
+    """A linear polarizer in a train: ``{ polarizer = azimuth_deg, extinction_db = ER }``.
+
+    Its plate is one polarizer layer (:class:`tolerance.plates.Layer` with ``extinction_db``)
+    of zero thickness in the first plate's material (no retardance); its own tolerances may
+    give only ``clocking_deg`` (its azimuth in its mount).
+    """
+    from .plates import Layer, Plate
+
+    ctx.check_keys(e, ("polarizer", "extinction_db", "tolerances"), where)
+    azimuth = float(ctx.number(e, "polarizer", where, required=True))
+    er = float(
+        ctx.number(
+            e, "extinction_db", where, required=True, minimum=0, strict_min=True, maximum=150
+        )
+    )
+    tol = {}
+    t = e.get("tolerances")
+    if t is not None:
+        _check_element_tolerances(ctx, t, f"{where}tolerances")
+        for k in t:
+            if k != "clocking_deg":
+                raise ctx.err(
+                    f"{where}tolerances.{k}",
+                    "a polarizer element has no plate to err",
+                    "give only clocking_deg (its azimuth in its mount)",
+                )
+        tol, _ = _tolerances(ctx, t, f"{where}tolerances")
+    design = float(first_plate.plate.design_nm)
+    layer = Layer(first_plate.plate.layers[0].material, 0.0, azimuth, extinction_db=er)
+    plate = Plate(name, "polarizer", (layer,), 0.0, design, azimuth)
+    return Candidate(
+        name=name,
+        construction="polarizer",
+        material=None,
+        waves=0.0,
+        design_nm=design,
+        axis_deg=azimuth,
+        tolerances=_proxy(tol),
+        extinction_db=er,
+        plate=plate,
+    )
+
+
 def _raw_candidate(c: dict) -> dict:
+    if "polarizer" in c:
+        out = {"polarizer": c["polarizer"], "extinction_db": c["extinction_db"]}
+        if "tolerances" in c:
+            out["tolerances"] = {k: _raw_distribution(v) for k, v in c["tolerances"].items()}
+        return out
     if "elements" in c:
         out = {"name": c["name"], "elements": [_raw_candidate(e) for e in c["elements"]]}
         if "tolerances" in c:

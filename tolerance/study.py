@@ -264,6 +264,18 @@ class Candidate:
     faces: object = None
     #: Layers separated by air gaps (each its own etalon) instead of cemented.
     air_gap: bool = False
+    #: A train's polarizer element: its extinction ratio [dB] (``axis_deg`` its azimuth).
+    extinction_db: float | None = None
+
+    @property
+    def is_polarizer(self) -> bool:
+        """True for a linear-polarizer element of a train."""
+        return self.construction == "polarizer"
+
+    @property
+    def plate_layers(self) -> int:
+        """Layers whose thickness and crossing can err (none for a polarizer element)."""
+        return 0 if self.is_polarizer else len(self.plate.layers)
 
     @property
     def face_model(self):
@@ -300,6 +312,11 @@ class Candidate:
         )
 
     def to_dict(self) -> dict:
+        if self.is_polarizer:
+            d = {"name": self.name, "polarizer": self.axis_deg, "extinction_db": self.extinction_db}
+            if self.tolerances:
+                d["tolerances"] = _tolerance_dicts(self.tolerances, None)
+            return d
         if self.elements is not None:
             d = {"name": self.name, "construction": self.construction}
             d["elements"] = [
@@ -476,7 +493,7 @@ class Study:
             tol = expand_train(
                 tol,
                 [el.tolerances for el in candidate.elements],
-                [len(el.plate.layers) for el in candidate.elements],
+                [el.plate_layers for el in candidate.elements],
             )
         return _proxy(tol)
 

@@ -170,7 +170,8 @@ def expand_train(tolerances, element_tolerances, element_layers) -> dict:
     element_tolerances : sequence of mapping
         Each element's own tolerance table (overrides the above for that element).
     element_layers : sequence of int
-        Layers of each element (crossing needs two or more).
+        Layers of each element (crossing needs two or more; 0 for a polarizer element, which
+        has only its mount's clocking).
 
     Returns
     -------
@@ -181,6 +182,8 @@ def expand_train(tolerances, element_tolerances, element_layers) -> dict:
     for e, own in enumerate(element_tolerances):
         for k in PER_ELEMENT:
             if k == "crossing_deg" and element_layers[e] < 2:
+                continue
+            if element_layers[e] == 0 and k != "clocking_deg":
                 continue
             name = element_key(k, e)
             if name in tolerances:

@@ -84,6 +84,9 @@ def summary_rows(ds):
                 },
                 "margin_dominant": str(ds["margin_dominant"].sel(candidate=c).values),
                 "nominal_dop": float(ds["nominal_dop"].sel(candidate=c)),
+                "nominal_transmission": float(ds["nominal_transmission"].sel(candidate=c))
+                if "nominal_transmission" in ds
+                else 1.0,
                 "nominal_spectral_metric": float(ds["nominal_spectral_metric"].sel(candidate=c)),
                 "temperature_coefficient_deg_per_k": float(
                     ds["temperature_coefficient"].sel(candidate=c)
