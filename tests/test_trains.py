@@ -568,3 +568,19 @@ def test_polarizer_drawing_row_json_and_errors():
     with pytest.raises(RetolError) as ei:
         loads(only, "p.toml")
     assert "holds no plate" in str(ei.value)
+
+
+def test_readme_polarizer_snippet_loads():
+    """README's polarizer element (its second ```toml block in the trains section) loads."""
+    import re
+    from pathlib import Path
+
+    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
+    sec = readme.split("## Trains of plates", 1)[1].split("\n## ", 1)[0]
+    blocks = re.findall(r"```toml\n(.*?)```", sec, re.S)
+    text = spec().replace("{cand_tol}", "")
+    head, tail = text.split("[[candidate.elements]]", 1)
+    st = loads(head + blocks[1] + "[[candidate.elements]]" + tail, "readme.toml")
+    c = st.candidates[0]
+    assert c.elements[0].is_polarizer and c.elements[0].extinction_db == 40
+    assert st.tolerances_for(c)["clocking_deg[element 0]"].sigma == 0.2
