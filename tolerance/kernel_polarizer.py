@@ -120,17 +120,41 @@ def _state(k0, no2, ne2, rat, dn, thick, tfac, c2, s2, sin2i, cphi2, sphi2, inp,
 
 
 @nb.njit(**_OPTS)
-def _sample_rows(optics, thick, tfac, c2, s2, sin2i, cphi2, sphi2, inp, proj, pol, work, g, kind):
+def _input_at(inp, rows, i, here):
+    """The input at wavelength row ``i`` into ``here``: the sample's own (ca, sa, cai, sai,
+    dop) when ``rows`` has no rows, else the tabled state turned by the sample's input
+    azimuth (ca = cos α, sa = sin α): R(α)·e, its degree of polarization the table's."""
+    if rows.shape[0] == 0:
+        for k in range(5):
+            here[k] = inp[k]
+        return
+    c = inp[0]
+    s = inp[1]
+    xr, yr, xi, yi = rows[i, 0], rows[i, 1], rows[i, 2], rows[i, 3]
+    here[0] = c * xr - s * yr
+    here[1] = s * xr + c * yr
+    here[2] = c * xi - s * yi
+    here[3] = s * xi + c * yi
+    here[4] = rows[i, 4]
+
+
+@nb.njit(**_OPTS)
+def _sample_rows(
+    optics, thick, tfac, c2, s2, sin2i, cphi2, sphi2, inp, rows, proj, pol, work, g, kind
+):
     """One sample over the grid: normalised Stokes into work rows _XR, _XI, _YR, the
     observables and the metric into _RW, _AR, _AZ, _M; returns the absolute Stokes rows
-    (4, W) for the power-weighted source average."""
+    (4, W) for the power-weighted source average.  ``rows`` (W, 5): a tabled input per
+    wavelength (:func:`_input_at`), or no rows."""
     k0, no2, ne2, rat, dn = optics
     W = k0.shape[0]
     absolute = np.empty((4, W))
+    here = np.empty(5)
     for w in range(W):
+        _input_at(inp, rows, w, here)
         S0, S1, S2, S3, ret = _state(
             k0[w], no2[w], ne2[w], rat[w], dn[w], thick, tfac, c2, s2, sin2i, cphi2, sphi2,
-            inp, proj, pol,
+            here, proj, pol,
         )  # fmt: skip
         absolute[0, w] = S0
         absolute[1, w] = S1
@@ -152,15 +176,16 @@ def _sample_rows(optics, thick, tfac, c2, s2, sin2i, cphi2, sphi2, inp, proj, po
 
 
 @nb.njit(**_OPTS)
-def values_one_polarizer(optics, sample, proj, pol, goal, metric_kind, out, stokes):
+def values_one_polarizer(optics, sample, proj, pol, rows, goal, metric_kind, out, stokes):
     """Nominal rows of one sample: values (N_VAR, W) and normalised Stokes (W, 3)."""
     thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, cai, sai, dop = sample
     W = optics[0].shape[0]
     work = np.empty((N_WORK, W))
     inp = np.array([ca, sa, cai, sai, dop])
     _sample_rows(
-        optics, thick, tfac, c2, s2, sin2i, cphi2, sphi2, inp, proj, pol, work, goal, metric_kind
-    )
+        optics, thick, tfac, c2, s2, sin2i, cphi2, sphi2, inp, rows, proj, pol, work, goal,
+        metric_kind,
+    )  # fmt: skip
     for w in range(W):
         out[0, w] = work[_RW, w]
         out[1, w] = work[_AR, w]
@@ -172,9 +197,13 @@ def values_one_polarizer(optics, sample, proj, pol, goal, metric_kind, out, stok
 
 
 @nb.njit(parallel=True, **_OPTS)
-def chunk_pass_polarizer(optics, grid_weight, lines, samples, target, pol, stats, outs):
+def chunk_pass_polarizer(
+    optics, grid_weight, lines, samples, target, pol, rows, line_rows, stats, outs
+):
     """:func:`tolerance.kernel.chunk_pass` for a train with polarizer layers (``pol``, see
-    :func:`polarizer_amplitudes`); the same inputs, statistics and outputs."""
+    :func:`polarizer_amplitudes`) or an input tabled over the spectrum (``rows`` (W, 5) on the
+    grid, ``line_rows`` (Ssrc, K, 5) at the lines; no rows otherwise); the same inputs,
+    statistics and outputs."""
     thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, cai, sai, dop = samples
     proj, goal, metric_kind, w_design = target
     do_hist, lo, inv_width, hist, vmin, vmax, block_sums, block_size, ret_shift = stats
@@ -193,6 +222,7 @@ def chunk_pass_polarizer(optics, grid_weight, lines, samples, target, pol, stats
         work = np.empty((N_WORK, W))
         jbuf = np.empty((block_size if do_hist else 1, N_VAR, W), dtype=np.uint16)
         inp = np.empty(5)
+        here = np.empty(5)
         for b in range(b0, b1):
             s_lo = b * block_size
             s_hi = min(S, s_lo + block_size)
@@ -206,7 +236,7 @@ def chunk_pass_polarizer(optics, grid_weight, lines, samples, target, pol, stats
                 inp[4] = dop[s]
                 absolute = _sample_rows(
                     optics, thick[s], tfac[s], c2[s], s2[s], sin2i[s], cphi2[s], sphi2[s],
-                    inp, proj, pol, work, goal, metric_kind,
+                    inp, rows, proj, pol, work, goal, metric_kind,
                 )  # fmt: skip
                 wmin = np.inf
                 wmax = -np.inf
@@ -220,11 +250,13 @@ def chunk_pass_polarizer(optics, grid_weight, lines, samples, target, pol, stats
                         for k in range(4):
                             a[k] += gw * absolute[k, w]
                 ss = s if lk0.shape[0] > 1 else 0
+                sl = s if line_rows.shape[0] > 1 else 0
                 for k in range(line_weight.shape[0]):
+                    _input_at(inp, line_rows[sl], k, here)
                     l0, l1, l2, l3, _ = _state(
                         lk0[ss, k], lno2[ss, k], lne2[ss, k], lrat[ss, k], ldn[ss, k],
                         thick[s], tfac[s], c2[s], s2[s], sin2i[s], cphi2[s], sphi2[s],
-                        inp, proj, pol,
+                        here, proj, pol,
                     )  # fmt: skip
                     lw = line_weight[k]
                     a[0] += lw * l0

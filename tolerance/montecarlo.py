@@ -630,7 +630,9 @@ class Engine:
 
         J = plate_jones(plate, plate.design_nm, extrapolate=True)
         inp = self.study.input
-        if inp.ellipticity_deg == 0.0:
+        if inp.spectral:
+            E = input_jones(inp, plate.design_nm)[0]
+        elif inp.ellipticity_deg == 0.0:
             E = linear_jones(inp.azimuth_deg)
         else:
             xr, yr, xi, yi = inp.jones(np.radians(inp.azimuth_deg))
@@ -681,7 +683,7 @@ class Engine:
             )
         keep = keep_out is not None
         kept = keep_out if keep else np.zeros((1, N_VAR, 1), dtype=np.float32)
-        if has_polarizer(case.plate):
+        if has_polarizer(case.plate) or self.study.input.spectral:
             from .kernel_polarizer import chunk_pass_polarizer, polarizer_amplitudes
 
             chunk_pass_polarizer(
@@ -691,6 +693,7 @@ class Engine:
                 inputs,
                 Target(case.plate.signs(), case.goal, self.metric_code, case.w_design),
                 polarizer_amplitudes(case.plate),
+                *self._input_rows(extra["drift"]),
                 stats,
                 SampleOutputs(worst, spec_st, des_st, keep, kept),
             )
@@ -721,6 +724,24 @@ class Engine:
             SampleOutputs(worst, spec_st, des_st, keep, kept),
         )
         return worst, spec_st, des_st
+
+    def _input_rows(self, drift):
+        """A tabled input's kernel rows (:func:`tolerance.input_spectrum.jones_rows`) on the
+        grid (W, 5) and at the source's lines (Ssrc, K, 5); no rows for a fixed input."""
+        inp = self.study.input
+        if not inp.spectral:
+            return np.zeros((0, 5)), np.zeros((1, 0, 5))
+        from .input_spectrum import jones_rows, stokes_at
+
+        key = ("input rows",)
+        hit = self._optics.get(key)
+        if hit is None:
+            hit = self._optics[key] = jones_rows(stokes_at(inp.stokes_table, self.grid))
+        lines_nm = self.spectrum.lines_nm
+        if lines_nm.size == 0:
+            return hit, np.zeros((1, 0, 5))
+        wl = lines_nm[None, :] if drift is None else lines_nm[None, :] + drift[:, None]
+        return hit, jones_rows(stokes_at(inp.stokes_table, wl, clip=True))
 
     def _faces(self, case: Case, wl):
         """Face optics of a case's plate at ``wl`` (cached like :meth:`optics`)."""
@@ -773,12 +794,15 @@ class Engine:
         one = first_sample(inputs)
         values = np.empty((N_VAR, W))
         stokes = np.empty((W, 3))
-        if has_polarizer(case.plate):
+        if has_polarizer(case.plate) or self.study.input.spectral:
             from .kernel_polarizer import polarizer_amplitudes, values_one_polarizer
 
             pol = polarizer_amplitudes(case.plate)
             sig = case.plate.signs()
-            values_one_polarizer(optics, one, sig, pol, case.goal, self.metric_code, values, stokes)
+            rows = self._input_rows(None)[0]
+            values_one_polarizer(
+                optics, one, sig, pol, rows, case.goal, self.metric_code, values, stokes
+            )
             return Nominal(values, stokes, float(worst[0]), spec_st[0], des_st[0])
         if not case.candidate.face_model.ideal:
             from .kernel_faces import values_one_faces
@@ -995,19 +1019,31 @@ def transmission(inp, plate: Plate) -> float:
     from .plates import plate_jones
 
     J = plate_jones(plate, plate.design_nm, extrapolate=True)
-    xr, yr, xi, yi = inp.jones(np.radians(inp.azimuth_deg))
-    e_p = np.array([xr + 1j * xi, yr + 1j * yi])
+    e_p, p = input_jones(inp, plate.design_nm)
     e_o = np.array([-np.conj(e_p[1]), np.conj(e_p[0])])
-    p = inp.degree_of_polarization
     return float(
         0.5 * (1 + p) * np.sum(np.abs(J @ e_p) ** 2) + 0.5 * (1 - p) * np.sum(np.abs(J @ e_o) ** 2)
     )
 
 
+def input_jones(inp, wavelength_nm: float):
+    """The input's polarized-part Jones vector (2,) complex and its degree of polarization at
+    ``wavelength_nm`` (a tabled input read there; a fixed one anywhere)."""
+    if inp.spectral:
+        from .input_spectrum import jones_rows, stokes_at
+
+        r = jones_rows(stokes_at(inp.stokes_table, float(wavelength_nm), clip=True))
+        return np.array([r[0] + 1j * r[2], r[1] + 1j * r[3]]), float(r[4])
+    xr, yr, xi, yi = inp.jones(np.radians(inp.azimuth_deg))
+    return np.array([xr + 1j * xi, yr + 1j * yi]), inp.degree_of_polarization
+
+
 def _check_faces_input(study: Study) -> None:
     """Plates with faces are modelled for a linear, fully polarized input only (so far)."""
     inp = study.input
-    plain = inp.ellipticity_deg == 0 and inp.dop == 1 and inp.extinction_db is None
+    plain = (
+        inp.ellipticity_deg == 0 and inp.dop == 1 and inp.extinction_db is None and not inp.spectral
+    )
     faced = [c.name for c in study.candidates if not c.face_model.ideal]
     if faced and not plain:
         raise RetolError(

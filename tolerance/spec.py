@@ -51,7 +51,14 @@ TOP_KEYS = (
 )
 ALLOCATION_KEYS = ("target_yield", "cost")
 WAVELENGTH_KEYS = ("start", "stop", "step")
-INPUT_KEYS = ("azimuth_deg", "ellipticity_deg", "dop", "extinction_db")
+INPUT_KEYS = (
+    "azimuth_deg",
+    "ellipticity_deg",
+    "dop",
+    "extinction_db",
+    "stokes_csv",
+    "stokes_table",
+)
 GOAL_KEYS = (
     "state",
     "metric",
@@ -631,8 +638,61 @@ def _goal_shape(ctx: _Ctx, g: dict, state: str) -> dict:
     return out
 
 
-def _input(ctx: _Ctx, inp: dict) -> InputState:
-    """``[input]``: azimuth, ellipticity and degree of polarization, or a polarizer's extinction."""
+def _stokes_input(ctx: _Ctx, inp: dict, base_dir) -> InputState:
+    """``[input] stokes_csv = "file.csv"`` (or its normalised form ``stokes_table``)."""
+    import numpy as np
+
+    from .input_spectrum import check_table, read_stokes_csv
+
+    if "stokes_csv" in inp and "stokes_table" in inp:
+        raise ctx.err("[input].stokes_csv", "given with stokes_table", "give one of the two")
+    others = [k for k in inp if k not in ("stokes_csv", "stokes_table")]
+    if others:
+        raise ctx.err(
+            f"[input].{others[0]}",
+            "cannot be given with a Stokes table (the table is the whole input)",
+            "remove it; the input_azimuth_deg tolerance turns a tabled input",
+        )
+    if "stokes_csv" in inp:
+        field = f"{ctx.path}: [input].stokes_csv"
+        value = inp["stokes_csv"]
+        if not isinstance(value, str) or not value.strip():
+            raise RetolError(field, f"expected a file name, got {value!r}", 'e.g. "input.csv"')
+        path = Path(value).expanduser()
+        if not path.is_absolute() and base_dir is not None:
+            path = Path(base_dir) / path
+        x, s = read_stokes_csv(path, field)
+    else:
+        field = f"{ctx.path}: [input].stokes_table"
+        t = inp["stokes_table"]
+        keys = ("wavelength_nm", "s1", "s2", "s3")
+        ok = isinstance(t, dict) and set(t) == set(keys)
+        cols = [t.get(k) for k in keys] if ok else []
+        ok = ok and all(isinstance(c, list) and len(c) == len(cols[0]) >= 2 for c in cols)
+        ok = ok and all(
+            isinstance(v, int | float) and not isinstance(v, bool) and math.isfinite(v)
+            for c in cols
+            for v in c
+        )
+        if not ok:
+            raise RetolError(
+                field,
+                "must be a table of equal lists wavelength_nm, s1, s2, s3 (2 rows or more)",
+                'or give stokes_csv = "input.csv"',
+            )
+        rows = np.array(cols, dtype=float).T
+        if np.any(rows[:, 0] <= 0) or np.any(np.sqrt(np.sum(rows[:, 1:] ** 2, axis=1)) > 1 + 1e-6):
+            raise RetolError(field, "needs wavelengths > 0 and s1² + s2² + s3² <= 1", None)
+        x, s = check_table(rows, field)
+    table = (tuple(float(v) for v in x), tuple(tuple(float(v) for v in r) for r in s))
+    return InputState(stokes_table=table)
+
+
+def _input(ctx: _Ctx, inp: dict, base_dir=None) -> InputState:
+    """``[input]``: azimuth, ellipticity and degree of polarization, or a polarizer's extinction,
+    or a table of Stokes vectors over the spectrum."""
+    if "stokes_csv" in inp or "stokes_table" in inp:
+        return _stokes_input(ctx, inp, base_dir)
     az = float(ctx.number(inp, "azimuth_deg", "[input].", default=0.0))
     chi = float(ctx.number(inp, "ellipticity_deg", "[input].", default=0.0))
     if abs(chi) > 45.0:
@@ -764,7 +824,7 @@ def validate(raw: dict, path: str = "<spec>", base_dir=None, source_text=None) -
     source = _source(ctx, raw, grid, base_dir)
     inp = ctx.table(raw, "input")
     ctx.check_keys(inp, INPUT_KEYS, "[input].")
-    input_state = _input(ctx, inp)
+    input_state = _input(ctx, inp, base_dir)
     goal = _goal(ctx, raw)
     environment = _environment(ctx, raw)
 
@@ -828,6 +888,17 @@ def _check_ranges(study: Study) -> None:
     grid = study.wavelength.values()
     spectrum = study.source.spectrum
     fname = study.file_name
+    if study.input.spectral:  # a tabled input must span the grid and the lines (with drift)
+        from .input_spectrum import stokes_at
+
+        need = [grid]
+        if spectrum.lines_nm.size:
+            lines = np.asarray(spectrum.lines_nm, dtype=float)
+            span = (spectrum.drift or {}).get("span_nm")
+            need.append(lines)
+            if span is not None:
+                need += [lines + float(span[0]), lines + float(span[1])]
+        stokes_at(study.input.stokes_table, np.concatenate(need), f"{fname}: [input]")
     for c in study.candidates:
         for la in c.plate.layers:
             try:

@@ -75,6 +75,27 @@ class InputState:
     ellipticity_deg: float = 0.0
     dop: float = 1.0
     extinction_db: float | None = None
+    #: An input that varies over the spectrum: (wavelengths [nm], normalised Stokes rows), each
+    #: a tuple, from ``[input] stokes_csv`` (:mod:`tolerance.input_spectrum`); None otherwise.
+    #: The ``input_azimuth_deg`` tolerance then turns the whole input.
+    stokes_table: tuple | None = None
+
+    @property
+    def spectral(self) -> bool:
+        """True when the input state varies over the spectrum (a Stokes table)."""
+        return self.stokes_table is not None
+
+    def stokes_at(self, wavelength_nm) -> np.ndarray:
+        """The input's normalised Stokes vector(s) at ``wavelength_nm``. [(..., 3)]"""
+        if self.spectral:
+            from .input_spectrum import stokes_at
+
+            return stokes_at(self.stokes_table, wavelength_nm)
+        from .polarization import input_stokes
+
+        s = np.asarray(input_stokes(self.azimuth_deg, self.ellipticity_deg, 1.0))[1:]
+        s = s * self.degree_of_polarization
+        return np.broadcast_to(s, np.shape(wavelength_nm) + (3,))
 
     @property
     def degree_of_polarization(self) -> float:
@@ -103,6 +124,10 @@ class InputState:
         return ca * cc, sa * cc, sa * sc, -ca * sc
 
     def to_dict(self) -> dict:
+        if self.stokes_table is not None:  # the table is the whole input
+            wl, s = self.stokes_table
+            cols = {f"s{k + 1}": [r[k] for r in s] for k in range(3)}
+            return {"stokes_table": {"wavelength_nm": list(wl), **cols}}
         d: dict = {"azimuth_deg": self.azimuth_deg}
         # the other keys only when set, so that linear studies keep their JSON
         if self.ellipticity_deg != 0.0:
