@@ -66,7 +66,9 @@ axis_deg = 0
 
 def write(tmp_path, rows, name="in.csv", header="wavelength_nm,s1,s2,s3"):
     p = tmp_path / name
-    p.write_text(header + "\n" + "\n".join(",".join(repr(float(v)) for v in r) for r in rows) + "\n")
+    p.write_text(
+        header + "\n" + "\n".join(",".join(repr(float(v)) for v in r) for r in rows) + "\n"
+    )
     return p
 
 

@@ -804,6 +804,14 @@ def assumptions(grid) -> list[str]:
     out.append(text + ".")
     out += _override_words(spec)
     out += _polarizer_words(grid, spec)
+    table = (spec.get("input") or {}).get("stokes_table") if isinstance(spec, dict) else None
+    if isinstance(table, dict) and table.get("wavelength_nm"):
+        wl = table["wavelength_nm"]
+        out.append(
+            f"The input varies over the spectrum: {len(wl)} normalised Stokes vectors from "
+            f"{_s(wl[0])} to {_s(wl[-1])} nm, interpolated linearly in s1, s2, s3 (an incoherent "
+            "mix between rows); the input-azimuth tolerance turns the whole input."
+        )
     out.append("A sample passes when " + _goal_text(grid) + ".")
     rule = _s(grid.attrs.get("goal_rule") or "")
     out.append(
