@@ -85,18 +85,6 @@ class InputState:
         """True when the input state varies over the spectrum (a Stokes table)."""
         return self.stokes_table is not None
 
-    def stokes_at(self, wavelength_nm) -> np.ndarray:
-        """The input's normalised Stokes vector(s) at ``wavelength_nm``. [(..., 3)]"""
-        if self.spectral:
-            from .input_spectrum import stokes_at
-
-            return stokes_at(self.stokes_table, wavelength_nm)
-        from .polarization import input_stokes
-
-        s = np.asarray(input_stokes(self.azimuth_deg, self.ellipticity_deg, 1.0))[1:]
-        s = s * self.degree_of_polarization
-        return np.broadcast_to(s, np.shape(wavelength_nm) + (3,))
-
     @property
     def degree_of_polarization(self) -> float:
         """The input's degree of polarization: ``dop``, or (ER − 1)/(ER + 1) behind a polarizer."""
