@@ -182,7 +182,7 @@ def test_constant_table_with_a_drifting_laser(tmp_path):
     laser = '[source]\nshape = "laser"\ncenter = "650nm"\ndrift = { sigma = "2nm" }\n'
     flat = '[source]\nshape = "flat"\nstart = "600nm"\nstop = "700nm"\n'
     p = write(tmp_path, [(590, 0.6, 0.8, 0), (710, 0.6, 0.8, 0)])
-    psi = 0.5 * np.degrees(np.arctan2(0.8, 0.6))
+    psi = float(0.5 * np.degrees(np.arctan2(0.8, 0.6)))
     out = []
     for inp in (f"azimuth_deg = {psi!r}", f'stokes_csv = "{p.name}"'):
         text = SPEC.format(inp=inp, tol="input_azimuth_deg = { sigma = 1 }").replace(flat, laser)
