@@ -34,7 +34,7 @@ TOLERANCES.add(
 )
 TOLERANCES.add(
     "clocking_deg",
-    "the whole plate's fast-axis angle in its mount",
+    "the whole plate's fast-axis angle in its mount (each train element's own)",
     unit="deg",
     short="clocking",
     per_layer=False,
@@ -70,7 +70,7 @@ TOLERANCES.add(
 )
 TOLERANCES.add(
     "input_azimuth_deg",
-    "azimuth of the linear input",
+    "azimuth of the input (a polarizer's, or the whole input over the spectrum)",
     unit="deg",
     short="input_azimuth",
     per_layer=False,
