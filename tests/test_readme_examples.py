@@ -35,7 +35,9 @@ def commands(text: str) -> list[list[str]]:
     return out
 
 
-@pytest.mark.parametrize("title", ["Sweeps and clusters"])
+@pytest.mark.parametrize(
+    "title", ["Sweeps and clusters", "Trains of plates: each element its own tolerances"]
+)
 def test_section_examples_run(title, tmp_path, monkeypatch):
     monkeypatch.chdir(tmp_path)
     cmds = commands(section(title))

@@ -56,6 +56,7 @@ from .errors import RetolError
 from .montecarlo import Engine, nominal_retardance_waves, wilson
 from .sampler import BLOCK
 from .study import Candidate, Study
+from .tolerances import PER_ELEMENT, element_key, order_key, split_key
 
 DEFAULT_TARGET = 0.99
 #: Relative resolution of the scale factor at the answer, and of the width range.
@@ -346,6 +347,9 @@ def reach_offset(dist: Distribution) -> float:
 def physical_bound(key: str, cand: Candidate) -> float:
     """The largest sensible reach of a tolerance (angles 45°, tilt 88°, retardance 0.5 wave,
     thickness half the thinnest layer, temperature ±100 °C). [key's unit]"""
+    key, e = split_key(key)
+    if e is not None and cand.elements is not None:
+        cand = cand.elements[e]  # a train element's tolerance: bounded by that element
     if key in ANGLE_BOUND:
         return ANGLE_BOUND[key]
     if key == "tilt_deg":
@@ -511,12 +515,13 @@ def allocate_cheapest(
     cost order from there, skipping without evaluation every combination looser than a known
     failure (yield cannot rise when widths grow) and every one tighter than a known success.
     """
-    keys = [k for k in cost if k in vary]
+    # a cost table names a tolerance (on a train: every element's width alike) or one element's
+    keys = [k for c in cost for k in vary if k == c or (split_key(k)[0] == c and k not in cost)]
     if not keys:
         return None
     opts = {}
     for k in keys:
-        w, c = cost[k]
+        w, c = cost[k] if k in cost else cost[split_key(k)[0]]
         pairs = sorted(zip(w, c, strict=True), key=lambda p: -p[0])  # loosest first
         kept = []
         for wi, ci in reversed(pairs):  # tightest first: keep only if cheaper than all tighter
@@ -602,6 +607,9 @@ def check_vary(study: Study, vary: Sequence[str] | None) -> tuple[str, ...]:
     given = dict(study.tolerances)
     for c in study.candidates:
         given.update(c.tolerances)
+        for e, el in enumerate(c.elements or ()):
+            # a train element's own tolerance: allocated under its element name
+            given.update({element_key(k, e): d for k, d in el.tolerances.items()})
     if vary is None:
         out = tuple(k for k, d in given.items() if not d.is_zero)
         if not out:
@@ -609,6 +617,9 @@ def check_vary(study: Study, vary: Sequence[str] | None) -> tuple[str, ...]:
         return out
     out = []
     for k in vary:
+        base, e = split_key(k)
+        if k not in given and e is not None and base in given:
+            given[k] = given[base]  # one element of a tolerance every element has
         if k not in given:
             raise RetolError(
                 "--vary",
@@ -676,7 +687,7 @@ def allocate(
     out = []
     for cand in cands:
         tol = dict(study.tolerances_for(cand))
-        mine = tuple(k for k in keys if k in tol and not tol[k].is_zero)
+        mine = _varied(keys, tol)
         yc = _Yields(eng, cand, tol)
         alone = {k: allocate_alone(yc, k, target) for k in mine}
         bal = allocate_balanced(yc, mine, target)
@@ -702,6 +713,16 @@ def allocate(
             )
         )
     return Allocation(target, eng.samples, eng.seed, keys, tuple(out))
+
+
+def _varied(keys, tol) -> tuple[str, ...]:
+    """The candidate's tolerances among ``keys``: on a train a tolerance named without an
+    element is varied on each element separately (``clocking_deg[element 0]``, ...)."""
+    out: list[str] = []
+    for k in keys:
+        hits = [k] if k in tol else [t for t in tol if split_key(t)[0] == k]
+        out += [t for t in sorted(hits, key=order_key) if not tol[t].is_zero and t not in out]
+    return tuple(out)
 
 
 # ----------------------------------------------------------------------------- JSON
@@ -786,14 +807,51 @@ def plus_minus(dist: Distribution | None) -> float:
     return 0.5 * (dist.high - dist.low)
 
 
-def drawing_row(study: Study, cand: Candidate, tol: Mapping[str, Distribution], yield_: float):
+def drawing_rows(study: Study, cand: Candidate, tol: Mapping[str, Distribution], yield_: float):
+    """The drawing table's rows of one candidate: one for a plate, one per element of a train.
+
+    A train element's row names the element (0 the first the light meets), its construction
+    and material, its layers, its nominal fast-axis angle in its mount and its own tolerances
+    (``clocking_deg[element e]`` ...); the train-wide ones (tilt, temperature, input azimuth)
+    and the train's yield repeat on every row.
+    """
+    if cand.elements is None:
+        return [drawing_row(study, cand, tol, yield_)]
+    rows = []
+    shared = {k: v for k, v in tol.items() if split_key(k)[0] not in PER_ELEMENT}
+    for e, el in enumerate(cand.elements):
+        own = {k: tol[element_key(k, e)] for k in PER_ELEMENT if element_key(k, e) in tol}
+        if el.is_polarizer:
+            rows.append(_polarizer_row(study, cand.name, e, el, {**shared, **own}, yield_))
+            continue
+        at = el.retardance_at_nm if el.retardance_at_nm is not None else el.plate.design_nm
+        head = {
+            "candidate": cand.name,
+            "element": e,
+            "construction": el.construction,
+            "material": el.material if el.material is not None else "",
+        }
+        row = drawing_row(study, el, {**shared, **own}, yield_, at_nm=float(at))
+        del row["candidate"]
+        rows.append({**head, **row})
+    return rows
+
+
+def drawing_row(
+    study: Study,
+    cand: Candidate,
+    tol: Mapping[str, Distribution],
+    yield_: float,
+    at_nm: float | None = None,
+):
     """One row of the drawing table (numeric columns, units in the names).
 
     The plate retardance ± combines, in quadrature (GUM 5.1.2), the ``retardance_waves`` ± and
-    what each layer's independent thickness ± does to it: ∂R/∂tᵢ = sᵢ Rᵢ / tᵢ.
+    what each layer's independent thickness ± does to it: ∂R/∂tᵢ = sᵢ Rᵢ / tᵢ.  ``at_nm``: the
+    test wavelength (default: the study's for this candidate). [nm]
     """
     plate = cand.plate
-    at = study.retardance_at(cand)
+    at = study.retardance_at(cand) if at_nm is None else at_nm
     row: dict = {"candidate": cand.name}
     d_t = plus_minus(tol.get("thickness_um"))
     for j, la in enumerate(plate.layers):
@@ -828,6 +886,31 @@ def drawing_row(study: Study, cand: Candidate, tol: Mapping[str, Distribution], 
     return row
 
 
+def _polarizer_row(study: Study, name: str, e: int, el: Candidate, tol, yield_: float) -> dict:
+    """A polarizer element's drawing row: its extinction ratio, transmission axis and the ±
+    of its azimuth in its mount (the train-wide ones and the yield as on the other rows)."""
+    row = {
+        "candidate": name,
+        "element": e,
+        "construction": "polarizer",
+        "material": "",
+        "extinction_db": el.extinction_db,
+        "transmission_axis_deg": el.axis_deg,
+        "clocking_tol_deg": plus_minus(tol.get("clocking_deg")),
+        "tilt_tol_deg": plus_minus(tol.get("tilt_deg")),
+    }
+    t = tol.get("temperature_c")
+    t0 = study.environment.temperature_c
+    if t is not None and t.kind == "range":
+        row["temperature_min_c"], row["temperature_max_c"] = t.low, t.high
+    else:
+        row["temperature_min_c"] = t0 - plus_minus(t)
+        row["temperature_max_c"] = t0 + plus_minus(t)
+    row["input_azimuth_tol_deg"] = plus_minus(tol.get("input_azimuth_deg"))
+    row["yield"] = yield_
+    return row
+
+
 def _only(plate, j):
     import dataclasses
 
@@ -837,11 +920,9 @@ def _only(plate, j):
 
 def drawing_rows_for_allocation(result: Allocation, study: Study) -> list[dict]:
     return [
-        {
-            **drawing_row(study, study.candidate(ca.name), ca.allocated, ca.yield_),
-            "basis": ca.basis,
-        }
+        {**row, "basis": ca.basis}
         for ca in result.candidates
+        for row in drawing_rows(study, study.candidate(ca.name), ca.allocated, ca.yield_)
     ]
 
 
@@ -853,7 +934,10 @@ def drawing_rows_for_grid(grid) -> list[dict]:
     rows = []
     for c in study.candidates:
         y = float(grid["yield"].sel(candidate=c.name))
-        rows.append({**drawing_row(study, c, study.tolerances_for(c), y), "basis": "as given"})
+        rows += [
+            {**row, "basis": "as given"}
+            for row in drawing_rows(study, c, study.tolerances_for(c), y)
+        ]
     return rows
 
 
@@ -862,8 +946,8 @@ def write_drawing_csv(rows: list[dict], path) -> None:
     import csv
 
     cols: list[str] = []
-    for r in rows:
-        cols += [k for k in r if k not in cols]
+    for r in sorted(rows, key=lambda r: r.get("construction") == "polarizer"):
+        cols += [k for k in r if k not in cols]  # a plate's columns first
     with open(path, "w", newline="", encoding="utf-8") as fh:
         w = csv.writer(fh)
         w.writerow(cols)

@@ -202,6 +202,9 @@ def tolerance_applies(short: str, n_layers: int, goal_over: str) -> bool:
     line within the band, which a goal judged at every wavelength of the band ("band") does not
     see.  Such tolerances are shown as "not applicable", not as an effect of +0.0.
     """
+    from .tolerances import split_key
+
+    short = split_key(short)[0]  # a train element's tolerance: the same rule
     if short in ("crossing", "crossing_deg"):
         return n_layers > 1
     if short == "drift":

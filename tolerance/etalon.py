@@ -366,6 +366,25 @@ def plate_jones_faces(
         The Jones matrix with the mean propagation phase e^{iΣ(φ_f+φ_s)/2} removed, so that an
         ideal-faced plate gives the product of :func:`tolerance.polarization.retarder_jones`.
     """
+    if any(la.extinction_db is not None for la in plate.layers):
+        # a train with a polarizer element (ideal faces only): the plain product of its layers
+        import dataclasses
+
+        from .plates import plate_jones
+
+        layers = tuple(
+            dataclasses.replace(la, axis_deg=la.axis_deg + (crossing_deg if i else 0.0))
+            for i, la in enumerate(plate.layers)
+        )
+        return plate_jones(
+            dataclasses.replace(plate, layers=layers),
+            wavelength_nm,
+            temperature_c,
+            aoi_deg,
+            incidence_azimuth_deg,
+            clocking_deg,
+            extrapolate,
+        )
     ph = layer_phases(
         plate, wavelength_nm, temperature_c, aoi_deg, incidence_azimuth_deg, extrapolate
     )

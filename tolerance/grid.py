@@ -25,8 +25,9 @@ from .environment import (
     tilt_error,
 )
 from .metrics import METRICS
+from .montecarlo import transmission
 from .safety import caution
-from .tolerances import SHORT
+from .tolerances import short_name
 from .version import __version__
 
 
@@ -126,6 +127,9 @@ SCHEMA: dict[str, Var] = {
     "nominal_worst": Var(_C, "{mu}", "error-free worst {mlong} in band"),
     "nominal_spectral_metric": Var(_C, "{mu}", "error-free source-weighted {mlong}"),
     "nominal_dop": Var(_C, "1", "degree of polarization of the error-free output over the source"),
+    "nominal_transmission": Var(
+        _C, "1", "fraction of the input power the error-free candidate passes at its design"
+    ),
     "nominal_mueller": Var(
         ("candidate", "wavelength", "mueller_row", "mueller_column"),
         "1",
@@ -276,7 +280,7 @@ def _design_values(cases) -> dict:
     lay_ax = np.full((C, L), np.nan)
     for i, c in enumerate(cases):
         for j, la in enumerate(c.plate.layers):
-            lay_mat[i, j] = la.material.name
+            lay_mat[i, j] = la.material.name if la.extinction_db is None else "polarizer"
             lay_th[i, j] = la.thickness_um
             lay_ax[i, j] = la.axis_deg
     return {
@@ -413,7 +417,7 @@ def _yield_values(results, tol_names) -> dict:
         "yield_high": np.array([r.yield_high for r in results]),
         "sensitivity_alone": sens("sens_alone"),
         "sensitivity_without": sens("sens_without"),
-        "dominant": np.array([SHORT.get(r.dominant, r.dominant) for r in results], dtype=object),
+        "dominant": np.array([short_name(r.dominant) for r in results], dtype=object),
         **_margin_values(results, tol_names),
     }
 
@@ -426,9 +430,7 @@ def _margin_values(results, tol_names) -> dict:
         "margin_gain": np.array(
             [[r.margin_gain.get(t, np.nan) for t in tol_names] for r in results]
         ).reshape(C, len(tol_names)),
-        "margin_dominant": np.array(
-            [SHORT.get(r.margin_dominant, r.margin_dominant) for r in results], dtype=object
-        ),
+        "margin_dominant": np.array([short_name(r.margin_dominant) for r in results], dtype=object),
     }
 
 
@@ -450,7 +452,7 @@ def _explain_values(results, tol_keys) -> dict:
     rej = [r.reject for r in results]
     nan = float("nan")
     out["dominant_variance"] = np.array(
-        [SHORT.get(r.dominant_variance, r.dominant_variance) for r in results], dtype=object
+        [short_name(r.dominant_variance) for r in results], dtype=object
     )
     out["reject_rate"] = np.array([x.rate if x else nan for x in rej])
     out["reject_rate_low"] = np.array([x.low if x else nan for x in rej])
@@ -559,7 +561,7 @@ def to_dataset(eng, results, tol_keys) -> xr.Dataset:
     study = eng.study
     cases = eng.cases
     names = [c.plate.name for c in cases]
-    tol_names = [SHORT[k] for k in tol_keys]
+    tol_names = [short_name(k) for k in tol_keys]
     info = METRICS[study.goal.metric].extra
     mu, mlong = info["unit"], info["long_name"]
     env = study.environment
@@ -569,9 +571,9 @@ def to_dataset(eng, results, tol_keys) -> xr.Dataset:
     short_results = [
         dataclasses.replace(
             r,
-            sens_alone={SHORT[k]: v for k, v in r.sens_alone.items()},
-            sens_without={SHORT[k]: v for k, v in r.sens_without.items()},
-            margin_gain={SHORT[k]: v for k, v in r.margin_gain.items()},
+            sens_alone={short_name(k): v for k, v in r.sens_alone.items()},
+            sens_without={short_name(k): v for k, v in r.sens_without.items()},
+            margin_gain={short_name(k): v for k, v in r.margin_gain.items()},
         )
         for r in results
     ]
@@ -579,6 +581,7 @@ def to_dataset(eng, results, tol_keys) -> xr.Dataset:
         "source_spectrum": np.asarray(eng.spectrum.density, float),
         "source_weight": np.asarray(eng.spectrum.grid_weight, float),
         **_design_values(cases),
+        "nominal_transmission": np.array([transmission(study.input, c.plate) for c in cases]),
         **_nominal_values(cases, results),
         **_sample_values(cases, results, study.run.quantiles),
         **_yield_values(short_results, tol_names),

@@ -43,7 +43,7 @@ from .kernel import (
 from .plates import Plate
 from .polarization import goal_vector
 from .study import Candidate, Study
-from .tolerances import SHORT
+from .tolerances import SHORT, element_key, expand_train, order_key, split_key
 
 #: Histogram bins per variable and wavelength (fewer for very long grids).
 BINS = 2048
@@ -72,8 +72,10 @@ class Case:
 
     @property
     def active(self) -> tuple[str, ...]:
-        """Tolerances that vary (zero widths left out), in the grid's order."""
-        return tuple(k for k in SHORT if k in self.tolerances and not self.tolerances[k].is_zero)
+        """Tolerances that vary (zero widths left out), in the grid's order (a train's by
+        element after each tolerance)."""
+        act = [k for k, v in self.tolerances.items() if not v.is_zero]
+        return tuple(sorted(act, key=order_key))
 
     @property
     def fixed(self) -> tuple[str, ...]:
@@ -234,9 +236,10 @@ def sample_inputs(case: Case, study: Study, draws: Draws, start: int, stop: int,
     n = stop - start
     tol = {k: v for k, v in case.tolerances.items() if active is None or k in active}
 
-    def value(key, index=0, center=0.0):
+    def value(key, index=0, center=0.0, name=None):
+        # ``name``: the tolerance's name when it differs from its stream's (a train element's)
         z, u = draws(key, index, start, stop)
-        return tol[key].draw(z, u, center=center)
+        return tol[name or key].draw(z, u, center=center)
 
     thick = np.empty((n, L))
     axis = np.empty((n, L))
@@ -254,18 +257,26 @@ def sample_inputs(case: Case, study: Study, draws: Draws, start: int, stop: int,
     if owner is not None:
         clocks, scales = _train_draws(case, study, tol, value, n)
     for j, la in enumerate(plate.layers):
+        t_name = x_name = None
         if owner is not None:
             # a train: each element's mount has its own clocking (stream index = element) and
-            # its own retardance scale; crossing acts between the layers of one element only
+            # its own retardance scale; crossing acts between the layers of one element only;
+            # thickness and crossing read the element's own tolerance (stream index = layer)
             clock, scale = clocks[owner[j]], scales[owner[j]]
             first = j == 0 or owner[j - 1] != owner[j]
+            t_name = element_key("thickness_um", owner[j])
+            x_name = element_key("crossing_deg", owner[j])
         else:
             first = j == 0
-        if "thickness_um" in tol:
-            thick[:, j] = la.thickness_um * scale + value("thickness_um", j)
+        if (t_name or "thickness_um") in tol:
+            thick[:, j] = la.thickness_um * scale + value("thickness_um", j, name=t_name)
         else:
             thick[:, j] = la.thickness_um * scale
-        cross = value("crossing_deg", j) if not first and "crossing_deg" in tol else 0.0
+        cross = (
+            value("crossing_deg", j, name=x_name)
+            if not first and (x_name or "crossing_deg") in tol
+            else 0.0
+        )
         axis[:, j] = la.axis_deg + clock + cross
         optic[:, j] = la.optic_axis_deg + clock + cross
         m = la.material
@@ -329,14 +340,19 @@ def _train_draws(case: Case, study: Study, tol, value, n: int):
     """Per element of a train: the mount's clocking [deg] and the retardance scale factor.
 
     Element e reads stream index e of ``clocking_deg`` and ``retardance_waves`` (independent
-    mounts and plates); its retardance error is read at its own design wavelength.
+    mounts and plates) through its own tolerances (``clocking_deg[element e]``); its retardance
+    error is read at its own ``at`` if its table gives one, else at its design wavelength.
     """
     clocks, scales = [], []
+    specs = case.candidate.elements or ()
     for e, el in enumerate(case.plate.details["elements"]):
-        clocks.append(value("clocking_deg", e) if "clocking_deg" in tol else np.zeros(n))
-        if "retardance_waves" in tol:
-            r = nominal_retardance_waves(el, float(el.design_nm))
-            scales.append(1.0 + np.asarray(value("retardance_waves", e)) / r)
+        c_name, r_name = element_key("clocking_deg", e), element_key("retardance_waves", e)
+        clocks.append(value("clocking_deg", e, name=c_name) if c_name in tol else np.zeros(n))
+        if r_name in tol:
+            own = specs[e].retardance_at_nm if e < len(specs) else None
+            at = float(own) if own is not None else float(el.design_nm)
+            r = nominal_retardance_waves(el, at)
+            scales.append(1.0 + np.asarray(value("retardance_waves", e, name=r_name)) / r)
         else:
             scales.append(1.0)
     return clocks, scales
@@ -566,6 +582,12 @@ class Engine:
         per_layer = {k for k, e in TOLERANCES.items() if e.extra["per_layer"]}
         layers = max([sampler.SOBOL_LAYERS] + [len(c.plate.layers) for c in study.candidates])
         layout = sampler.sobol_layout(tuple(SHORT) + sampler.EXTRA_STREAMS, per_layer, layers)
+        # a train's later mounts and plates (clocking and retardance of element e >= 1) get
+        # dimensions after all others, so that studies without trains keep their points
+        elements = max([len(c.elements or ()) for c in study.candidates] + [0])
+        for e in range(1, elements):
+            for name in ("clocking_deg", "retardance_waves"):
+                layout.setdefault((name, e), max(layout.values()) + 1)
         return sampler.SobolDraws(self.seed, m, R, layout, DRAW_CACHE_BYTES)
 
     # ------------------------------------------------------------------ cases
@@ -591,12 +613,21 @@ class Engine:
             cand = candidate
         plate = plate if plate is not None else cand.plate
         tol = dict(self.study.tolerances_for(cand) if tolerances is None else tolerances)
+        if cand.elements is not None and tolerances is not None:
+            tol = expand_train(
+                tol,
+                [el.tolerances for el in cand.elements],
+                [el.plate_layers for el in cand.elements],
+            )
         for k, f in (scale or {}).items():
-            if k not in tol:
+            # a train's tolerance named without an element scales it on every element
+            hits = [k] if k in tol else [t for t in tol if split_key(t)[0] == k]
+            if not hits:
                 raise RetolError(
                     k, "is not a tolerance of this candidate", f"known: {', '.join(tol)}"
                 )
-            tol[k] = tol[k].scaled(f)
+            for t in hits:
+                tol[t] = tol[t].scaled(f)
         w_design = int(np.argmin(np.abs(self.grid - plate.design_nm)))
         goal = self.study.goal
         if goal.state == "circular":
@@ -618,7 +649,9 @@ class Engine:
 
         J = plate_jones(plate, plate.design_nm, extrapolate=True)
         inp = self.study.input
-        if inp.ellipticity_deg == 0.0:
+        if inp.spectral:
+            E = input_jones(inp, plate.design_nm)[0]
+        elif inp.ellipticity_deg == 0.0:
             E = linear_jones(inp.azimuth_deg)
         else:
             xr, yr, xi, yi = inp.jones(np.radians(inp.azimuth_deg))
@@ -669,6 +702,21 @@ class Engine:
             )
         keep = keep_out is not None
         kept = keep_out if keep else np.zeros((1, N_VAR, 1), dtype=np.float32)
+        if has_polarizer(case.plate) or self.study.input.spectral:
+            from .kernel_polarizer import chunk_pass_polarizer, polarizer_amplitudes
+
+            chunk_pass_polarizer(
+                optics,
+                np.array(self.spectrum.grid_weight, dtype=float),
+                self._line_optics(case.plate, extra["drift"]),
+                inputs,
+                Target(case.plate.signs(), case.goal, self.metric_code, case.w_design),
+                polarizer_amplitudes(case.plate),
+                *self._input_rows(extra["drift"]),
+                stats,
+                SampleOutputs(worst, spec_st, des_st, keep, kept),
+            )
+            return worst, spec_st, des_st
         if not case.candidate.face_model.ideal:
             from .kernel_faces import chunk_pass_faces
 
@@ -695,6 +743,24 @@ class Engine:
             SampleOutputs(worst, spec_st, des_st, keep, kept),
         )
         return worst, spec_st, des_st
+
+    def _input_rows(self, drift):
+        """A tabled input's kernel rows (:func:`tolerance.input_spectrum.jones_rows`) on the
+        grid (W, 5) and at the source's lines (Ssrc, K, 5); no rows for a fixed input."""
+        inp = self.study.input
+        if not inp.spectral:
+            return np.zeros((0, 5)), np.zeros((1, 0, 5))
+        from .input_spectrum import jones_rows, stokes_at
+
+        key = ("input rows",)
+        hit = self._optics.get(key)
+        if hit is None:
+            hit = self._optics[key] = jones_rows(stokes_at(inp.stokes_table, self.grid))
+        lines_nm = self.spectrum.lines_nm
+        if lines_nm.size == 0:
+            return hit, np.zeros((1, 0, 5))
+        wl = lines_nm[None, :] if drift is None else lines_nm[None, :] + drift[:, None]
+        return hit, jones_rows(stokes_at(inp.stokes_table, wl, clip=True))
 
     def _faces(self, case: Case, wl):
         """Face optics of a case's plate at ``wl`` (cached like :meth:`optics`)."""
@@ -747,6 +813,16 @@ class Engine:
         one = first_sample(inputs)
         values = np.empty((N_VAR, W))
         stokes = np.empty((W, 3))
+        if has_polarizer(case.plate) or self.study.input.spectral:
+            from .kernel_polarizer import polarizer_amplitudes, values_one_polarizer
+
+            pol = polarizer_amplitudes(case.plate)
+            sig = case.plate.signs()
+            rows = self._input_rows(None)[0]
+            values_one_polarizer(
+                optics, one, sig, pol, rows, case.goal, self.metric_code, values, stokes
+            )
+            return Nominal(values, stokes, float(worst[0]), spec_st[0], des_st[0])
         if not case.candidate.face_model.ideal:
             from .kernel_faces import values_one_faces
 
@@ -945,10 +1021,48 @@ class Engine:
         return alone, without, full, nominal_pass, n_sens, p05_full, margin
 
 
+def has_polarizer(plate: Plate) -> bool:
+    """True for a train with a linear-polarizer element (the lossy kernel branch)."""
+    return any(la.extinction_db is not None for la in plate.layers)
+
+
+def transmission(inp, plate: Plate) -> float:
+    """Fraction of the input power the error-free plate or train passes at its design. [1]
+
+    1 for retarders (lossless); with a polarizer element w₁|J e_p|² + w₂|J e_⊥|², the input's
+    polarized part e_p and its orthogonal e_⊥ weighted (1 ± P)/2 (P its degree of
+    polarization), J the train's Jones matrix (:func:`tolerance.plates.plate_jones`).
+    """
+    if not has_polarizer(plate):
+        return 1.0
+    from .plates import plate_jones
+
+    J = plate_jones(plate, plate.design_nm, extrapolate=True)
+    e_p, p = input_jones(inp, plate.design_nm)
+    e_o = np.array([-np.conj(e_p[1]), np.conj(e_p[0])])
+    return float(
+        0.5 * (1 + p) * np.sum(np.abs(J @ e_p) ** 2) + 0.5 * (1 - p) * np.sum(np.abs(J @ e_o) ** 2)
+    )
+
+
+def input_jones(inp, wavelength_nm: float):
+    """The input's polarized-part Jones vector (2,) complex and its degree of polarization at
+    ``wavelength_nm`` (a tabled input read there; a fixed one anywhere)."""
+    if inp.spectral:
+        from .input_spectrum import jones_rows, stokes_at
+
+        r = jones_rows(stokes_at(inp.stokes_table, float(wavelength_nm), clip=True))
+        return np.array([r[0] + 1j * r[2], r[1] + 1j * r[3]]), float(r[4])
+    xr, yr, xi, yi = inp.jones(np.radians(inp.azimuth_deg))
+    return np.array([xr + 1j * xi, yr + 1j * yi]), inp.degree_of_polarization
+
+
 def _check_faces_input(study: Study) -> None:
     """Plates with faces are modelled for a linear, fully polarized input only (so far)."""
     inp = study.input
-    plain = inp.ellipticity_deg == 0 and inp.dop == 1 and inp.extinction_db is None
+    plain = (
+        inp.ellipticity_deg == 0 and inp.dop == 1 and inp.extinction_db is None and not inp.spectral
+    )
     faced = [c.name for c in study.candidates if not c.face_model.ideal]
     if faced and not plain:
         raise RetolError(
@@ -1026,7 +1140,7 @@ def _pass_task(sample_range, eng: Engine, case: Case, active) -> int:
 def tolerance_names(cases) -> tuple[str, ...]:
     """Every tolerance active in any case, in the grid's order."""
     act = {k for c in cases for k in c.active}
-    return tuple(k for k in SHORT if k in act)
+    return tuple(sorted(act, key=order_key))
 
 
 def check_finite(case: Case, acc: Accumulator, nom: Nominal, pass_metric) -> None:

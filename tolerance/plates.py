@@ -20,11 +20,17 @@ from .retardance import layer_retardance
 
 @dataclass(frozen=True)
 class Layer:
-    """One birefringent plate: material, thickness [µm] and fast-axis angle [deg]."""
+    """One birefringent plate: material, thickness [µm] and fast-axis angle [deg].
+
+    With ``extinction_db`` [dB] the layer is a linear polarizer of that extinction ratio with
+    its transmission axis at ``axis_deg`` (an element of a train; its thickness is 0 and its
+    material, borrowed from the train's first plate, gives it no retardance).
+    """
 
     material: Material
     thickness_um: float
     axis_deg: float
+    extinction_db: float | None = None
 
     @property
     def optic_axis_deg(self) -> float:
@@ -424,7 +430,14 @@ def plate_jones(
     )
     J = None
     for la, di in zip(plate.layers, d, strict=True):
-        Ji = retarder_jones(di, la.axis_deg + clocking_deg)
+        if la.extinction_db is not None:  # a polarizer element of a train
+            from .polarization import polarizer_jones
+
+            Ji = np.broadcast_to(
+                polarizer_jones(la.axis_deg + clocking_deg, la.extinction_db), np.shape(di) + (2, 2)
+            )
+        else:
+            Ji = retarder_jones(di, la.axis_deg + clocking_deg)
         J = Ji if J is None else Ji @ J
     return J
 

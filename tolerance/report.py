@@ -683,6 +683,49 @@ def _override_words(spec) -> list[str]:
                 + "; ".join(parts)
                 + "."
             )
+        for e, el in enumerate(cand.get("elements") or [] if isinstance(cand, dict) else []):
+            tols = el.get("tolerances") if isinstance(el, dict) else None
+            if isinstance(tols, dict) and tols:
+                parts = [
+                    f"{_TOL_WORDS.get(k, k)}: {_distribution_words(v, k)}" for k, v in tols.items()
+                ]
+                out.append(
+                    f"Element {e} of {_s(cand.get('name', '?'))} has its own tolerances — "
+                    + "; ".join(parts)
+                    + "."
+                )
+        if isinstance(cand, dict) and cand.get("elements"):
+            out.append(
+                f"{_s(cand.get('name', '?'))} is a train: each element's plate and mount "
+                "tolerances (thickness, retardance, clocking, crossing) are drawn independently "
+                "for each element and reported per element (e.g. clocking[element 1]; element 0 "
+                "is the first the light meets)."
+            )
+    return out
+
+
+def _polarizer_words(grid, spec) -> list[str]:
+    """One line per train that holds a polarizer: its extinction, and the power it passes."""
+    out = []
+    for cand in spec.get("candidates", []) if isinstance(spec, dict) else []:
+        els = cand.get("elements") if isinstance(cand, dict) else None
+        pols = [(k, e) for k, e in enumerate(els or []) if isinstance(e, dict) and "polarizer" in e]
+        if not pols:
+            continue
+        name = _s(cand.get("name", "?"))
+        words = "; ".join(
+            f"element {k}: {_s(e.get('extinction_db'))} dB extinction, axis at "
+            f"{_s(e.get('polarizer'))} deg"
+            for k, e in pols
+        )
+        t = ""
+        if "nominal_transmission" in grid and name in [str(c) for c in grid["candidate"].values]:
+            frac = float(grid["nominal_transmission"].sel(candidate=name))
+            t = f" The error-free train passes {100 * frac:.4g} % of the input power at its design."
+        out.append(
+            f"{name} holds a linear polarizer ({words}); the goal judges the state of the light "
+            "it passes, normalised to that light's power." + t
+        )
     return out
 
 
@@ -761,6 +804,15 @@ def assumptions(grid) -> list[str]:
             text += f" ({_s(method)})"
     out.append(text + ".")
     out += _override_words(spec)
+    out += _polarizer_words(grid, spec)
+    table = (spec.get("input") or {}).get("stokes_table") if isinstance(spec, dict) else None
+    if isinstance(table, dict) and table.get("wavelength_nm"):
+        wl = table["wavelength_nm"]
+        out.append(
+            f"The input varies over the spectrum: {len(wl)} normalised Stokes vectors from "
+            f"{_s(wl[0])} to {_s(wl[-1])} nm, interpolated linearly in s1, s2, s3 (an incoherent "
+            "mix between rows); the input-azimuth tolerance turns the whole input."
+        )
     out.append("A sample passes when " + _goal_text(grid) + ".")
     rule = _s(grid.attrs.get("goal_rule") or "")
     out.append(
@@ -853,8 +905,8 @@ def drawing_section(grid, rows=None, figure_png: bytes | None = None) -> str:
     except Exception:  # an old grid without what the table needs: leave the section out
         return ""
     cols: list[str] = []
-    for r in rows:
-        cols += [k for k in r if k not in cols]
+    for r in sorted(rows, key=lambda r: r.get("construction") == "polarizer"):
+        cols += [k for k in r if k not in cols]  # a plate's columns first
     head = "".join(f"<th>{_e(c)}</th>" for c in cols)
     body = "".join(
         "<tr>" + "".join(f"<td>{_e(_cell(r.get(c)))}</td>" for c in cols) + "</tr>" for r in rows

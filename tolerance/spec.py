@@ -33,7 +33,7 @@ from .study import (
     WavelengthGrid,
     _proxy,
 )
-from .tolerances import TOLERANCES, check_bounds
+from .tolerances import PER_ELEMENT, TOLERANCES, check_bounds, split_key
 from .units import interval_nm, length_um, wavelength_nm
 
 TOP_KEYS = (
@@ -51,7 +51,14 @@ TOP_KEYS = (
 )
 ALLOCATION_KEYS = ("target_yield", "cost")
 WAVELENGTH_KEYS = ("start", "stop", "step")
-INPUT_KEYS = ("azimuth_deg", "ellipticity_deg", "dop", "extinction_db")
+INPUT_KEYS = (
+    "azimuth_deg",
+    "ellipticity_deg",
+    "dop",
+    "extinction_db",
+    "stokes_csv",
+    "stokes_table",
+)
 GOAL_KEYS = (
     "state",
     "metric",
@@ -222,8 +229,13 @@ def _tolerances(ctx: _Ctx, table: dict, where="[tolerances]") -> tuple[dict, flo
     return out, at_nm
 
 
-def _allocation(ctx: _Ctx, raw: dict, tolerances: dict):
-    """``[allocation]``: target_yield in (0, 1) and ``cost`` tables of widths and costs."""
+def _allocation(ctx: _Ctx, raw: dict, tolerances: dict, candidates=()):
+    """``[allocation]``: target_yield in (0, 1) and ``cost`` tables of widths and costs.
+
+    A cost key names a tolerance the spec gives (in ``[tolerances]``, a candidate's or a train
+    element's table), or one element's tolerance of a train (``"clocking_deg[element 1]"``,
+    which then prices that element alone; the plain name prices every element alike).
+    """
     import math
 
     from .study import AllocationSettings
@@ -243,7 +255,27 @@ def _allocation(ctx: _Ctx, raw: dict, tolerances: dict):
     table = a.get("cost", {})
     if not isinstance(table, dict):
         raise ctx.err("[allocation].cost", "must be a table", "e.g. [allocation.cost]")
-    ctx.check_keys(table, list(TOLERANCES), "[allocation.cost].")
+    given = set(tolerances)
+    elements = 0
+    for c in candidates:
+        given |= set(c.tolerances)
+        for el in c.elements or ():
+            given |= set(el.tolerances)
+        elements = max(elements, len(c.elements or ()))
+    named = [k for k in table if split_key(k)[1] is not None]
+    ctx.check_keys(
+        {k: v for k, v in table.items() if k not in named}, list(TOLERANCES), "[allocation.cost]."
+    )
+    for key in named:
+        base, e = split_key(key)
+        if base not in PER_ELEMENT or e >= elements:
+            raise ctx.err(
+                f"[allocation.cost].{key}",
+                "names no element tolerance of a train in this spec",
+                f"use one of {', '.join(PER_ELEMENT)} with an element 0..{max(elements - 1, 0)}"
+                if elements
+                else "element names apply to trains only",
+            )
     for key, entry in table.items():
         where = f"[allocation.cost].{key}"
         if not isinstance(entry, dict) or set(entry) != {"widths", "cost"}:
@@ -271,7 +303,7 @@ def _allocation(ctx: _Ctx, raw: dict, tolerances: dict):
             raise ctx.err(
                 where, "widths are not sorted", "list them loosest first, e.g. [1, 0.5, 0.2]"
             )
-        if key not in tolerances:
+        if split_key(key)[0] not in given:
             raise ctx.err(where, "is not a tolerance this spec gives", f"add {key} to [tolerances]")
         cost[key] = (tuple(float(v) for v in w), tuple(float(v) for v in c))
     return AllocationSettings(target, _proxy(cost))
@@ -606,8 +638,61 @@ def _goal_shape(ctx: _Ctx, g: dict, state: str) -> dict:
     return out
 
 
-def _input(ctx: _Ctx, inp: dict) -> InputState:
-    """``[input]``: azimuth, ellipticity and degree of polarization, or a polarizer's extinction."""
+def _stokes_input(ctx: _Ctx, inp: dict, base_dir) -> InputState:
+    """``[input] stokes_csv = "file.csv"`` (or its normalised form ``stokes_table``)."""
+    import numpy as np
+
+    from .input_spectrum import check_table, read_stokes_csv
+
+    if "stokes_csv" in inp and "stokes_table" in inp:
+        raise ctx.err("[input].stokes_csv", "given with stokes_table", "give one of the two")
+    others = [k for k in inp if k not in ("stokes_csv", "stokes_table")]
+    if others:
+        raise ctx.err(
+            f"[input].{others[0]}",
+            "cannot be given with a Stokes table (the table is the whole input)",
+            "remove it; the input_azimuth_deg tolerance turns a tabled input",
+        )
+    if "stokes_csv" in inp:
+        field = f"{ctx.path}: [input].stokes_csv"
+        value = inp["stokes_csv"]
+        if not isinstance(value, str) or not value.strip():
+            raise RetolError(field, f"expected a file name, got {value!r}", 'e.g. "input.csv"')
+        path = Path(value).expanduser()
+        if not path.is_absolute() and base_dir is not None:
+            path = Path(base_dir) / path
+        x, s = read_stokes_csv(path, field)
+    else:
+        field = f"{ctx.path}: [input].stokes_table"
+        t = inp["stokes_table"]
+        keys = ("wavelength_nm", "s1", "s2", "s3")
+        ok = isinstance(t, dict) and set(t) == set(keys)
+        cols = [t.get(k) for k in keys] if ok else []
+        ok = ok and all(isinstance(c, list) and len(c) == len(cols[0]) >= 2 for c in cols)
+        ok = ok and all(
+            isinstance(v, int | float) and not isinstance(v, bool) and math.isfinite(v)
+            for c in cols
+            for v in c
+        )
+        if not ok:
+            raise RetolError(
+                field,
+                "must be a table of equal lists wavelength_nm, s1, s2, s3 (2 rows or more)",
+                'or give stokes_csv = "input.csv"',
+            )
+        rows = np.array(cols, dtype=float).T
+        if np.any(rows[:, 0] <= 0) or np.any(np.sqrt(np.sum(rows[:, 1:] ** 2, axis=1)) > 1 + 1e-6):
+            raise RetolError(field, "needs wavelengths > 0 and s1² + s2² + s3² <= 1", None)
+        x, s = check_table(rows, field)
+    table = (tuple(float(v) for v in x), tuple(tuple(float(v) for v in r) for r in s))
+    return InputState(stokes_table=table)
+
+
+def _input(ctx: _Ctx, inp: dict, base_dir=None) -> InputState:
+    """``[input]``: azimuth, ellipticity and degree of polarization, or a polarizer's extinction,
+    or a table of Stokes vectors over the spectrum."""
+    if "stokes_csv" in inp or "stokes_table" in inp:
+        return _stokes_input(ctx, inp, base_dir)
     az = float(ctx.number(inp, "azimuth_deg", "[input].", default=0.0))
     chi = float(ctx.number(inp, "ellipticity_deg", "[input].", default=0.0))
     if abs(chi) > 45.0:
@@ -739,7 +824,7 @@ def validate(raw: dict, path: str = "<spec>", base_dir=None, source_text=None) -
     source = _source(ctx, raw, grid, base_dir)
     inp = ctx.table(raw, "input")
     ctx.check_keys(inp, INPUT_KEYS, "[input].")
-    input_state = _input(ctx, inp)
+    input_state = _input(ctx, inp, base_dir)
     goal = _goal(ctx, raw)
     environment = _environment(ctx, raw)
 
@@ -775,7 +860,7 @@ def validate(raw: dict, path: str = "<spec>", base_dir=None, source_text=None) -
         base_dir=None if base_dir is None else str(base_dir),
         source_text=source_text,
         retardance_at_nm=at_nm,
-        allocation=_allocation(ctx, raw, tolerances),
+        allocation=_allocation(ctx, raw, tolerances, candidates),
     )
     _check_ranges(study)
     _check_retardance_at(ctx, study)
@@ -803,6 +888,17 @@ def _check_ranges(study: Study) -> None:
     grid = study.wavelength.values()
     spectrum = study.source.spectrum
     fname = study.file_name
+    if study.input.spectral:  # a tabled input must span the grid and the lines (with drift)
+        from .input_spectrum import stokes_at
+
+        need = [grid]
+        if spectrum.lines_nm.size:
+            lines = np.asarray(spectrum.lines_nm, dtype=float)
+            span = (spectrum.drift or {}).get("span_nm")
+            need.append(lines)
+            if span is not None:
+                need += [lines + float(span[0]), lines + float(span[1])]
+        stokes_at(study.input.stokes_table, np.concatenate(need), f"{fname}: [input]")
     for c in study.candidates:
         for la in c.plate.layers:
             try:
@@ -884,16 +980,38 @@ def _train(ctx: _Ctx, c: dict, name: str, where: str, default_design) -> Candida
             f"must be a list of plate tables, got {els!r}",
             'e.g. elements = [{construction = "zero-order", material = "quartz", waves = 0.5}]',
         )
-    elements = []
+    elements: list = [None] * len(els)
+    polarizers = []
     for k, e in enumerate(els):
-        if "elements" in e or "tolerances" in e or "name" in e:
-            bad = next(x for x in ("elements", "tolerances", "name") if x in e)
+        if "polarizer" in e:
+            polarizers.append(k)  # built once a plate gives the train its design
+            continue
+        if "elements" in e or "name" in e:
+            bad = next(x for x in ("elements", "name") if x in e)
             raise ctx.err(
                 f"{where}elements[{k}].{bad}",
                 "is not allowed in an element",
-                "elements are plates; tolerances go in the candidate's own table",
+                "elements are plates in their own mounts; name the candidate instead",
             )
-        elements.append(_candidate(ctx, {**e, "name": f"{name} #{k}"}, k, default_design))
+        _check_element_tolerances(ctx, e.get("tolerances"), f"{where}elements[{k}].tolerances")
+        elements[k] = _candidate(ctx, {**e, "name": f"{name} #{k}"}, k, default_design)
+    plates = [el for el in elements if el is not None]
+    if not plates:
+        raise ctx.err(
+            f"{where}elements",
+            "holds no plate",
+            "a train needs at least one retarder element besides its polarizers",
+        )
+    for k in polarizers:
+        elements[k] = _polarizer_element(
+            ctx, els[k], f"{name} #{k}", f"{where}elements[{k}].", plates[0]
+        )
+    if polarizers and any(not el.face_model.ideal for el in plates):
+        raise ctx.err(
+            f"{where}elements",
+            "a train with a polarizer is modelled with ideal faces only",
+            'remove faces from its plates (faces = "ideal")',
+        )
     tol, at_nm = {}, None
     if "tolerances" in c:
         if not isinstance(c["tolerances"], dict):
@@ -914,7 +1032,74 @@ def _train(ctx: _Ctx, c: dict, name: str, where: str, default_design) -> Candida
     return dataclasses.replace(cand, plate=train_plate(name, cand.elements))
 
 
+def _check_element_tolerances(ctx: _Ctx, table, where: str) -> None:
+    """An element's own tolerances are those of its plate and mount (:data:`PER_ELEMENT`)."""
+    if table is None:
+        return
+    if not isinstance(table, dict):
+        raise ctx.err(
+            where, "must be a table", "e.g. tolerances = { clocking_deg = { sigma = 0.2 } }"
+        )
+    ctx.check_keys(table, list(TOLERANCES), f"{where}.")
+    for key in table:
+        if key not in PER_ELEMENT:
+            raise ctx.err(
+                f"{where}.{key}",
+                "acts on the whole train, not on one element",
+                "give it in the candidate's tolerances or in [tolerances]",
+            )
+
+
+def _polarizer_element(ctx: _Ctx, e: dict, name: str, where: str, first_plate) -> Candidate:
+    """A linear polarizer in a train: ``{ polarizer = azimuth_deg, extinction_db = ER }``.
+
+    Its plate is one polarizer layer (:class:`tolerance.plates.Layer` with ``extinction_db``)
+    of zero thickness in the first plate's material (no retardance); its own tolerances may
+    give only ``clocking_deg`` (its azimuth in its mount).
+    """
+    from .plates import Layer, Plate
+
+    ctx.check_keys(e, ("polarizer", "extinction_db", "tolerances"), where)
+    azimuth = float(ctx.number(e, "polarizer", where, required=True))
+    er = float(
+        ctx.number(
+            e, "extinction_db", where, required=True, minimum=0, strict_min=True, maximum=150
+        )
+    )
+    tol = {}
+    t = e.get("tolerances")
+    if t is not None:
+        _check_element_tolerances(ctx, t, f"{where}tolerances")
+        for k in t:
+            if k != "clocking_deg":
+                raise ctx.err(
+                    f"{where}tolerances.{k}",
+                    "a polarizer element has no plate to err",
+                    "give only clocking_deg (its azimuth in its mount)",
+                )
+        tol, _ = _tolerances(ctx, t, f"{where}tolerances")
+    design = float(first_plate.plate.design_nm)
+    layer = Layer(first_plate.plate.layers[0].material, 0.0, azimuth, extinction_db=er)
+    plate = Plate(name, "polarizer", (layer,), 0.0, design, azimuth)
+    return Candidate(
+        name=name,
+        construction="polarizer",
+        material=None,
+        waves=0.0,
+        design_nm=design,
+        axis_deg=azimuth,
+        tolerances=_proxy(tol),
+        extinction_db=er,
+        plate=plate,
+    )
+
+
 def _raw_candidate(c: dict) -> dict:
+    if "polarizer" in c:
+        out = {"polarizer": c["polarizer"], "extinction_db": c["extinction_db"]}
+        if "tolerances" in c:
+            out["tolerances"] = {k: _raw_distribution(v) for k, v in c["tolerances"].items()}
+        return out
     if "elements" in c:
         out = {"name": c["name"], "elements": [_raw_candidate(e) for e in c["elements"]]}
         if "tolerances" in c:

@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .tolerances import TOLERANCES
+from .tolerances import TOLERANCES, split_key
 
 PER_LAYER = frozenset(k for k in TOLERANCES if TOLERANCES[k].extra["per_layer"])
 
@@ -27,16 +27,37 @@ def case_streams(case) -> tuple[tuple[str, int], ...]:
     A per-layer tolerance has one stream per layer (crossing from the second layer on); a tilt
     brings its plane-of-incidence azimuth as one more stream.
     """
+    return tuple(s for _, s in keyed_streams(case))
+
+
+def keyed_streams(case) -> tuple[tuple[str, tuple[str, int]], ...]:
+    """(tolerance name, (stream, index)) of every stream that varies for ``case``.
+
+    A train's element tolerance (``clocking_deg[element 1]``) owns the streams of that element:
+    its mount's clocking and retardance (index = element), its layers' thickness and crossing
+    (index = layer, crossing from the element's second layer on).
+    """
     L = len(case.plate.layers)
+    train = case.plate.construction == "train"
+    owner = case.plate.details.get("element_of_layer") if train else None
     out = []
     for key in case.active:
+        base, e = split_key(key)
+        if e is not None:
+            layers = [j for j in range(L) if owner[j] == e]
+            if base in PER_LAYER:
+                first = 1 if base == "crossing_deg" else 0
+                out += [(key, (base, j)) for j in layers[first:]]
+            else:
+                out.append((key, (base, e)))
+            continue
         if key in PER_LAYER:
             first = 1 if key == "crossing_deg" else 0
-            out += [(key, j) for j in range(first, L)]
+            out += [(key, (key, j)) for j in range(first, L)]
         else:
-            out.append((key, 0))
+            out.append((key, (key, 0)))
         if key == "tilt_deg":
-            out.append(("tilt_azimuth", 0))
+            out.append((key, ("tilt_azimuth", 0)))
     return tuple(out)
 
 

@@ -16,7 +16,7 @@ import numpy as np
 
 from .distributions import Distribution
 from .frozen import ReadOnlyMapping
-from .tolerances import DRIFT, SHORT
+from .tolerances import DRIFT, SHORT, expand_train
 
 
 def _proxy(d) -> Mapping:
@@ -75,6 +75,15 @@ class InputState:
     ellipticity_deg: float = 0.0
     dop: float = 1.0
     extinction_db: float | None = None
+    #: An input that varies over the spectrum: (wavelengths [nm], normalised Stokes rows), each
+    #: a tuple, from ``[input] stokes_csv`` (:mod:`tolerance.input_spectrum`); None otherwise.
+    #: The ``input_azimuth_deg`` tolerance then turns the whole input.
+    stokes_table: tuple | None = None
+
+    @property
+    def spectral(self) -> bool:
+        """True when the input state varies over the spectrum (a Stokes table)."""
+        return self.stokes_table is not None
 
     @property
     def degree_of_polarization(self) -> float:
@@ -103,6 +112,10 @@ class InputState:
         return ca * cc, sa * cc, sa * sc, -ca * sc
 
     def to_dict(self) -> dict:
+        if self.stokes_table is not None:  # the table is the whole input
+            wl, s = self.stokes_table
+            cols = {f"s{k + 1}": [r[k] for r in s] for k in range(3)}
+            return {"stokes_table": {"wavelength_nm": list(wl), **cols}}
         d: dict = {"azimuth_deg": self.azimuth_deg}
         # the other keys only when set, so that linear studies keep their JSON
         if self.ellipticity_deg != 0.0:
@@ -264,6 +277,18 @@ class Candidate:
     faces: object = None
     #: Layers separated by air gaps (each its own etalon) instead of cemented.
     air_gap: bool = False
+    #: A train's polarizer element: its extinction ratio [dB] (``axis_deg`` its azimuth).
+    extinction_db: float | None = None
+
+    @property
+    def is_polarizer(self) -> bool:
+        """True for a linear-polarizer element of a train."""
+        return self.construction == "polarizer"
+
+    @property
+    def plate_layers(self) -> int:
+        """Layers whose thickness and crossing can err (none for a polarizer element)."""
+        return 0 if self.is_polarizer else len(self.plate.layers)
 
     @property
     def face_model(self):
@@ -300,6 +325,11 @@ class Candidate:
         )
 
     def to_dict(self) -> dict:
+        if self.is_polarizer:
+            d = {"name": self.name, "polarizer": self.axis_deg, "extinction_db": self.extinction_db}
+            if self.tolerances:
+                d["tolerances"] = _tolerance_dicts(self.tolerances, None)
+            return d
         if self.elements is not None:
             d = {"name": self.name, "construction": self.construction}
             d["elements"] = [
@@ -462,11 +492,22 @@ class Study:
         return Path(self.spec_path).name if self.spec_path != "<spec>" else self.spec_path
 
     def tolerances_for(self, candidate: Candidate) -> Mapping[str, Distribution]:
-        """The candidate's tolerances: the study's, overridden by its own, plus the laser drift."""
+        """The candidate's tolerances: the study's, overridden by its own, plus the laser drift.
+
+        For a train the plate and mount tolerances (:data:`~tolerance.tolerances.PER_ELEMENT`)
+        are named per element (``clocking_deg[element 1]``), each element's own table first.
+        """
         tol = dict(self.tolerances)
         tol.update(candidate.tolerances)
         if self.source.drift is not None:
             tol[DRIFT] = self.source.drift
+        if candidate.elements is not None:
+            # a train: each element's plate and mount tolerances by name, its own table first
+            tol = expand_train(
+                tol,
+                [el.tolerances for el in candidate.elements],
+                [el.plate_layers for el in candidate.elements],
+            )
         return _proxy(tol)
 
     def candidate(self, name: str) -> Candidate:

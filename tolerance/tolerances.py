@@ -41,7 +41,7 @@ TOLERANCES.add(
 )
 TOLERANCES.add(
     "clocking_deg",
-    "the whole plate's fast-axis angle in its mount",
+    "the whole plate's fast-axis angle in its mount (each train element's own)",
     unit="deg",
     short="clocking",
     per_layer=False,
@@ -77,7 +77,7 @@ TOLERANCES.add(
 )
 TOLERANCES.add(
     "input_azimuth_deg",
-    "azimuth of the linear input",
+    "azimuth of the input (a polarizer's, or the whole input over the spectrum)",
     unit="deg",
     short="input_azimuth",
     per_layer=False,
@@ -126,3 +126,87 @@ def check_bounds(key: str, dist: Distribution, field: str) -> Distribution:
     if key == "temperature_c" and dist.kind == "range" and dist.low < -273.15:
         raise RetolError(f"{field}.low", "is below absolute zero", "give a temperature in deg C")
     return dist
+
+
+# ----------------------------------------------------------------------------- trains
+#: The tolerances each element of a train holds on its own (its plate and its mount); the others
+#: (tilt, temperature, input azimuth, drift) act on the whole train at once.
+PER_ELEMENT = ("thickness_um", "retardance_waves", "clocking_deg", "crossing_deg")
+
+
+def element_key(key: str, element: int) -> str:
+    """The name of tolerance ``key`` of element ``element`` of a train, e.g.
+    ``clocking_deg[element 1]`` (elements count from 0, the first the light meets)."""
+    return f"{key}[element {int(element)}]"
+
+
+def split_key(key: str) -> tuple[str, int | None]:
+    """(tolerance, element) of a tolerance name; element None for a single plate's name.
+
+    >>> split_key("clocking_deg[element 1]")
+    ('clocking_deg', 1)
+    >>> split_key("tilt_deg")
+    ('tilt_deg', None)
+    """
+    if key.endswith("]") and "[element " in key:
+        base, _, rest = key.partition("[element ")
+        return base, int(rest[:-1])
+    return key, None
+
+
+def short_name(key: str) -> str:
+    """The grid's name of a tolerance name: ``clocking`` or ``clocking[element 1]``."""
+    base, e = split_key(key)
+    s = SHORT.get(base, base)
+    return s if e is None else f"{s}[element {e}]"
+
+
+def key_of_short(short: str) -> str:
+    """The tolerance name of a grid name (inverse of :func:`short_name`)."""
+    base, e = split_key(short)
+    inverse = {v: k for k, v in SHORT.items()}
+    k = inverse.get(base, base)
+    return k if e is None else element_key(k, e)
+
+
+def order_key(key: str) -> tuple[int, int]:
+    """Sort key of tolerance names: the registry's order, then the element."""
+    base, e = split_key(key)
+    names = list(SHORT)
+    return (names.index(base) if base in names else len(names), -1 if e is None else e)
+
+
+def expand_train(tolerances, element_tolerances, element_layers) -> dict:
+    """A train's tolerances with each element's own: per-element tolerances named by element.
+
+    Parameters
+    ----------
+    tolerances : mapping of str to Distribution
+        The study's tolerances overridden by the candidate's (names without an element act on
+        every element, each element drawing its own values).
+    element_tolerances : sequence of mapping
+        Each element's own tolerance table (overrides the above for that element).
+    element_layers : sequence of int
+        Layers of each element (crossing needs two or more; 0 for a polarizer element, which
+        has only its mount's clocking).
+
+    Returns
+    -------
+    dict
+        Shared tolerances under their names, per-element ones as :func:`element_key` names.
+    """
+    out = {k: v for k, v in tolerances.items() if split_key(k)[0] not in PER_ELEMENT}
+    for e, own in enumerate(element_tolerances):
+        for k in PER_ELEMENT:
+            if k == "crossing_deg" and element_layers[e] < 2:
+                continue
+            if element_layers[e] == 0 and k != "clocking_deg":
+                continue
+            name = element_key(k, e)
+            if name in tolerances:
+                out[name] = tolerances[name]
+            elif k in own:
+                out[name] = own[k]
+            elif k in tolerances:
+                out[name] = tolerances[k]
+    return out

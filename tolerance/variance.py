@@ -34,7 +34,7 @@ from types import MappingProxyType
 import numpy as np
 
 from . import sampler
-from .standard import case_streams, evaluate_points
+from .standard import evaluate_points, keyed_streams
 
 #: Bootstrap resamples of the index intervals.
 BOOTSTRAP = 400
@@ -149,12 +149,9 @@ def sobol_indices(eng, case, n_base: int, n_boot: int = BOOTSTRAP) -> SobolIndic
     n_boot : int
         Bootstrap resamples.
     """
-    streams = case_streams(case)
-    group_of = {"tilt_azimuth": "tilt_deg"}
-    groups = {
-        key: [i for i, (name, _) in enumerate(streams) if group_of.get(name, name) == key]
-        for key in case.active
-    }
+    keyed = keyed_streams(case)
+    streams = tuple(s for _, s in keyed)
+    groups = {key: [i for i, (k, _) in enumerate(keyed) if k == key] for key in case.active}
     # a tolerance with no stream here (crossing on a single plate) does nothing: no index
     keys = [k for k, cols in groups.items() if cols]
     if not keys:  # nothing acts on this plate: no indices, and no evaluations spent

@@ -84,6 +84,9 @@ def summary_rows(ds):
                 },
                 "margin_dominant": str(ds["margin_dominant"].sel(candidate=c).values),
                 "nominal_dop": float(ds["nominal_dop"].sel(candidate=c)),
+                "nominal_transmission": float(ds["nominal_transmission"].sel(candidate=c))
+                if "nominal_transmission" in ds
+                else 1.0,
                 "nominal_spectral_metric": float(ds["nominal_spectral_metric"].sel(candidate=c)),
                 "temperature_coefficient_deg_per_k": float(
                     ds["temperature_coefficient"].sel(candidate=c)
@@ -131,26 +134,25 @@ def explain_row(ds, c) -> dict:
     dominant tolerance and the reject-rate estimate of candidate ``c``."""
     import math
 
-    from ..tolerances import SHORT
+    from ..tolerances import key_of_short
     from ..variance import FIELDS
 
     def num(v):
         v = float(v)
         return v if math.isfinite(v) else None
 
-    key_of = {v: k for k, v in SHORT.items()}
     out = {"sobol": {}, "sobol_pass": {}}
     if "sobol_first" in ds:
         for t in ds["tolerance_name"].values:
             if not math.isfinite(float(ds["sobol_total"].sel(candidate=c, tolerance_name=t))):
                 continue  # not a tolerance of this candidate (or indices were not asked for)
             for var in out:
-                out[var][key_of.get(str(t), str(t))] = {
+                out[var][key_of_short(str(t))] = {
                     f: num(ds[f"{var}_{f}"].sel(candidate=c, tolerance_name=t)) for f in FIELDS
                 }
     if "dominant_variance" in ds:
         dv = str(ds["dominant_variance"].sel(candidate=c).values)
-        out["dominant_variance"] = key_of.get(dv, dv)
+        out["dominant_variance"] = key_of_short(dv)
     if "reject_rate" in ds:
         out["reject"] = {
             "rate": num(ds["reject_rate"].sel(candidate=c)),
