@@ -79,10 +79,17 @@ def study(tmp_path, rows=None, inp=None, tol=""):
     return validate(tomllib.loads(SPEC.format(inp=inp, tol=tol)), "s.toml", base_dir=tmp_path)
 
 
-def test_constant_table_is_the_fixed_input(tmp_path):
+@pytest.mark.parametrize(
+    "tol",
+    [
+        "input_azimuth_deg = { sigma = 1 }",
+        # the crystal-cut error and tilt act in this kernel branch as in the plate kernel
+        "input_azimuth_deg = { sigma = 1 }\ncut_deg = { sigma = 3 }\ntilt_deg = { sigma = 4 }",
+    ],
+)
+def test_constant_table_is_the_fixed_input(tmp_path, tol):
     """A table holding linear 45 deg at every wavelength gives the results of ``azimuth_deg =
     45`` (another arithmetic path, so to 1e-12), the input-azimuth tolerance turning it alike."""
-    tol = "input_azimuth_deg = { sigma = 1 }"
     a = study(tmp_path, inp="azimuth_deg = 45", tol=tol)
     b = study(tmp_path, rows=[(590, 0, 1, 0), (710, 0, 1, 0)], tol=tol)
     ga = tolerance.run(a, samples=512, seed=2)
