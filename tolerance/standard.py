@@ -25,11 +25,19 @@ def case_streams(case) -> tuple[tuple[str, int], ...]:
     """The (stream, layer) pairs that vary for ``case``, in the grid's tolerance order.
 
     A per-layer tolerance has one stream per layer (crossing from the second layer on); a tilt
-    brings its plane-of-incidence azimuth as one more stream.
+    brings its plane-of-incidence azimuth as one more stream; the reflectance one stream per
+    reflecting face of a candidate with faces.
     """
     L = len(case.plate.layers)
     out = []
     for key in case.active:
+        if key == "reflectance":
+            # one stream per reflecting face; none for ideal faces (it does not act there)
+            if not case.candidate.face_model.ideal:
+                from .kernel_faces import face_count
+
+                out += [(key, f) for f in range(face_count(L, case.candidate.air_gap))]
+            continue
         if key in PER_LAYER:
             first = 1 if key == "crossing_deg" else 0
             out += [(key, j) for j in range(first, L)]
