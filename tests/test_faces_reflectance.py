@@ -34,7 +34,7 @@ from tolerance.spec import load_spec, loads
 from tolerance.study import Study
 
 #: An invented broadband AR coating: 0.6 % at the band edges, 0.15 % at its centre.
-COATING_CSV = """# invented V-coat-like AR curve for tests: wavelength [nm], power reflectance per face
+COATING_CSV = """# invented AR curve for tests: wavelength [nm], power reflectance per face
 wavelength_nm,reflectance
 600,0.0060
 620,0.0030
@@ -203,7 +203,9 @@ def test_a_clipped_offset_is_the_reflection_free_coating_bit_for_bit():
     a = Engine(coated, samples=512, seed=6)
     b = Engine(bare, samples=512, seed=6)
     tol = _with(coated, 0, reflectance={"low": -0.01, "high": -0.01})
-    for x, y in zip(a.pass_values(a.case(0, tolerances=tol)), b.pass_values(b.cases[0]), strict=True):
+    for x, y in zip(
+        a.pass_values(a.case(0, tolerances=tol)), b.pass_values(b.cases[0]), strict=True
+    ):
         np.testing.assert_array_equal(x, y)
 
 
@@ -246,9 +248,9 @@ def test_retardance_ripple_of_offset_faces_matches_the_airy_phase(laser):
     worst_ripple = 0.0
     for s in (0, 1, 17, 200, 511):
         d0, d1 = dr[s]
-        expect = (
-            delta + eps(ph.phase_slow[0], Rs, d0, d1) - eps(ph.phase_fast[0], Rf, d0, d1)
-        ) / (2 * np.pi)
+        expect = (delta + eps(ph.phase_slow[0], Rs, d0, d1) - eps(ph.phase_fast[0], Rf, d0, d1)) / (
+            2 * np.pi
+        )
         got = res.kept[s, 0].astype(float)  # retardance [waves], kept as float32
         np.testing.assert_allclose(got, expect, rtol=0, atol=2e-7)
         nominal = (delta + eps(ph.phase_slow[0], Rs, 0, 0) - eps(ph.phase_fast[0], Rf, 0, 0)) / (
@@ -271,9 +273,11 @@ def test_yield_falls_as_the_reflectance_tolerance_widens(laser):
 
 
 def test_not_applicable_to_ideal_faces_and_shown_in_sensitivity(tmp_path):
-    text = LASER.read_text().replace(
-        "[tolerances]", "[tolerances]\nreflectance = { sigma = 0.002 }"
-    ).replace("samples = 20000", "samples = 1024")
+    text = (
+        LASER.read_text()
+        .replace("[tolerances]", "[tolerances]\nreflectance = { sigma = 0.002 }")
+        .replace("samples = 20000", "samples = 1024")
+    )
     study = loads(text)
     grid = tolerance.run(study, samples=1024, seed=11)
     names = [str(t) for t in grid["tolerance_name"].values]
