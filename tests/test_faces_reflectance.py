@@ -290,6 +290,10 @@ def test_not_applicable_to_ideal_faces_and_shown_in_sensitivity(tmp_path):
     assert np.all(np.isfinite(alone[:2]))
     # the uncoated plate loses yield to coating variation alone more than the AR-coated one
     assert alone[0] <= alone[1]
+    from tolerance.report import assumptions
+
+    words = " ".join(assumptions(grid))
+    assert "independently per face, clipped to [0, 0.999999]" in words
 
 
 def test_reflectance_tolerance_bounds():
@@ -314,3 +318,29 @@ def test_sobol_layout_keeps_the_older_dimensions(laser):
     )
     assert {k: v for k, v in layout.items() if k[0] != "reflectance"} == old
     assert ("reflectance", 0) in layout and ("reflectance", 31) in layout
+
+
+def test_cli_plate_reads_a_coating_file(tmp_path, monkeypatch):
+    from click.testing import CliRunner
+
+    from tolerance.cli.main import cli
+
+    monkeypatch.chdir(tmp_path)
+    (tmp_path / "coating.csv").write_text(COATING_CSV)
+    base = ["plate", "--material", "quartz", "--design", "635nm", "--from", "625nm"]
+    r = CliRunner().invoke(cli, [*base, "--to", "645nm", "--faces", "coating.csv", "--json"])
+    assert r.exit_code == 0, r.output
+    flat = CliRunner().invoke(cli, [*base, "--to", "645nm", "--faces", "0.0015", "--json"])
+    doc = json.loads(r.output)
+    assert doc["faces"]["file"] == "coating.csv"
+    rows = doc["table"]
+    # at 635 nm the table gives 0.15 %: the same row as the constant coating of 0.15 %
+    rows_flat = json.loads(flat.output)["table"]
+    at = [i for i, x in enumerate(rows) if abs(x["wavelength_nm"] - 635.0) < 1e-9][0]
+    assert rows[at]["retardance_waves"] == pytest.approx(
+        rows_flat[at]["retardance_waves"], abs=1e-12
+    )
+    bad = CliRunner().invoke(cli, [*base, "--to", "700nm", "--faces", "coating.csv"])
+    assert bad.exit_code == 2
+    assert "--faces" in bad.output and "covers 600–670 nm" in bad.output
+    assert len(bad.output.strip().splitlines()) == 1

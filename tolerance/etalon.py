@@ -208,6 +208,8 @@ def parse_faces(value, field: str = "faces", base_dir=None) -> Faces:
             number = None
         if number is not None:
             return parse_faces(number, field)
+        if v.endswith(".csv"):  # the CLI's --faces coating.csv
+            return parse_faces({"reflectance": value.strip()}, field, base_dir)
         raise RetolError(field, f"unknown faces {value!r}", _FACES_FIX)
     if isinstance(value, dict):
         keys = set(value)

@@ -720,6 +720,22 @@ def _faces_words(spec: dict) -> str:
         + ". Faces act by coherent multiple reflections (Airy sum per eigenwave, at normal-"
         "incidence reflectance, reflections between air-gapped layers neglected); absorption "
         "and scatter are not modelled."
+        + _reflectance_words(spec)
+    )
+
+
+def _reflectance_words(spec: dict) -> str:
+    """The reflectance tolerance's model, when the spec gives it anywhere."""
+    cands = spec.get("candidates") if isinstance(spec.get("candidates"), list) else []
+    given = "reflectance" in (spec.get("tolerances") or {}) or any(
+        isinstance(c, dict) and "reflectance" in (c.get("tolerances") or {}) for c in cands
+    )
+    if not given:
+        return ""
+    return (
+        " The reflectance tolerance adds its own draw to each face's power reflectance (both "
+        "eigenwaves, every wavelength), independently per face, clipped to [0, 0.999999]; it "
+        "does not apply to ideal faces."
     )
 
 
