@@ -344,3 +344,25 @@ def test_cli_plate_reads_a_coating_file(tmp_path, monkeypatch):
     assert bad.exit_code == 2
     assert "--faces" in bad.output and "covers 600–670 nm" in bad.output
     assert len(bad.output.strip().splitlines()) == 1
+
+
+@pytest.mark.parametrize("tilt", [False, True])
+def test_single_layer_fused_path_matches_the_general_path(tilt):
+    """A single layer takes the fused loop when cemented and the general per-row path with an
+    air gap (one layer: the same cavity, the same physics); they agree to rounding (τ is
+    1 − R on one path and √((1 − R)(1 − R)) on the other)."""
+    tol = "tilt_deg = { sigma = 0.5 }\n" if tilt else ""
+    text = SPEC.replace("FACES", '"uncoated"').replace(
+        "[tolerances]", "[tolerances]\n" + tol + "reflectance = { sigma = 0.002 }"
+    )
+    fused = loads(text)
+    general = loads(text.replace('faces = "uncoated"', 'faces = "uncoated"\nair_gap = true'))
+    a = Engine(fused, samples=512, seed=21)
+    b = Engine(general, samples=512, seed=21)
+    wa, sa = a.pass_values(a.cases[0])
+    wb, sb = b.pass_values(b.cases[0])
+    np.testing.assert_allclose(wa, wb, rtol=0, atol=1e-12)
+    np.testing.assert_allclose(sa, sb, rtol=0, atol=1e-13)
+    na, nb = a.nominal(a.cases[0]), b.nominal(b.cases[0])
+    np.testing.assert_allclose(na.stokes, nb.stokes, rtol=0, atol=1e-14)
+    np.testing.assert_allclose(na.values[0], nb.values[0], rtol=0, atol=1e-14)

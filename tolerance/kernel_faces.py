@@ -330,6 +330,104 @@ def _cavity_faces(
             )
 
 
+@nb.njit(inline="always", **_OPTS)
+def _fused_step(delta, mean, C, S, sg, ca, sa, ra, ta, rb, tb):
+    """One wavelength of a single-layer cemented plate, in registers: the layer, its Airy
+    factors and the normalised Stokes vector, with exactly the operations (and so the bits)
+    of :func:`_spectrum_faces`' general path.  Also returns N_a, N_b (see
+    :func:`_airy_scaled`)."""
+    b = 0.0
+    f = 0.0
+    s, c = _sincos(0.5 * delta)
+    ur = C * ca + S * sa
+    ui = C * b + S * f
+    vr = S * ca - C * sa
+    vi = S * b - C * f
+    xr = c * ca + s * ui
+    xi = c * b - s * ur
+    yr = c * sa + s * vi
+    yi = c * f - s * vr
+    cl = c * c - s * s
+    sl = 2.0 * s * c
+    cd0 = 1.0
+    sd0 = 0.0
+    cd = cd0 * cl - sg * (sd0 * sl)
+    sd = sd0 * cl + sg * (cd0 * sl)
+    s2p, c2p = _sincos(2.0 * (0.0 + mean))
+    ar, ai, br, bi, nra, nia, nrb, nib = _airy_scaled(c2p, s2p, cd, sd, ra, ta, rb, tb)
+    xr, xi, yr, yi = _apply_diag(xr, xi, yr, yi, C, S, ar, ai, br, bi)
+    inv = 1.0 / (xr * xr + xi * xi + yr * yr + yi * yi)
+    st1 = (xr * xr + xi * xi - yr * yr - yi * yi) * inv
+    st2 = 2.0 * (xr * yr + xi * yi) * inv
+    st3 = 2.0 * (xi * yr - xr * yi) * inv
+    return st1, st2, st3, nra, nia, nrb, nib
+
+
+@nb.njit(**_OPTS)
+def _single_layer_faces(
+    k0, no2l, ne2l, ratl, dnl, nbl, th, tf, pj, sg, sin2i, sp, cp, C, S, ca, sa, ra, ta, rb,
+    tb, work, want_ret,
+):  # fmt: skip
+    """:func:`_spectrum_faces` for one cemented layer, one fused loop per case (no
+    intermediate rows: the common plate runs at about the ideal kernel's memory traffic).
+    Returns False, having written nothing, when a phase is too large for :func:`_sincos`."""
+    W = k0.shape[0]
+    big = 0.0
+    if sin2i == 0.0:
+        for w in range(W):
+            kt = k0[w] * th
+            delta = kt * abs(dnl[w]) * tf
+            mean = kt * nbl[w]
+            big = max(big, abs(mean) + abs(delta), 2.0 * abs(0.0 + mean))
+    else:
+        for w in range(W):
+            delta, mean = _face_layer(
+                k0[w], th, tf, sin2i, no2l[w], ne2l[w], ratl[w], dnl[w], sp, cp, nbl[w]
+            )
+            big = max(big, abs(mean) + abs(delta), 2.0 * abs(0.0 + mean))
+    if big >= 0.25 * SINCOS_LIMIT:
+        return False
+    x1 = work[_XR]
+    x2 = work[_XI]
+    x3 = work[_YR]
+    ret = work[_RET]
+    if sin2i == 0.0 and want_ret:
+        for w in range(W):
+            kt = k0[w] * th
+            delta = kt * abs(dnl[w]) * tf
+            mean = kt * nbl[w]
+            x1[w], x2[w], x3[w], nra, nia, nrb, nib = _fused_step(
+                delta, mean, C, S, sg, ca, sa, ra[w], ta[w], rb[w], tb[w]
+            )
+            ret[w] = (0.0 + pj * delta) + pj * _atan2(nib * nra - nrb * nia, nrb * nra + nib * nia)
+    elif sin2i == 0.0:
+        for w in range(W):
+            kt = k0[w] * th
+            delta = kt * abs(dnl[w]) * tf
+            mean = kt * nbl[w]
+            x1[w], x2[w], x3[w], _, _, _, _ = _fused_step(
+                delta, mean, C, S, sg, ca, sa, ra[w], ta[w], rb[w], tb[w]
+            )
+    elif want_ret:
+        for w in range(W):
+            delta, mean = _face_layer(
+                k0[w], th, tf, sin2i, no2l[w], ne2l[w], ratl[w], dnl[w], sp, cp, nbl[w]
+            )
+            x1[w], x2[w], x3[w], nra, nia, nrb, nib = _fused_step(
+                delta, mean, C, S, sg, ca, sa, ra[w], ta[w], rb[w], tb[w]
+            )
+            ret[w] = (0.0 + pj * delta) + pj * _atan2(nib * nra - nrb * nia, nrb * nra + nib * nia)
+    else:
+        for w in range(W):
+            delta, mean = _face_layer(
+                k0[w], th, tf, sin2i, no2l[w], ne2l[w], ratl[w], dnl[w], sp, cp, nbl[w]
+            )
+            x1[w], x2[w], x3[w], _, _, _, _ = _fused_step(
+                delta, mean, C, S, sg, ca, sa, ra[w], ta[w], rb[w], tb[w]
+            )
+    return True
+
+
 @nb.njit(**_OPTS)
 def _spectrum_faces(
     optics, faces, tr, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, work, fwork,
@@ -355,6 +453,17 @@ def _spectrum_faces(
     vary = False
     for f in range(dr.shape[0]):
         vary = vary or dr[f] != 0.0
+    if L == 1 and not air_gap:
+        if vary:
+            _offset_faces(rinfT[0], routfT[0], rinsT[0], routsT[0], dr[0], dr[1], fwork)
+            ra, ta, rb, tb = fwork[_RA], fwork[_TA], fwork[_RB], fwork[_TB]
+        else:
+            ra, ta, rb, tb = rfT[0], tfT[0], rsT[0], tsT[0]
+        if _single_layer_faces(
+            k0, no2T[0], ne2T[0], ratT[0], dnT[0], nbT[0], thick[0], tfac[0], proj[0], sgn[0],
+            sin2i, sphi2[0], cphi2[0], c2[0], s2[0], ca, sa, ra, ta, rb, tb, work, want_ret,
+        ):  # fmt: skip
+            return
     xr = work[_XR]
     xi = work[_XI]
     yr = work[_YR]

@@ -6,11 +6,12 @@ Run from the repository root::
 
 Two candidates that differ only in ``faces`` (ideal, uncoated): a zero-order quartz
 quarter-wave plate and a compound quartz plate (two layers, cemented) on a 401-point grid,
-thickness, clocking, crossing and tilt tolerances.  For each, the best of 3 timings of
+thickness, clocking, crossing and tilt tolerances.  For each, the best of 7 timings (the two
+candidates taking turns, so that other jobs' load drifts less between them) of
 ``Engine.pass_values`` (draws + kernel, no statistics) after a warm-up that compiles, in wall
-time and in process CPU time (less sensitive to other jobs on a shared machine), and of the main
-pass with histograms (one bin; the faces' retardance change is computed there).  Target: faces
-within 2x of ideal.  Timings on a shared machine vary: the load average is printed first.
+time and in process CPU time, and of the main pass with histograms (one bin; the faces'
+retardance change is computed there).  Target: faces within 2x of ideal.  Timings on a shared
+machine vary: the load average is printed first.
 """
 
 from __future__ import annotations
@@ -67,13 +68,18 @@ tilt_deg = { sigma = 0.5 }
 """
 
 
-def best(fn, repeats=3, clock=time.perf_counter):
-    out = []
+REPEATS = 7
+
+
+def interleaved(names, fn, repeats, clock=time.perf_counter):
+    """The best time of ``fn(name)`` for each name, the names taking turns."""
+    out = {k: [] for k in names}
     for _ in range(repeats):
-        t = clock()
-        fn()
-        out.append(clock() - t)
-    return min(out)
+        for k in names:
+            t = clock()
+            fn(k)
+            out[k].append(clock() - t)
+    return {k: min(v) for k, v in out.items()}
 
 
 def _main_pass(eng, case):
@@ -103,16 +109,23 @@ def main():
     for cons, extra in (("zero-order", ""), ("compound", 'thick_plate = "500um"')):
         study = loads(SPEC.replace("CONS", cons).replace("EXTRA", extra))
         eng = Engine(study, samples=n, seed=1)
-        times, cpu, stats = {}, {}, {}
-        for i, name in enumerate(("ideal", "uncoated")):
-            case = eng.case(i)
-            eng.pass_values(case, 256)  # compile
-            eng.evaluate(eng.case(i, tolerances={}))  # compile the statistics pass
-            times[name] = best(lambda case=case, eng=eng: eng.pass_values(case, n))
-            cpu[name] = best(
-                lambda case=case, eng=eng: eng.pass_values(case, n), 3, time.process_time
-            )
-            stats[name] = best(lambda case=case, eng=eng: _main_pass(eng, case), 3)
+        names = ("ideal", "uncoated")
+        cases = {name: eng.case(i) for i, name in enumerate(names)}
+        for name in names:
+            eng.pass_values(cases[name], 256)  # compile
+            eng.evaluate(eng.case(cases[name].candidate, tolerances={}))  # compile histograms
+
+        # interleaved repetitions, the best of each: other jobs' load drifts less between the
+        # two candidates' timings than between two separate series
+        def values(k, eng=eng, cases=cases):
+            eng.pass_values(cases[k], n)
+
+        def main_pass(k, eng=eng, cases=cases):
+            _main_pass(eng, cases[k])
+
+        times = interleaved(names, values, REPEATS)
+        cpu = interleaved(names, values, REPEATS, time.process_time)
+        stats = interleaved(names, main_pass, REPEATS)
         ratio = times["uncoated"] / times["ideal"]
         W = eng.grid.size
         rate = {k: n * W / v / 1e6 for k, v in times.items()}
