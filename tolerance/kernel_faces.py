@@ -331,31 +331,34 @@ def _cavity_faces(
 
 
 @nb.njit(inline="always", **_OPTS)
-def _fused_step(delta, mean, C, S, sg, ca, sa, ra, ta, rb, tb):
-    """One wavelength of a single-layer cemented plate, in registers: the layer, its Airy
-    factors and the normalised Stokes vector, with exactly the operations (and so the bits)
-    of :func:`_spectrum_faces`' general path.  Also returns N_a, N_b (see
-    :func:`_airy_scaled`)."""
-    b = 0.0
-    f = 0.0
+def _fused_step(delta, mean, C, S, ca, sa, ra, ta, rb, tb):
+    """One wavelength of a single-layer cemented plate, in registers: normalised Stokes of the
+    linear input (ca, sa) and N_a, N_b (see :func:`_airy_scaled`).
+
+    The layer and its cavity are diagonal in the same axes, so they act as one: the fast wave
+    gets e^{−iδ/2}·A_a and the slow one e^{iδ/2}·A_b, applied as p·I + q·M (M the reflection
+    in the fast axis, C = cos 2θ, S = sin 2θ) with p, q the half sum and half difference;
+    cos δ and sin δ come from the half angle's by the double-angle formulas.
+    """
     s, c = _sincos(0.5 * delta)
+    s2p, c2p = _sincos(2.0 * mean)
+    ar, ai, br, bi, nra, nia, nrb, nib = _airy_scaled(
+        c2p, s2p, c * c - s * s, 2.0 * s * c, ra, ta, rb, tb
+    )
+    er = c * ar + s * ai
+    ei = c * ai - s * ar
+    fr = c * br - s * bi
+    fi = c * bi + s * br
+    pr = 0.5 * (er + fr)
+    pi_ = 0.5 * (ei + fi)
+    qr = 0.5 * (er - fr)
+    qi = 0.5 * (ei - fi)
     ur = C * ca + S * sa
-    ui = C * b + S * f
     vr = S * ca - C * sa
-    vi = S * b - C * f
-    xr = c * ca + s * ui
-    xi = c * b - s * ur
-    yr = c * sa + s * vi
-    yi = c * f - s * vr
-    cl = c * c - s * s
-    sl = 2.0 * s * c
-    cd0 = 1.0
-    sd0 = 0.0
-    cd = cd0 * cl - sg * (sd0 * sl)
-    sd = sd0 * cl + sg * (cd0 * sl)
-    s2p, c2p = _sincos(2.0 * (0.0 + mean))
-    ar, ai, br, bi, nra, nia, nrb, nib = _airy_scaled(c2p, s2p, cd, sd, ra, ta, rb, tb)
-    xr, xi, yr, yi = _apply_diag(xr, xi, yr, yi, C, S, ar, ai, br, bi)
+    xr = pr * ca + qr * ur
+    xi = pi_ * ca + qi * ur
+    yr = pr * sa + qr * vr
+    yi = pi_ * sa + qi * vr
     inv = 1.0 / (xr * xr + xi * xi + yr * yr + yi * yi)
     st1 = (xr * xr + xi * xi - yr * yr - yi * yi) * inv
     st2 = 2.0 * (xr * yr + xi * yi) * inv
@@ -368,9 +371,10 @@ def _single_layer_faces(
     k0, no2l, ne2l, ratl, dnl, nbl, th, tf, pj, sg, sin2i, sp, cp, C, S, ca, sa, ra, ta, rb,
     tb, work, want_ret,
 ):  # fmt: skip
-    """:func:`_spectrum_faces` for one cemented layer, one fused loop per case (no
-    intermediate rows: the common plate runs at about the ideal kernel's memory traffic).
-    Returns False, having written nothing, when a phase is too large for :func:`_sincos`."""
+    """:func:`_spectrum_faces` for one cemented layer (the common plate): one fused loop per
+    case, no intermediate rows, layer and cavity applied as one diagonal (:func:`_fused_step`;
+    the same physics as the general path, to rounding).  Returns False, having written
+    nothing, when a phase is too large for :func:`_sincos`."""
     W = k0.shape[0]
     big = 0.0
     if sin2i == 0.0:
@@ -397,16 +401,16 @@ def _single_layer_faces(
             delta = kt * abs(dnl[w]) * tf
             mean = kt * nbl[w]
             x1[w], x2[w], x3[w], nra, nia, nrb, nib = _fused_step(
-                delta, mean, C, S, sg, ca, sa, ra[w], ta[w], rb[w], tb[w]
+                delta, mean, C, S, ca, sa, ra[w], ta[w], rb[w], tb[w]
             )
-            ret[w] = (0.0 + pj * delta) + pj * _atan2(nib * nra - nrb * nia, nrb * nra + nib * nia)
+            ret[w] = pj * delta + pj * _atan2(nib * nra - nrb * nia, nrb * nra + nib * nia)
     elif sin2i == 0.0:
         for w in range(W):
             kt = k0[w] * th
             delta = kt * abs(dnl[w]) * tf
             mean = kt * nbl[w]
             x1[w], x2[w], x3[w], _, _, _, _ = _fused_step(
-                delta, mean, C, S, sg, ca, sa, ra[w], ta[w], rb[w], tb[w]
+                delta, mean, C, S, ca, sa, ra[w], ta[w], rb[w], tb[w]
             )
     elif want_ret:
         for w in range(W):
@@ -414,16 +418,16 @@ def _single_layer_faces(
                 k0[w], th, tf, sin2i, no2l[w], ne2l[w], ratl[w], dnl[w], sp, cp, nbl[w]
             )
             x1[w], x2[w], x3[w], nra, nia, nrb, nib = _fused_step(
-                delta, mean, C, S, sg, ca, sa, ra[w], ta[w], rb[w], tb[w]
+                delta, mean, C, S, ca, sa, ra[w], ta[w], rb[w], tb[w]
             )
-            ret[w] = (0.0 + pj * delta) + pj * _atan2(nib * nra - nrb * nia, nrb * nra + nib * nia)
+            ret[w] = pj * delta + pj * _atan2(nib * nra - nrb * nia, nrb * nra + nib * nia)
     else:
         for w in range(W):
             delta, mean = _face_layer(
                 k0[w], th, tf, sin2i, no2l[w], ne2l[w], ratl[w], dnl[w], sp, cp, nbl[w]
             )
             x1[w], x2[w], x3[w], _, _, _, _ = _fused_step(
-                delta, mean, C, S, sg, ca, sa, ra[w], ta[w], rb[w], tb[w]
+                delta, mean, C, S, ca, sa, ra[w], ta[w], rb[w], tb[w]
             )
     return True
 
