@@ -225,9 +225,14 @@ def parse_faces(value, field: str = "faces", base_dir=None) -> Faces:
                 raise RetolError(field, "a coating file takes no other keys", _FACES_FIX)
             from pathlib import Path
 
-            path = Path(r).expanduser()
-            if not r.strip():
-                raise RetolError(f"{field}.reflectance", "is an empty file name", _FACES_FIX)
+            if not r.strip() or "\x00" in r:
+                raise RetolError(f"{field}.reflectance", f"bad file name {r!r}", _FACES_FIX)
+            try:
+                path = Path(r).expanduser()
+            except RuntimeError:  # "~user" with no such user or home
+                raise RetolError(
+                    f"{field}.reflectance", f"cannot expand {r!r}", "give the full path"
+                ) from None
             if not path.is_absolute() and base_dir is not None:
                 path = Path(base_dir) / path
             return read_reflectance_csv(path, f"{field}.reflectance")
@@ -244,6 +249,8 @@ def parse_faces(value, field: str = "faces", base_dir=None) -> Faces:
                     field, "the lists must hold numbers", "e.g. reflectance = [0.004, 0.002]"
                 )
             file = value.get("file")
+            if file is not None and not isinstance(file, str):
+                raise RetolError(f"{field}.file", f"must be a file name, got {file!r}", _FACES_FIX)
             return coating_table(
                 wl, r, field, "the inline table", None if file is None else str(file)
             )
