@@ -366,3 +366,25 @@ def test_single_layer_fused_path_matches_the_general_path(tilt):
     na, nb = a.nominal(a.cases[0]), b.nominal(b.cases[0])
     np.testing.assert_allclose(na.stokes, nb.stokes, rtol=0, atol=1e-14)
     np.testing.assert_allclose(na.values[0], nb.values[0], rtol=0, atol=1e-14)
+
+
+@pytest.mark.parametrize("gap", [False, True])
+def test_fixed_offset_on_a_compound_plate_is_the_coating_it_adds_up_to(gap):
+    """A fixed offset of +0.1 % on R = 0.25 % faces gives the R = 0.35 % coating (general
+    path: two layers, cemented or with air gaps), to rounding of R + ΔR."""
+    extra = "\nair_gap = true" if gap else ""
+    text = SPEC.replace(
+        'construction = "zero-order"', 'construction = "compound"\nthick_plate = "300um"'
+    )
+    a_study = loads(text.replace("FACES", "{ reflectance = 0.0025 }" + extra))
+    b_study = loads(text.replace("FACES", "{ reflectance = 0.0035 }" + extra))
+    a = Engine(a_study, samples=512, seed=6)
+    b = Engine(b_study, samples=512, seed=6)
+    tol = _with(a_study, 0, reflectance={"low": 0.001, "high": 0.001})
+    for x, y in zip(
+        a.pass_values(a.case(0, tolerances=tol)), b.pass_values(b.cases[0]), strict=True
+    ):
+        np.testing.assert_allclose(x, y, rtol=0, atol=1e-12)
+    wa, _ = a.pass_values(a.cases[0])
+    wb, _ = b.pass_values(b.cases[0])
+    assert np.max(np.abs(wa - wb)) > 1e-6  # the two coatings do differ
