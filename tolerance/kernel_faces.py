@@ -368,66 +368,51 @@ def _fused_step(delta, mean, C, S, ca, sa, ra, ta, rb, tb):
 
 @nb.njit(**_OPTS)
 def _single_layer_faces(
-    k0, no2l, ne2l, ratl, dnl, nbl, th, tf, pj, sg, sin2i, sp, cp, C, S, ca, sa, ra, ta, rb,
-    tb, work, want_ret,
+    k0, no2l, ne2l, ratl, dnl, nbl, th, tf, pj, sin2i, sp, cp, C, S, ca, sa, ra, ta, rb, tb,
+    work, want_ret,
 ):  # fmt: skip
-    """:func:`_spectrum_faces` for one cemented layer (the common plate): one fused loop per
-    case, no intermediate rows, layer and cavity applied as one diagonal (:func:`_fused_step`;
-    the same physics as the general path, to rounding).  Returns False, having written
-    nothing, when a phase is too large for :func:`_sincos`."""
+    """:func:`_spectrum_faces` for one cemented layer (the common plate): the layer's
+    retardance and mean phase into rows _H and _RW, then one fused loop with no other
+    intermediate rows, layer and cavity applied as one diagonal (:func:`_fused_step`; the
+    same physics as the general path, to rounding).  Returns False, having written no
+    Stokes, when a phase is too large for :func:`_sincos`."""
     W = k0.shape[0]
+    dl = work[_H]
+    mn = work[_RW]
     big = 0.0
     if sin2i == 0.0:
         for w in range(W):
             kt = k0[w] * th
             delta = kt * abs(dnl[w]) * tf
             mean = kt * nbl[w]
-            big = max(big, abs(mean) + abs(delta), 2.0 * abs(0.0 + mean))
+            dl[w] = delta
+            mn[w] = mean
+            big = max(big, abs(mean) + abs(delta), 2.0 * abs(mean))
     else:
         for w in range(W):
             delta, mean = _face_layer(
                 k0[w], th, tf, sin2i, no2l[w], ne2l[w], ratl[w], dnl[w], sp, cp, nbl[w]
             )
-            big = max(big, abs(mean) + abs(delta), 2.0 * abs(0.0 + mean))
+            dl[w] = delta
+            mn[w] = mean
+            big = max(big, abs(mean) + abs(delta), 2.0 * abs(mean))
     if big >= 0.25 * SINCOS_LIMIT:
         return False
     x1 = work[_XR]
     x2 = work[_XI]
     x3 = work[_YR]
     ret = work[_RET]
-    if sin2i == 0.0 and want_ret:
+    if want_ret:
         for w in range(W):
-            kt = k0[w] * th
-            delta = kt * abs(dnl[w]) * tf
-            mean = kt * nbl[w]
+            delta = dl[w]
             x1[w], x2[w], x3[w], nra, nia, nrb, nib = _fused_step(
-                delta, mean, C, S, ca, sa, ra[w], ta[w], rb[w], tb[w]
-            )
-            ret[w] = pj * delta + pj * _atan2(nib * nra - nrb * nia, nrb * nra + nib * nia)
-    elif sin2i == 0.0:
-        for w in range(W):
-            kt = k0[w] * th
-            delta = kt * abs(dnl[w]) * tf
-            mean = kt * nbl[w]
-            x1[w], x2[w], x3[w], _, _, _, _ = _fused_step(
-                delta, mean, C, S, ca, sa, ra[w], ta[w], rb[w], tb[w]
-            )
-    elif want_ret:
-        for w in range(W):
-            delta, mean = _face_layer(
-                k0[w], th, tf, sin2i, no2l[w], ne2l[w], ratl[w], dnl[w], sp, cp, nbl[w]
-            )
-            x1[w], x2[w], x3[w], nra, nia, nrb, nib = _fused_step(
-                delta, mean, C, S, ca, sa, ra[w], ta[w], rb[w], tb[w]
+                delta, mn[w], C, S, ca, sa, ra[w], ta[w], rb[w], tb[w]
             )
             ret[w] = pj * delta + pj * _atan2(nib * nra - nrb * nia, nrb * nra + nib * nia)
     else:
         for w in range(W):
-            delta, mean = _face_layer(
-                k0[w], th, tf, sin2i, no2l[w], ne2l[w], ratl[w], dnl[w], sp, cp, nbl[w]
-            )
             x1[w], x2[w], x3[w], _, _, _, _ = _fused_step(
-                delta, mean, C, S, ca, sa, ra[w], ta[w], rb[w], tb[w]
+                dl[w], mn[w], C, S, ca, sa, ra[w], ta[w], rb[w], tb[w]
             )
     return True
 
@@ -464,8 +449,8 @@ def _spectrum_faces(
         else:
             ra, ta, rb, tb = rfT[0], tfT[0], rsT[0], tsT[0]
         if _single_layer_faces(
-            k0, no2T[0], ne2T[0], ratT[0], dnT[0], nbT[0], thick[0], tfac[0], proj[0], sgn[0],
-            sin2i, sphi2[0], cphi2[0], c2[0], s2[0], ca, sa, ra, ta, rb, tb, work, want_ret,
+            k0, no2T[0], ne2T[0], ratT[0], dnT[0], nbT[0], thick[0], tfac[0], proj[0], sin2i,
+            sphi2[0], cphi2[0], c2[0], s2[0], ca, sa, ra, ta, rb, tb, work, want_ret,
         ):  # fmt: skip
             return
     xr = work[_XR]
