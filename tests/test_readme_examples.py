@@ -35,10 +35,17 @@ def commands(text: str) -> list[list[str]]:
     return out
 
 
-@pytest.mark.parametrize("title", ["Sweeps and clusters"])
+@pytest.mark.parametrize(
+    "title",
+    ["Sweeps and clusters", "Plates with faces: reflections, coatings, equivalent retarder"],
+)
 def test_section_examples_run(title, tmp_path, monkeypatch):
     monkeypatch.chdir(tmp_path)
-    cmds = commands(section(title))
+    text = section(title)
+    # a data file the section shows (e.g. "# coating.csv: ...") is written where it is read
+    for name, body in re.findall(r"```\n# (\S+\.csv):[^\n]*\n(.*?)```", text, re.S):
+        (tmp_path / name).write_text(body)
+    cmds = commands(text)
     assert cmds
     for args in cmds:
         r = CliRunner().invoke(cli, args)
