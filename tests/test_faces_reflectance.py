@@ -388,3 +388,25 @@ def test_fixed_offset_on_a_compound_plate_is_the_coating_it_adds_up_to(gap):
     wa, _ = a.pass_values(a.cases[0])
     wb, _ = b.pass_values(b.cases[0])
     assert np.max(np.abs(wa - wb)) > 1e-6  # the two coatings do differ
+
+
+def test_reflectance_draws_travel_to_a_cluster_bit_identically(monkeypatch):
+    """The per-face offsets are made inside each task (from the seed), so a distributed run
+    equals the local one bit for bit."""
+    pytest.importorskip("distributed")
+    from tolerance import cluster
+
+    monkeypatch.setattr(cluster, "TASK_BLOCKS", 1)
+    text = LASER.read_text().replace(
+        "[tolerances]", "[tolerances]\nreflectance = { sigma = 0.002 }"
+    )
+    study = loads(text)
+    local = tolerance.run(study, samples=1024, seed=5)
+    with cluster.client(workers=2) as c:
+        remote = tolerance.run(study, samples=1024, seed=5, client=c)
+    for k in local.data_vars:
+        x, y = local[k].values, remote[k].values
+        if x.dtype.kind in "fc":
+            np.testing.assert_array_equal(x, y, err_msg=k)
+        else:
+            assert x.tolist() == y.tolist(), k

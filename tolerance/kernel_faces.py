@@ -619,9 +619,11 @@ def values_one_faces(optics, faces, sample, proj, goal, metric_kind, out, stokes
     work = np.empty((N_WORK, W))
     fwork = np.empty((N_FWORK, W))
     tr = _transposes(optics, faces)
+    # True, but not a literal: the chunk pass's specialization serves (one compile, not two)
+    want_ret = W >= 0
     _spectrum_faces(
         optics, faces, tr, thick, tfac, c2, s2, sin2i, cphi2, sphi2, ca, sa, proj, work, fwork,
-        np.zeros(1), True,
+        np.zeros(1), want_ret,
     )  # fmt: skip
     _metric_row(work, goal[0], goal[1], goal[2], metric_kind)
     for w in range(W):
