@@ -719,8 +719,7 @@ def _faces_words(spec: dict) -> str:
         + "; ".join(named)
         + ". Faces act by coherent multiple reflections (Airy sum per eigenwave, at normal-"
         "incidence reflectance, reflections between air-gapped layers neglected); absorption "
-        "and scatter are not modelled."
-        + _reflectance_words(spec)
+        "and scatter are not modelled." + _reflectance_words(spec)
     )
 
 
