@@ -18,6 +18,18 @@ The retardance statistic includes the faces' phase change ε = atan2(ρ sin 2φ,
 of each eigenwave; the Stokes vectors are normalised at each wavelength (the output state), and
 the source average weights the states by the source's power, not by the plate's slightly
 rippled transmittance.  Inputs are plain numpy arrays only.
+
+Arithmetic: the two waves' round-trip sines and cosines come from those of 2φ and of the
+relative retardance by angle addition; both Airy factors are scaled by |N_a|²|N_b|² (no
+division; the normalised Stokes vector does not see a common factor); the arc tangent of ε is
+taken only when histograms are filled.  A single cemented layer runs one fused loop per
+wavelength (:func:`_single_layer_faces`); other plates the per-row general path.
+
+The ``reflectance`` tolerance reaches the kernel as :class:`FaceDraws`: per sample, an offset
+of each face's power reflectance (independent streams per face, drawn in
+:func:`tolerance.montecarlo.sample_inputs`), added to the wavelength-dependent reflectances in
+``FaceOptics`` and clipped to [0, :data:`R_MAX`].  A sample whose offsets are all zero reads
+the precomputed ρ and τ, so a zero-width tolerance changes no bit.
 """
 
 from __future__ import annotations
