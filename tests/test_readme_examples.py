@@ -36,11 +36,20 @@ def commands(text: str) -> list[list[str]]:
 
 
 @pytest.mark.parametrize(
-    "title", ["Sweeps and clusters", "Trains of plates: each element its own tolerances"]
+    "title",
+    [
+        "Sweeps and clusters",
+        "Trains of plates: each element its own tolerances",
+        "Plates with faces: reflections, coatings, equivalent retarder",
+    ],
 )
 def test_section_examples_run(title, tmp_path, monkeypatch):
     monkeypatch.chdir(tmp_path)
-    cmds = commands(section(title))
+    text = section(title)
+    # a data file the section shows (e.g. "# coating.csv: ...") is written where it is read
+    for name, body in re.findall(r"```\n# (\S+\.csv):[^\n]*\n(.*?)```", text, re.S):
+        (tmp_path / name).write_text(body)
+    cmds = commands(text)
     assert cmds
     for args in cmds:
         r = CliRunner().invoke(cli, args)

@@ -182,6 +182,24 @@ KNOWN = [
     ),
     pytest.param("sld_circular.toml", 'fwhm = "20nm"', "fwhm = 07:32:00", id="fwhm-time-json"),
     pytest.param("laser_faces.toml", 'shape = "laser"', "shape = []", id="shape-list-unhashable"),
+    pytest.param(
+        "laser_faces.toml",
+        "faces = { reflectance = 0.0025 }",
+        'faces = { reflectance = "~nosuchuser/coating.csv" }',
+        id="coating-file-unknown-home",
+    ),
+    pytest.param(
+        "laser_faces.toml",
+        "faces = { reflectance = 0.0025 }",
+        'faces = { reflectance = "a\u0000b.csv" }',
+        id="coating-file-null-byte",
+    ),
+    pytest.param(
+        "laser_faces.toml",
+        "faces = { reflectance = 0.0025 }",
+        "faces = { reflectance = [0.1, 0.2], wavelength_nm = [600, 700], file = 3 }",
+        id="coating-file-not-a-name",
+    ),
 ]
 
 

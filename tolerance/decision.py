@@ -195,18 +195,34 @@ def separation_warning(names, yields, lows, highs, ranks, samples: int, confiden
     )
 
 
-def tolerance_applies(short: str, n_layers: int, goal_over: str) -> bool:
+def tolerance_applies(short: str, n_layers: int, goal_over: str, has_faces: bool = True) -> bool:
     """Whether a tolerance can act on a candidate at all.
 
     The crossing between plates needs two or more layers; the laser's centre drift moves the
     line within the band, which a goal judged at every wavelength of the band ("band") does not
-    see.  Such tolerances are shown as "not applicable", not as an effect of +0.0.
+    see; the faces' reflectance needs reflecting faces (not ``faces = "ideal"``).  Such
+    tolerances are shown as "not applicable", not as an effect of +0.0.
     """
     from .tolerances import split_key
 
     short = split_key(short)[0]  # a train element's tolerance: the same rule
     if short in ("crossing", "crossing_deg"):
         return n_layers > 1
+    if short == "reflectance":
+        return has_faces
     if short == "drift":
         return goal_over == "spectrum"
     return True
+
+
+def candidate_has_faces(attrs, c: int) -> bool:
+    """Whether candidate ``c`` of a results grid has reflecting faces, read from the stored
+    spec (``attrs["spec"]``, JSON); False when the grid does not say."""
+    import json
+
+    try:
+        spec = json.loads(attrs["spec"])
+        faces = spec["candidates"][c].get("faces")
+    except (KeyError, IndexError, TypeError, ValueError, AttributeError):
+        return False
+    return faces not in (None, "ideal")

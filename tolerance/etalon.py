@@ -43,10 +43,15 @@ FACE_KINDS = ("ideal", "uncoated", "coated")
 @dataclass(frozen=True)
 class Faces:
     """A plate's faces: ``kind`` ideal|uncoated|coated and, when coated, ``reflectance`` [1]
-    (power reflectance per face at normal incidence)."""
+    (power reflectance per face at normal incidence), or a table of it against wavelength:
+    ``wavelength_nm`` [nm] (strictly increasing) and ``curve`` [1], read from ``file`` (a CSV
+    file's name, kept for the record) or given inline."""
 
     kind: str = "ideal"
     reflectance: float = 0.0
+    wavelength_nm: tuple = ()
+    curve: tuple = ()
+    file: str | None = None
 
     def __post_init__(self):
         if self.kind not in FACE_KINDS:
@@ -65,17 +70,132 @@ class Faces:
     def ideal(self) -> bool:
         return self.kind == "ideal"
 
+    @property
+    def tabulated(self) -> bool:
+        """The reflectance is a table against wavelength."""
+        return bool(self.curve)
+
+    def at(self, wavelength_nm):
+        """The coating's power reflectance at ``wavelength_nm`` [nm] (linear interpolation in
+        the table; its end values held beyond it). [1]"""
+        wl = np.asarray(wavelength_nm, dtype=float)
+        if not self.tabulated:
+            return np.full(wl.shape, self.reflectance)
+        return np.interp(wl, np.asarray(self.wavelength_nm), np.asarray(self.curve))
+
     def to_spec(self):
-        """The spec form: a string for ideal/uncoated, a table for a coating."""
-        return self.kind if self.kind != "coated" else {"reflectance": self.reflectance}
+        """The spec form: a string for ideal/uncoated, a table for a coating (a tabulated
+        coating inline, with the file it came from, so that a stored spec needs no file)."""
+        if self.kind != "coated":
+            return self.kind
+        if not self.tabulated:
+            return {"reflectance": self.reflectance}
+        out = {"reflectance": list(self.curve), "wavelength_nm": list(self.wavelength_nm)}
+        if self.file is not None:
+            out["file"] = self.file
+        return out
 
 
 IDEAL = Faces("ideal")
 
+_FACES_FIX = 'use "ideal", "uncoated", { reflectance = 0.0025 } or { reflectance = "coating.csv" }'
 
-def parse_faces(value, field: str = "faces") -> Faces:
-    """A :class:`Faces` from the spec/CLI form ``"ideal"``, ``"uncoated"`` or
-    ``{reflectance = R}`` (a number R is accepted too)."""
+
+def coating_table(wavelength_nm, curve, field: str, name: str = "the table", file=None) -> Faces:
+    """A tabulated coating after checking its rows (one-line :class:`RetolError` naming
+    ``field``, ``name`` and the row otherwise): at least two rows, finite values, positive and
+    strictly increasing wavelengths [nm], reflectances in [0, 1)."""
+    wl = [float(x) for x in wavelength_nm]
+    R = [float(x) for x in curve]
+    if len(wl) != len(R):
+        raise RetolError(
+            field, f"{name}: {len(wl)} wavelengths but {len(R)} reflectances", "one of each per row"
+        )
+    if len(wl) < 2:
+        raise RetolError(
+            field,
+            f"{name} has {len(wl)} row(s)",
+            "give at least 2 rows of wavelength_nm,reflectance",
+        )
+    for i, (x, r) in enumerate(zip(wl, R, strict=True), start=1):
+        if not (np.isfinite(x) and x > 0):
+            raise RetolError(
+                field,
+                f"{name} row {i}, column wavelength_nm: {x!r} is not a positive finite wavelength",
+                "wavelengths in nm, e.g. 632.8",
+            )
+        if not (np.isfinite(r) and 0.0 <= r < 1.0):
+            raise RetolError(
+                field,
+                f"{name} row {i}, column reflectance: {r!r} is not a power reflectance in [0, 1)",
+                "give fractions, e.g. 0.0025 for 0.25 % (not percent)",
+            )
+        if i > 1 and x <= wl[i - 2]:
+            what = "repeats" if x == wl[i - 2] else "is below"
+            raise RetolError(
+                field,
+                f"{name} row {i}, column wavelength_nm: {x:g} nm {what} the row before",
+                "sort the rows by wavelength and keep one row per wavelength",
+            )
+    return Faces("coated", 0.0, tuple(wl), tuple(R), file)
+
+
+def read_reflectance_csv(path, field: str) -> Faces:
+    """A coating's power reflectance per face against wavelength from a CSV file.
+
+    Rows of ``wavelength_nm,reflectance`` (nm; power, 0 to 1), an optional header row and ``#``
+    comment lines; commas, semicolons, tabs or spaces separate the columns.  The file must be a
+    regular file of at most :data:`tolerance.limits.MAX_DATA_BYTES`; the rows are checked by
+    :func:`coating_table` (sorted, no repeats, values in range, no NaN or inf).
+    """
+    import re
+    from pathlib import Path
+
+    from .limits import read_data_file
+
+    path = Path(path)
+    name = path.name
+    data = read_data_file(path, field, what="reflectance CSV file")
+    try:
+        text = data.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        raise RetolError(field, f"cannot read {name} ({exc})", "give a UTF-8 CSV file") from None
+    wl, R = [], []
+    first = True
+    for lineno, raw in enumerate(text.splitlines(), start=1):
+        line = raw.strip()
+        if not line or line.startswith("#"):
+            continue
+        cells = [c for c in re.split(r"\s*[,;\t]\s*|\s+", line) if c != ""]
+        try:
+            values = [float(c) for c in cells]
+        except ValueError:
+            if first:  # a header row
+                first = False
+                continue
+            raise RetolError(
+                field,
+                f"{name} line {lineno}: cannot read {line!r} as two numbers",
+                "give rows of wavelength_nm,reflectance",
+            ) from None
+        first = False
+        if len(values) != 2:
+            raise RetolError(
+                field,
+                f"{name} line {lineno}: expected 2 columns (wavelength_nm, reflectance), "
+                f"found {len(values)}",
+                "give rows of wavelength_nm,reflectance",
+            )
+        wl.append(values[0])
+        R.append(values[1])
+    return coating_table(wl, R, field, f"{name} data", file=name)
+
+
+def parse_faces(value, field: str = "faces", base_dir=None) -> Faces:
+    """A :class:`Faces` from the spec/CLI form ``"ideal"``, ``"uncoated"``,
+    ``{reflectance = R}`` (a number R is accepted too), ``{reflectance = "coating.csv"}`` (a
+    CSV file, relative to ``base_dir``) or the inline table ``{reflectance = [...],
+    wavelength_nm = [...]}`` (what a stored spec holds, with ``file`` for the record)."""
     if isinstance(value, Faces):
         return value
     if isinstance(value, str):
@@ -88,26 +208,75 @@ def parse_faces(value, field: str = "faces") -> Faces:
             number = None
         if number is not None:
             return parse_faces(number, field)
-        raise RetolError(
-            field, f"unknown faces {value!r}", 'use "ideal", "uncoated" or { reflectance = 0.0025 }'
-        )
+        if v.endswith(".csv"):  # the CLI's --faces coating.csv
+            return parse_faces({"reflectance": value.strip()}, field, base_dir)
+        raise RetolError(field, f"unknown faces {value!r}", _FACES_FIX)
     if isinstance(value, dict):
-        extra = set(value) - {"reflectance"}
-        if extra or "reflectance" not in value:
+        keys = set(value)
+        if "reflectance" not in keys or keys - {"reflectance", "wavelength_nm", "file"}:
             raise RetolError(
                 field,
-                f"a coating table takes only reflectance (got {sorted(value)})",
-                "write faces = { reflectance = 0.0025 }",
+                f"a coating table takes reflectance (and wavelength_nm), got {sorted(value)}",
+                'write faces = { reflectance = 0.0025 } or { reflectance = "coating.csv" }',
             )
-        value = value["reflectance"]
-    if isinstance(value, bool) or not isinstance(value, (int, float)):
-        raise RetolError(
-            field, f"cannot read {value!r}", 'use "ideal", "uncoated" or { reflectance = 0.0025 }'
-        )
+        r = value["reflectance"]
+        if isinstance(r, str):
+            if keys != {"reflectance"}:
+                raise RetolError(field, "a coating file takes no other keys", _FACES_FIX)
+            from pathlib import Path
+
+            if not r.strip() or "\x00" in r:
+                raise RetolError(f"{field}.reflectance", f"bad file name {r!r}", _FACES_FIX)
+            try:
+                path = Path(r).expanduser()
+            except RuntimeError:  # "~user" with no such user or home
+                raise RetolError(
+                    f"{field}.reflectance", f"cannot expand {r!r}", "give the full path"
+                ) from None
+            if not path.is_absolute() and base_dir is not None:
+                path = Path(base_dir) / path
+            return read_reflectance_csv(path, f"{field}.reflectance")
+        if isinstance(r, list | tuple):
+            wl = value.get("wavelength_nm")
+            if not isinstance(wl, list | tuple):
+                raise RetolError(
+                    f"{field}.wavelength_nm",
+                    "a list of reflectances needs the list of their wavelengths",
+                    "add wavelength_nm = [600, 650, 700]",
+                )
+            if not all(isinstance(x, int | float) and not isinstance(x, bool) for x in (*wl, *r)):
+                raise RetolError(
+                    field, "the lists must hold numbers", "e.g. reflectance = [0.004, 0.002]"
+                )
+            file = value.get("file")
+            if file is not None and not isinstance(file, str):
+                raise RetolError(f"{field}.file", f"must be a file name, got {file!r}", _FACES_FIX)
+            return coating_table(
+                wl, r, field, "the inline table", None if file is None else str(file)
+            )
+        if keys != {"reflectance"}:
+            raise RetolError(field, "wavelength_nm goes with a list of reflectances", _FACES_FIX)
+        value = r
+    if isinstance(value, bool) or not isinstance(value, int | float):
+        raise RetolError(field, f"cannot read {value!r}", _FACES_FIX)
     try:
         return Faces("coated", float(value))
     except RetolError as e:
         raise RetolError(f"{field}.reflectance", e.problem, e.fix) from None
+
+
+def check_faces_cover(faces: Faces, lo_nm: float, hi_nm: float, field: str, what: str) -> None:
+    """Refuse wavelengths [lo_nm, hi_nm] outside a tabulated coating's range."""
+    if not faces.tabulated:
+        return
+    a, b = faces.wavelength_nm[0], faces.wavelength_nm[-1]
+    if lo_nm < a or hi_nm > b:
+        src = faces.file or "the reflectance table"
+        raise RetolError(
+            field,
+            f"{src} covers {a:g}–{b:g} nm, but {what} spans {lo_nm:g}–{hi_nm:g} nm",
+            "extend the table to cover it, or narrow [wavelength]",
+        )
 
 
 def fresnel_reflectance(n):
@@ -122,11 +291,20 @@ def fresnel_reflectance(n):
     return ((n - 1.0) / (n + 1.0)) ** 2
 
 
-def face_reflectance(faces: Faces, n):
-    """Power reflectance of a face for a wave of index ``n`` (broadcast to n's shape). [1]"""
+def face_reflectance(faces: Faces, n, wavelength_nm=None):
+    """Power reflectance of a face for a wave of index ``n`` (broadcast to n's shape). [1]
+
+    A tabulated coating needs ``wavelength_nm`` [nm], of n's shape or of its leading axes
+    (e.g. (W,) for n of shape (W, L))."""
     n = np.asarray(n, dtype=float)
     if faces.kind == "uncoated":
         return fresnel_reflectance(n)
+    if faces.tabulated:
+        if wavelength_nm is None:
+            raise ValueError("a tabulated coating needs the wavelength")
+        r = faces.at(wavelength_nm)
+        r = r.reshape(r.shape + (1,) * (n.ndim - r.ndim))
+        return np.broadcast_to(r, n.shape).copy()
     r = 0.0 if faces.kind == "ideal" else faces.reflectance
     return np.full(n.shape, r)
 
@@ -403,8 +581,8 @@ def plate_jones_faces(
         )
 
     def face(i):
-        Rf = face_reflectance(faces, ph.n_fast[i])
-        Rs = face_reflectance(faces, ph.n_slow[i])
+        Rf = face_reflectance(faces, ph.n_fast[i], wavelength_nm)
+        Rs = face_reflectance(faces, ph.n_slow[i], wavelength_nm)
         r = _in_frame(np.sqrt(Rf), np.sqrt(Rs), axes[i])
         t = _in_frame(np.sqrt(1.0 - Rf), np.sqrt(1.0 - Rs), axes[i])
         return r, t

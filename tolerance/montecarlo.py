@@ -173,8 +173,8 @@ def face_optics(plate: Plate, faces, air_gap: bool, wl: np.ndarray):
     return face_arrays(
         n_o,
         n_e,
-        face_reflectance(faces, np.minimum(n_o, n_e)),
-        face_reflectance(faces, np.maximum(n_o, n_e)),
+        face_reflectance(faces, np.minimum(n_o, n_e), wl),
+        face_reflectance(faces, np.maximum(n_o, n_e), wl),
         plate.signs(),
         air_gap,
     )
@@ -299,6 +299,7 @@ def sample_inputs(case: Case, study: Study, draws: Draws, start: int, stop: int,
     ca, sa, cai, sai = study.input.jones(alpha)
     dop = np.full(n, study.input.degree_of_polarization)
     drift = value("drift") if "drift" in tol else None
+    face_dr = _face_offsets(case, tol, value, n)
     th = np.radians(2.0 * axis)
     c = np.ascontiguousarray
     inputs = SampleInputs(
@@ -316,7 +317,23 @@ def sample_inputs(case: Case, study: Study, draws: Draws, start: int, stop: int,
         c(dop),
         cut,
     )
-    return inputs, {"drift": drift, "temperature": temp, "aoi": aoi}
+    return inputs, {"drift": drift, "temperature": temp, "aoi": aoi, "face_dr": face_dr}
+
+
+def _face_offsets(case: Case, tol, value, n: int):
+    """The ``reflectance`` tolerance's offsets (n, F) of each face's power reflectance, one
+    stream per face (index = face, :func:`tolerance.kernel_faces.face_count`), or None when
+    it does not act (not given, or a candidate with ideal faces)."""
+    cand = case.candidate
+    if "reflectance" not in tol or cand.face_model.ideal:
+        return None
+    from .kernel_faces import face_count
+
+    F = face_count(len(case.plate.layers), cand.air_gap)
+    out = np.empty((n, F))
+    for f in range(F):
+        out[:, f] = value("reflectance", f)
+    return out
 
 
 def _cut_inputs(tol, value, aoi, phi, n: int, L: int) -> np.ndarray:
@@ -581,13 +598,21 @@ class Engine:
         self.replicates = R
         per_layer = {k for k, e in TOLERANCES.items() if e.extra["per_layer"]}
         layers = max([sampler.SOBOL_LAYERS] + [len(c.plate.layers) for c in study.candidates])
-        layout = sampler.sobol_layout(tuple(SHORT) + sampler.EXTRA_STREAMS, per_layer, layers)
+        # the per-face reflectance streams come after every other dimension, so that adding
+        # them left the dimensions of the older streams unchanged
+        first = tuple(k for k in SHORT if k not in sampler.LATE_STREAMS) + sampler.EXTRA_STREAMS
+        layout = sampler.sobol_layout(first, per_layer - set(sampler.LATE_STREAMS), layers)
         # a train's later mounts and plates (clocking and retardance of element e >= 1) get
         # dimensions after all others, so that studies without trains keep their points
         elements = max([len(c.elements or ()) for c in study.candidates] + [0])
         for e in range(1, elements):
             for name in ("clocking_deg", "retardance_waves"):
                 layout.setdefault((name, e), max(layout.values()) + 1)
+        top = max(layout.values()) + 1
+        for name in sampler.LATE_STREAMS:
+            for j in range(2 * layers):
+                layout[(name, j)] = top
+                top += 1
         return sampler.SobolDraws(self.seed, m, R, layout, DRAW_CACHE_BYTES)
 
     # ------------------------------------------------------------------ cases
@@ -721,6 +746,9 @@ class Engine:
             from .kernel_faces import chunk_pass_faces
 
             lines_nm = self.spectrum.lines_nm if self.spectrum.lines_nm.size else np.full(1, 1000.0)
+            from .kernel_faces import FaceDraws, no_face_draws
+
+            face_dr = extra.get("face_dr")
             chunk_pass_faces(
                 optics,
                 self._faces(case, self.grid),
@@ -728,6 +756,9 @@ class Engine:
                 line_optics(case.plate, self.spectrum, extra["drift"]),
                 self._faces(case, np.asarray(lines_nm, dtype=float)),
                 inputs,
+                no_face_draws()
+                if face_dr is None
+                else FaceDraws(np.ascontiguousarray(face_dr, dtype=float), True),
                 Target(case.plate.signs(), case.goal, self.metric_code, case.w_design),
                 stats,
                 SampleOutputs(worst, spec_st, des_st, keep, kept),

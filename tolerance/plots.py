@@ -18,7 +18,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .decision import tolerance_applies, yield_text
+from .decision import candidate_has_faces, tolerance_applies, yield_text
 from .errors import RetolError
 from .registry import Registry
 
@@ -651,6 +651,7 @@ def sensitivity_chart(grid):
                 else 1
             )
             over = str(grid.attrs.get("goal_over", "band"))
+            faced = candidate_has_faces(grid.attrs, c)
             full = float(grid["yield"].values[c]) * 100
             alone = np.asarray(grid["sensitivity_alone"].isel(candidate=c).values, float) * 100
             without = np.asarray(grid["sensitivity_without"].isel(candidate=c).values, float) * 100
@@ -658,7 +659,7 @@ def sensitivity_chart(grid):
             order = np.argsort(-np.nan_to_num(effect, nan=-np.inf), kind="stable")
             for row, j in enumerate(order):
                 pos = len(order) - 1 - row
-                if not tolerance_applies(tols[j], n_layers, over):
+                if not tolerance_applies(tols[j], n_layers, over, faced):
                     ax.annotate(
                         "not applicable",
                         (1.0, pos),

@@ -259,7 +259,7 @@ def csv_table(grid) -> tuple[list[str], list[dict]]:
     the goal metric named in its columns (e.g. ``nominal_worst_extinction_db``), and per
     tolerance the yield without it and with it alone (blank where it does not apply).
     """
-    from .decision import pct_digits, tolerance_applies
+    from .decision import candidate_has_faces, pct_digits, tolerance_applies
 
     metric = _s(grid.attrs.get("goal_metric", "metric"))
     over = _s(grid.attrs.get("goal_over", "band"))
@@ -308,7 +308,7 @@ def csv_table(grid) -> tuple[list[str], list[dict]]:
         ):
             d[key] = r[key]
         for j, t in enumerate(tols):
-            ok = tolerance_applies(t, len(layers), over)
+            ok = tolerance_applies(t, len(layers), over, candidate_has_faces(grid.attrs, c))
             for kind in ("without", "alone"):
                 var = f"sensitivity_{kind}"
                 v = _num(grid[var].values[c, j]) if var in grid.variables and ok else None
@@ -737,11 +737,18 @@ def _faces_words(spec: dict) -> str:
         f = c.get("faces") if isinstance(c, dict) else None
         if f is None:
             continue
-        kind = (
-            "uncoated (Fresnel reflectance of each eigenwave's own index)"
-            if f == "uncoated"
-            else f"coated, {100 * float(f['reflectance']):g} % power reflectance per face"
-        )
+        if f == "uncoated":
+            kind = "uncoated (Fresnel reflectance of each eigenwave's own index)"
+        elif isinstance(f.get("reflectance"), list):
+            r = [float(x) for x in f["reflectance"]]
+            wl = f.get("wavelength_nm") or [float("nan")]
+            src = f" from {f['file']}" if f.get("file") else ""
+            kind = (
+                f"coated, {100 * min(r):g}–{100 * max(r):g} % power reflectance per face over "
+                f"{float(wl[0]):g}–{float(wl[-1]):g} nm{src} (interpolated linearly)"
+            )
+        else:
+            kind = f"coated, {100 * float(f['reflectance']):g} % power reflectance per face"
         gap = ", layers separated by air gaps" if c.get("air_gap") else ""
         named.append(f"{c.get('name')}: {kind}{gap}")
     base = (
@@ -756,7 +763,22 @@ def _faces_words(spec: dict) -> str:
         + "; ".join(named)
         + ". Faces act by coherent multiple reflections (Airy sum per eigenwave, at normal-"
         "incidence reflectance, reflections between air-gapped layers neglected); absorption "
-        "and scatter are not modelled."
+        "and scatter are not modelled." + _reflectance_words(spec)
+    )
+
+
+def _reflectance_words(spec: dict) -> str:
+    """The reflectance tolerance's model, when the spec gives it anywhere."""
+    cands = spec.get("candidates") if isinstance(spec.get("candidates"), list) else []
+    given = "reflectance" in (spec.get("tolerances") or {}) or any(
+        isinstance(c, dict) and "reflectance" in (c.get("tolerances") or {}) for c in cands
+    )
+    if not given:
+        return ""
+    return (
+        " The reflectance tolerance adds its own draw to each face's power reflectance (both "
+        "eigenwaves, every wavelength), independently per face, clipped to [0, 0.999999]; it "
+        "does not apply to ideal faces."
     )
 
 

@@ -69,6 +69,9 @@ def standard_draws(seed: int, name: str, index: int, start: int, stop: int):
 SOBOL_LAYERS = 16
 #: Extra streams drawn beside the tolerances (the tilt's plane-of-incidence azimuth).
 EXTRA_STREAMS = ("tilt_azimuth",)
+#: Streams with one index per reflecting face (up to two per layer), given Sobol' dimensions
+#: after all the others (see :meth:`tolerance.montecarlo.Engine._sobol_draws`).
+LATE_STREAMS = ("reflectance",)
 #: The smallest and largest uniform a Sobol' coordinate may give (so that ndtri stays finite).
 _U_MIN = 2.0**-54
 _U_MAX = 1.0 - 2.0**-53

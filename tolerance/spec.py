@@ -449,7 +449,7 @@ def _candidate(ctx: _Ctx, c, i: int, default_design) -> Candidate:
         from .etalon import parse_faces
 
         try:
-            faces = parse_faces(c["faces"], f"{where}faces")
+            faces = parse_faces(c["faces"], f"{where}faces", getattr(ctx, "base_dir", None))
         except RetolError as exc:
             raise ctx.err(exc.field, exc.problem, exc.fix) from None
         faces = None if faces.ideal else faces
@@ -814,6 +814,7 @@ def validate(raw: dict, path: str = "<spec>", base_dir=None, source_text=None) -
         The spec as written, kept for the report.
     """
     ctx = _Ctx(Path(path).name if path != "<spec>" else path)
+    ctx.base_dir = base_dir  # data files (a coating's CSV) are read relative to the spec
     if not isinstance(raw, dict):
         raise ctx.err("spec", "must be a TOML document")
     ctx.check_keys(raw, TOP_KEYS, "")
@@ -865,7 +866,21 @@ def validate(raw: dict, path: str = "<spec>", base_dir=None, source_text=None) -
     _check_ranges(study)
     _check_retardance_at(ctx, study)
     _check_fringes(study)
+    _check_face_tables(study)
     return study
+
+
+def _check_face_tables(study: Study) -> None:
+    """A tabulated coating must cover the grid (the source's lines lie on it; a drifting line
+    reads the table's end values beyond it)."""
+    from .etalon import check_faces_cover
+
+    grid = study.wavelength.values()
+    for c in study.candidates:
+        if c.faces is None or not c.faces.tabulated:
+            continue
+        field = f"{study.file_name}: [[candidate]] {c.name!r}.faces.reflectance"
+        check_faces_cover(c.faces, float(grid[0]), float(grid[-1]), field, "[wavelength]")
 
 
 def _check_fringes(study: Study) -> None:

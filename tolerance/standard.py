@@ -25,7 +25,8 @@ def case_streams(case) -> tuple[tuple[str, int], ...]:
     """The (stream, layer) pairs that vary for ``case``, in the grid's tolerance order.
 
     A per-layer tolerance has one stream per layer (crossing from the second layer on); a tilt
-    brings its plane-of-incidence azimuth as one more stream.
+    brings its plane-of-incidence azimuth as one more stream; the reflectance one stream per
+    reflecting face of a candidate with faces.
     """
     return tuple(s for _, s in keyed_streams(case))
 
@@ -50,6 +51,14 @@ def keyed_streams(case) -> tuple[tuple[str, tuple[str, int]], ...]:
                 out += [(key, (base, j)) for j in layers[first:]]
             else:
                 out.append((key, (base, e)))
+            continue
+        if key == "reflectance":
+            # one stream per reflecting face; none for ideal faces (it does not act there)
+            if not case.candidate.face_model.ideal:
+                from .kernel_faces import face_count
+
+                n_faces = face_count(L, case.candidate.air_gap)
+                out += [(key, (key, f)) for f in range(n_faces)]
             continue
         if key in PER_LAYER:
             first = 1 if key == "crossing_deg" else 0

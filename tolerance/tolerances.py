@@ -94,6 +94,16 @@ TOLERANCES.add(
     max_reach=45.0,
     unit_kind=None,
 )
+TOLERANCES.add(
+    "reflectance",
+    "each reflecting face's power reflectance, absolute offset, independently per face "
+    "(candidates with faces only; clipped to [0, 0.999999])",
+    unit="1",
+    short="reflectance",
+    per_layer=False,
+    max_reach=1.0,
+    unit_kind=None,
+)
 #: The laser's centre drift is given in ``[source]`` but acts as a tolerance.
 DRIFT = "drift"
 #: Grid names, in the order the grid lists tolerances.
@@ -117,6 +127,14 @@ def check_bounds(key: str, dist: Distribution, field: str) -> Distribution:
                 field,
                 f"reaches a retardance error of more than {reach:g} wave",
                 "vendors quote small fractions of a wave, e.g. { tolerance = 0.003 }",
+            )
+        return dist
+    if key == "reflectance":
+        if dist.reach >= reach:
+            raise RetolError(
+                field,
+                "reaches a reflectance offset of 1 (100 %) or more",
+                "coating tolerances are fractions of a percent, e.g. { sigma = 0.001 }",
             )
         return dist
     if reach is not None and key != "tilt_deg" and dist.reach > reach:

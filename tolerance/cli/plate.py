@@ -231,7 +231,8 @@ def build_plate(
     "--faces",
     default="ideal",
     show_default=True,
-    help="Plate faces: ideal, uncoated, or a power reflectance per face, e.g. 0.0025.",
+    help="Plate faces: ideal, uncoated, a power reflectance per face (e.g. 0.0025), or a CSV "
+    "file of wavelength_nm,reflectance.",
 )
 @click.option("--air-gap", "air_gap", is_flag=True, help="Air gaps between the plates' layers.")
 @click.option("--mueller", is_flag=True, help="Also give the Mueller matrix at each wavelength.")
@@ -310,6 +311,9 @@ def plate(
             "each layer's retardance); see retol state for the output state",
             stacklevel=1,
         )
+    from ..etalon import check_faces_cover
+
+    check_faces_cover(face_model, float(np.min(wl)), float(np.max(wl)), "--faces", "the band")
     delta = plate_retardance(p, wl, temperature_c=temperature, extrapolate=extrapolate)
     eq, J = plate_equivalent(
         p, wl, face_model, air_gap, crossing, temperature_c=temperature, extrapolate=extrapolate

@@ -106,16 +106,18 @@ def summary_rows(ds):
 
 def _sensitivity(ds, c) -> dict:
     """Per tolerance: the yield without it and with it alone (null where it does not apply)."""
-    from ..decision import tolerance_applies
+    from ..decision import candidate_has_faces, tolerance_applies
 
     if "tolerance_name" not in ds.coords or "sensitivity_alone" not in ds.variables:
         return {}
     n_layers = len([m for m in ds["layer_material"].sel(candidate=c).values if str(m)])
     over = str(ds.attrs.get("goal_over", "band"))
+    index = [str(x) for x in ds["candidate"].values].index(str(c))
+    faced = candidate_has_faces(ds.attrs, index)
     out = {}
     for t in ds["tolerance_name"].values:
         t = str(t)
-        ok = tolerance_applies(t, n_layers, over)
+        ok = tolerance_applies(t, n_layers, over, faced)
         out[t] = {
             "applies": ok,
             "yield_without": float(ds["sensitivity_without"].sel(candidate=c, tolerance_name=t))
