@@ -391,3 +391,99 @@ def test_a_compound_plate_may_have_a_thin_second_plate():
     assert p.layers[1].thickness_um == pytest.approx(0.5, rel=1e-9)
     with pytest.raises(RetolError):
         design_plate("compound", "quartz", 0.25, 633.0, thick_plate_um=diff)
+
+
+# ----------------------------------------------------------------------------- second mutation run
+# (tests/README.md "Mutation testing": survivors of the run over retardance.py, the kernel sample
+# and montecarlo.py's statistics)
+
+
+def test_layer_retardance_refuses_a_wavelength_outside_the_formula_unless_asked():
+    """DEVELOPERS.md "Data sources"/README "Commands": a dispersion formula is used only inside
+    its validity range; outside it is a RetolError unless extrapolation is asked for, and then
+    the same formula is evaluated (with a warning): δ = 2π·d·|n_e − n_o|/λ (the definition of
+    retardance at normal incidence, Hecht ch. 8) with the extrapolated indices."""
+    from tolerance.dispersion import get_material, indices
+    from tolerance.retardance import layer_retardance
+
+    q = get_material("quartz")
+    wl = q.valid_max_nm + 50.0
+    with pytest.raises(RetolError):
+        layer_retardance(q, 20.0, wl)
+    with pytest.warns(UserWarning):
+        got = float(layer_retardance(q, 20.0, wl, extrapolate=True))
+    with pytest.warns(UserWarning):
+        n_o, n_e = indices(q, wl, extrapolate=True)
+    assert got == pytest.approx(2 * math.pi * 20e3 * abs(float(n_e - n_o)) / wl, rel=1e-13)
+
+
+@pytest.mark.parametrize("aoi", [10.0, 30.0])
+def test_layer_retardance_default_plane_of_incidence_contains_the_optic_axis(aoi):
+    """Closed form derived here from the index equations of a uniaxial plate with its axis in
+    the face [Veiras, Perez & Garea, Appl. Opt. 49, 2769 (2010)]: with the plane of incidence
+    through the optic axis (azimuth φ = 0, the documented default),
+    N_e = √(n_e² − (n_e²/n_o²)·sin²θ) = (n_e/n_o)·√(n_o² − sin²θ) and N_o = √(n_o² − sin²θ),
+    so δ = 2π·d·|n_e/n_o − 1|·√(n_o² − sin²θ)/λ."""
+    from tolerance.dispersion import get_material, indices
+    from tolerance.retardance import layer_retardance
+
+    q = get_material("quartz")
+    n_o, n_e = (float(x) for x in indices(q, 633.0))
+    s2 = math.sin(math.radians(aoi)) ** 2
+    expect = 2 * math.pi * 500e3 * abs(n_e / n_o - 1.0) * math.sqrt(n_o**2 - s2) / 633.0
+    assert float(layer_retardance(q, 500.0, 633.0, aoi_deg=aoi)) == pytest.approx(
+        expect, rel=1e-13
+    )
+
+
+def _laser_spec(goal: str, waves: float, axis: float, tol: str) -> str:
+    return (
+        'title = "t"\n[wavelength]\nstart = "633nm"\nstop = "633nm"\nstep = "1nm"\n'
+        '[source]\nshape = "laser"\ncenter = "633nm"\n[input]\nazimuth_deg = 0\n'
+        f"[goal]\n{goal}\n[[candidate]]\nname = 'p'\nconstruction = 'zero-order'\n"
+        f"material = 'quartz'\nwaves = {waves}\ndesign = '633nm'\naxis_deg = {axis}\n"
+        f"[tolerances]\n{tol}\n"
+    )
+
+
+def test_kernel_azimuth_error_for_a_goal_off_the_axes():
+    """[Hecht] a half-wave plate with its fast axis at θ turns linear 0° into linear 2θ.  A
+    half-wave plate clocked to 15° + e therefore gives linear 30° + 2e, and its azimuth error
+    from a linear goal at 30° is 2|e| for each drawn clocking e (a goal off the x and y axes,
+    so that both goal components s₁ = cos 60° and s₂ = sin 60° enter the kernel's formula)."""
+    from tolerance.montecarlo import Engine
+    from tolerance.spec import loads
+
+    goal = 'state = "linear"\nazimuth_deg = 30\nmetric = "azimuth_error_deg"\nmax = 1.0'
+    st = loads(_laser_spec(goal, 0.5, 15.0, "clocking_deg = { uniform = 2.0 }"), "t.toml")
+    eng = Engine(st, samples=512, seed=5)
+    case = eng.case(0)
+    worst, _ = eng.pass_values(case)
+    z, u = eng.draws("clocking_deg", 0, 0, 512)
+    e = case.tolerances["clocking_deg"].draw(z, u, center=0.0)
+    np.testing.assert_allclose(worst, 2 * np.abs(e), atol=1e-7)
+
+
+def test_kernel_ellipticity_error_of_a_clocked_quarter_wave_plate():
+    """[derived, Azzam & Bashara sec. 2.6] a quarter-wave plate with its axis at θ turns the
+    Poincaré sphere by 90° about the equator point 2θ: linear 0°, i.e. (1, 0, 0), goes to
+    cos 2θ·(cos 2θ, sin 2θ, 0) ± sin 2θ·(0, 0, 1), so sin 2χ = ±sin 2θ and χ = ±θ for
+    |θ| ≤ 45°.  Clocked to 30° + e it gives |χ| = 30° + e; against an elliptical goal of
+    ellipticity ±30° (the nominal hand) the error is |e| for each drawn clocking e."""
+    from tolerance.montecarlo import Engine
+    from tolerance.spec import loads
+
+    probe = loads(_laser_spec('metric = "fidelity"\nmin = 0.5', 0.25, 30.0, ""), "t.toml")
+    e0 = Engine(probe, samples=512, seed=5)
+    hand = 1.0 if e0.nominal(e0.case(0)).design_stokes[2] > 0 else -1.0
+    goal = (
+        f'state = "elliptical"\nellipticity_deg = {30.0 * hand}\n'
+        'metric = "ellipticity_error_deg"\nmax = 1.0'
+    )
+    st = loads(_laser_spec(goal, 0.25, 30.0, "clocking_deg = { uniform = 2.0 }"), "t.toml")
+    eng = Engine(st, samples=512, seed=5)
+    case = eng.case(0)
+    worst, _ = eng.pass_values(case)
+    z, u = eng.draws("clocking_deg", 0, 0, 512)
+    e = case.tolerances["clocking_deg"].draw(z, u, center=0.0)
+    np.testing.assert_allclose(worst, np.abs(e), atol=1e-7)
