@@ -431,9 +431,7 @@ def test_layer_retardance_default_plane_of_incidence_contains_the_optic_axis(aoi
     n_o, n_e = (float(x) for x in indices(q, 633.0))
     s2 = math.sin(math.radians(aoi)) ** 2
     expect = 2 * math.pi * 500e3 * abs(n_e / n_o - 1.0) * math.sqrt(n_o**2 - s2) / 633.0
-    assert float(layer_retardance(q, 500.0, 633.0, aoi_deg=aoi)) == pytest.approx(
-        expect, rel=1e-13
-    )
+    assert float(layer_retardance(q, 500.0, 633.0, aoi_deg=aoi)) == pytest.approx(expect, rel=1e-13)
 
 
 def _laser_spec(goal: str, waves: float, axis: float, tol: str) -> str:
@@ -487,3 +485,148 @@ def test_kernel_ellipticity_error_of_a_clocked_quarter_wave_plate():
     z, u = eng.draws("clocking_deg", 0, 0, 512)
     e = case.tolerances["clocking_deg"].draw(z, u, center=0.0)
     np.testing.assert_allclose(worst, np.abs(e), atol=1e-7)
+
+
+def test_check_range_refuses_by_default():
+    """README "Materials": a wavelength outside a formula's validity range is refused unless
+    extrapolation is asked for (then it warns)."""
+    from tolerance.dispersion import check_range, get_material
+    from tolerance.errors import OutOfRangeError
+
+    q = get_material("quartz")
+    with pytest.raises(OutOfRangeError) as info:
+        check_range(q, [q.valid_min_nm, q.valid_max_nm + 1.0])
+    assert info.value.field == "wavelength"
+    with pytest.warns(UserWarning):
+        check_range(q, q.valid_max_nm + 1.0, extrapolate=True)
+    check_range(q, [q.valid_min_nm, q.valid_max_nm])  # the ends are inside
+
+
+def test_an_extrapolated_wavelength_at_a_resonance_is_a_one_line_error():
+    """Ghosh's form n² = 1 + A + B·λ²/(λ² − C) + D·λ²/(λ² − E) [Ghosh 1999] has a pole at
+    λ² = C; just below it (quartz: C ≈ 0.01006 µm², λ = 100 nm gives λ² − C ≈ −6e-5 µm² and
+    B·λ²/(λ² − C) ≈ −180) n² < 0: no real index.  Even with extrapolation asked for, that is a
+    RetolError naming the wavelength, the resonance and the fix, not a NaN."""
+    from tolerance.dispersion import get_material, indices
+    from tolerance.errors import OutOfRangeError
+
+    q = get_material("quartz")
+    with pytest.warns(UserWarning), pytest.raises(OutOfRangeError) as info:
+        indices(q, np.array([[633.0, 100.0]]), extrapolate=True)
+    e = info.value
+    assert e.field == "wavelength"
+    assert "100 nm" in e.problem and "resonance" in e.problem
+    assert e.fix and "\n" not in str(e)
+
+
+@pytest.mark.parametrize(
+    "call, field, word",
+    [
+        (
+            lambda: __import__("tolerance.polarization").polarization.elliptical_goal_vector(
+                azimuth_deg=float("nan"), ellipticity_deg=10.0
+            ),
+            "azimuth_deg",
+            "azimuth",
+        ),
+        (
+            lambda: __import__("tolerance.polarization").polarization.input_stokes(
+                ellipticity_deg=float("inf")
+            ),
+            "ellipticity_deg",
+            "45",
+        ),
+    ],
+    ids=["goal-azimuth", "input-ellipticity"],
+)
+def test_nonfinite_state_angles_say_what_to_give(call, field, word):
+    """[DEVELOPERS] a NaN or infinite angle is a one-line RetolError naming the key and a fix
+    that says what to give (the azimuth of the major axis; an angle in [−45, 45])."""
+    with pytest.raises(RetolError) as info:
+        call()
+    e = info.value
+    assert e.field == field
+    assert word in e.fix
+
+
+SELLMEIER_TOML = """
+name = "mymgf2"
+kind = "positive uniaxial"
+valid_min_um = 0.2
+valid_max_um = 7.0
+source = "a test file"
+[formula]
+type = "sellmeier"
+[formula.ordinary]
+A = [0.48755108, 0.39875031, 2.3120353]
+lambda = [0.04338408, 0.09461442, 23.793604]
+[formula.extraordinary]
+A = [0.41344023, 0.50497499, 2.4904862]
+lambda = [0.03684262, 0.09076162, 23.771995]
+"""
+
+GAP = (
+    "a material-file error without a fix (dispersion._require, _coeff_block): "
+    "DEVELOPERS.md asks for field, problem and fix"
+)
+
+
+@pytest.mark.parametrize(
+    "name, body",
+    [
+        ("short.csv", "wavelength_nm,n_o,n_e\n500,1.5,1.51\n"),
+        ("nan.toml", SELLMEIER_TOML.replace("0.48755108", "nan")),
+        pytest.param(
+            "nan.toml",
+            QUARTZ_TOML.replace("A = 0.28604141", "A = nan"),
+            marks=pytest.mark.xfail(strict=True, reason=GAP),
+        ),
+        pytest.param(
+            "type.toml",
+            QUARTZ_TOML.replace("A = 0.28604141", 'A = "x"'),
+            marks=pytest.mark.xfail(strict=True, reason=GAP),
+        ),
+        pytest.param(
+            "len.toml",
+            SELLMEIER_TOML.replace("lambda = [0.04338408, ", "lambda = ["),
+            marks=pytest.mark.xfail(strict=True, reason=GAP),
+        ),
+    ],
+    ids=["csv-one-row", "sellmeier-nan", "ghosh-nan", "ghosh-text", "sellmeier-lengths"],
+)
+def test_material_file_errors_state_the_problem_and_the_fix(tmp_path, name, body):
+    """[DEVELOPERS] RetolError(field, problem, fix): a one-row table, a NaN coefficient, a
+    coefficient of the wrong type, lists of unequal length each say what is wrong and what to
+    do.  The strict xfails are real gaps found by the mutation run (tests/README.md)."""
+    from tolerance.dispersion import load_material_file
+
+    p = tmp_path / name
+    p.write_text(body, encoding="utf-8")
+    with pytest.raises(RetolError) as info:
+        load_material_file(p)
+    e = info.value
+    assert isinstance(e.problem, str) and e.problem.strip()
+    assert isinstance(e.fix, str) and e.fix.strip()
+
+
+def test_laser_drift_does_not_apply_to_a_band_goal():
+    """README "What the results mean": the crossing between plates needs two layers; a laser's
+    centre drift moves the line within the band, which a goal judged at every wavelength of the
+    band does not see, so it is "not applicable" there and applies to a spectrum goal."""
+    from tolerance.decision import tolerance_applies
+
+    assert not tolerance_applies("drift", 1, "band")
+    assert tolerance_applies("drift", 1, "spectrum")
+    assert not tolerance_applies("crossing_deg", 1, "band")
+    assert tolerance_applies("crossing_deg", 2, "band")
+    assert tolerance_applies("thickness_um", 1, "band")
+
+
+def test_kernel_azimuth_range_is_minus_90_exclusive_to_90():
+    """The kernel's reported major-axis azimuth lies in (−90°, 90°] (its docstring; common
+    practice): a vertical linear state whose s₂ is −0 (atan2(−0, −1) = −π, i.e. −90°) is 90°."""
+    from tolerance.kernel import _azimuth
+
+    assert _azimuth(-1.0, -0.0) == 90.0
+    assert _azimuth(-1.0, 0.0) == 90.0
+    assert _azimuth(1.0, 0.0) == 0.0

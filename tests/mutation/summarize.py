@@ -12,7 +12,7 @@ statement is one line):
 
 * ``message``: the change is inside a ``raise`` statement, a ``RetolError(...)`` or a
   ``warnings.warn(...)`` call, or changes only string constants (error wording, field labels,
-  detail and reason texts);
+  detail and reason texts) on a line that neither compares them nor uses them as keys;
 * ``loader``: any other change in the material-file and CSV loaders of ``dispersion.py``;
 * ``physics``: everything else (the physics, the statistics, the decision).
 """
@@ -85,7 +85,9 @@ def classify(name: str, funcs: dict) -> tuple[str, str]:
     fn = base.split("ǁ")[-1].removeprefix("x_")
     if any(re.search(r"\braise\b|RetolError\(|warnings\.warn\(", ln) for ln in changed):
         return "message", diff
-    if _strip(orig) == _strip(mut):
+    # a string that is compared or used as a key is logic, not wording
+    logic = any(re.search(r"==|!=|\bin\b|\[['\"]", ln) for ln in changed)
+    if _strip(orig) == _strip(mut) and not logic:
         return "message", diff
     if fn in LOADERS or any(fn.startswith(x) for x in ()):
         return "loader", diff
