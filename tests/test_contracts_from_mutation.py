@@ -630,3 +630,27 @@ def test_kernel_azimuth_range_is_minus_90_exclusive_to_90():
     assert _azimuth(-1.0, -0.0) == 90.0
     assert _azimuth(-1.0, 0.0) == 90.0
     assert _azimuth(1.0, 0.0) == 0.0
+
+
+def test_kernel_histogram_counts_values_beyond_the_range_in_the_end_bins():
+    """DEVELOPERS.md "Bounded memory": histogram ranges are fixed by a pilot, so a later sample
+    may fall outside them; it is counted in the first or last bin (its exact value is kept in
+    the minimum and maximum, to which quantiles are clamped).  Bin j = ⌊(x − lo)·B/(hi − lo)⌋
+    (common practice), here with lo = 0, hi = 1, B = 8: x = −5 → 0, 0.5 → 4, 5 → 7, 1.0 → 7."""
+    from tolerance.kernel import _M, _RW, N_VAR, N_WORK, _fold_sample
+
+    B, W = 8, 1
+    work = np.zeros((N_WORK, W))
+    rows = [_RW + v if v < 3 else _M for v in range(N_VAR)]
+    values = [-5.0, 0.5, 5.0, 1.0][:N_VAR]
+    for r, x in zip(rows, values, strict=True):
+        work[r, 0] = x
+    vmin = np.full((N_VAR, W), np.inf)
+    vmax = np.full((N_VAR, W), -np.inf)
+    jrow = np.zeros((N_VAR, W), dtype=np.uint16)
+    bs0, bs1 = np.zeros(W), np.zeros(W)
+    lo, inv_width = np.zeros((N_VAR, W)), np.full((N_VAR, W), float(B))
+    _fold_sample(work, np.zeros(W), bs0, bs1, vmin, vmax, lo, inv_width, jrow, B)
+    assert list(jrow[:, 0]) == [0, 4, 7, 7][:N_VAR]
+    assert list(vmin[:, 0]) == values and list(vmax[:, 0]) == values
+    assert bs0[0] == values[0] and bs1[0] == values[0] ** 2
