@@ -654,3 +654,41 @@ def test_kernel_histogram_counts_values_beyond_the_range_in_the_end_bins():
     assert list(jrow[:, 0]) == [0, 4, 7, 7][:N_VAR]
     assert list(vmin[:, 0]) == values and list(vmax[:, 0]) == values
     assert bs0[0] == values[0] and bs1[0] == values[0] ** 2
+
+
+def test_kernel_angle_metrics_equal_the_polarization_functions():
+    """The kernel's angle metrics follow :func:`tolerance.polarization.sphere_angle_deg`,
+    ``azimuth_error_deg`` and ``ellipticity_error_deg`` (absolute values) for the direction of
+    the polarized part (kernel docstring); those are held to closed forms and sympy in
+    tests/test_states.py.  Random partially polarized states (|s| in [0.2, 1]) against random
+    goals, linear goals at random azimuths and the circular goal; and the conventions for
+    unpolarized light (no direction: 90° on the sphere, no azimuth to offer: 90°, χ = 0)."""
+    from tolerance.kernel import (
+        METRIC_AZIMUTH_ERROR,
+        METRIC_ELLIPTICITY_ERROR,
+        METRIC_SPHERE,
+        _angle_metric,
+    )
+    from tolerance.polarization import azimuth_error_deg, ellipticity_error_deg, sphere_angle_deg
+
+    rng = np.random.default_rng(18)
+    s = rng.normal(size=(200, 3))
+    s *= rng.uniform(0.2, 1.0, size=(200, 1)) / np.linalg.norm(s, axis=1, keepdims=True)
+    g = rng.normal(size=(200, 3))
+    g[:60, 2] = 0.0  # linear goals
+    g /= np.linalg.norm(g, axis=1, keepdims=True)
+    g[60:70] = [0.0, 0.0, 1.0]  # circular
+    refs = {
+        METRIC_SPHERE: sphere_angle_deg(s, g),
+        METRIC_AZIMUTH_ERROR: np.abs(azimuth_error_deg(s, g)),
+        METRIC_ELLIPTICITY_ERROR: np.abs(ellipticity_error_deg(s, g)),
+    }
+    for kind, ref in refs.items():
+        got = np.array([_angle_metric(*a, *b, kind) for a, b in zip(s, g, strict=True)])
+        np.testing.assert_allclose(got, ref, rtol=0, atol=1e-9, err_msg=str(kind))
+    gl = np.array([0.5, math.sqrt(3) / 2, 0.0])  # linear at 30°
+    assert _angle_metric(0.0, 0.0, 0.0, *gl, METRIC_SPHERE) == 90.0
+    assert _angle_metric(0.0, 0.0, 0.0, *gl, METRIC_AZIMUTH_ERROR) == 90.0
+    assert _angle_metric(0.0, 0.0, 0.5, *gl, METRIC_AZIMUTH_ERROR) == 90.0
+    assert _angle_metric(0.3, 0.1, 0.2, 0.0, 0.0, 1.0, METRIC_AZIMUTH_ERROR) == 0.0
+    assert _angle_metric(0.0, 0.0, 0.0, *gl, METRIC_ELLIPTICITY_ERROR) == 0.0
