@@ -117,6 +117,7 @@ BAD_PLATES = [
     ),
     ("spiral", "quartz", {}, "construction"),
     ("zero-order", None, {}, "material"),
+    ("zero-order", "quartz", {"axis_deg": float("nan")}, "axis_deg"),
 ]
 
 
@@ -692,3 +693,14 @@ def test_kernel_angle_metrics_equal_the_polarization_functions():
     assert _angle_metric(0.0, 0.0, 0.5, *gl, METRIC_AZIMUTH_ERROR) == 90.0
     assert _angle_metric(0.3, 0.1, 0.2, 0.0, 0.0, 1.0, METRIC_AZIMUTH_ERROR) == 0.0
     assert _angle_metric(0.0, 0.0, 0.0, *gl, METRIC_ELLIPTICITY_ERROR) == 0.0
+
+
+def test_an_unknown_design_keyword_lists_every_known_one():
+    """[DEVELOPERS] the fix of an unknown keyword names the keywords that do apply, the common
+    ones (material, waves, design_nm, axis_deg, name) and the construction's own."""
+    with pytest.raises(RetolError) as info:
+        design_plate("multi-order", "quartz", 0.25, 633.0, order=3, axis=45.0)
+    e = info.value
+    assert e.field == "axis"
+    for k in ("material", "waves", "design_nm", "axis_deg", "name", "order"):
+        assert k in e.fix

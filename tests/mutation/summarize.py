@@ -73,6 +73,13 @@ def _strip(fn) -> str:
     return ast.dump(stripped.args) + "\n".join(ast.dump(st) for st in stripped.body)
 
 
+def _is_logic(line: str) -> bool:
+    """A comparison, a membership test or a subscript by a string constant (strings blanked)."""
+    code = re.sub(r"'[^']*'|\"[^\"]*\"", "S", line.lstrip("+- "))
+    member = re.search(r"\bin\b", code) and not code.startswith("for ")
+    return bool(re.search(r"==|!=|\[S\]", code) or member)
+
+
 def classify(name: str, funcs: dict) -> tuple[str, str]:
     """(category, one-line diff) of mutant ``name`` (e.g. x_wilson__mutmut_3)."""
     base = name.rsplit("__mutmut_", 1)[0]
@@ -86,7 +93,7 @@ def classify(name: str, funcs: dict) -> tuple[str, str]:
     if any(re.search(r"\braise\b|RetolError\(|warnings\.warn\(", ln) for ln in changed):
         return "message", diff
     # a string that is compared or used as a key is logic, not wording
-    logic = any(re.search(r"==|!=|\bin\b|\[['\"]", ln) for ln in changed)
+    logic = any(_is_logic(ln) for ln in changed)
     if _strip(orig) == _strip(mut) and not logic:
         return "message", diff
     if fn in LOADERS or any(fn.startswith(x) for x in ()):
