@@ -704,3 +704,36 @@ def test_an_unknown_design_keyword_lists_every_known_one():
     assert e.field == "axis"
     for k in ("material", "waves", "design_nm", "axis_deg", "name", "order"):
         assert k in e.fix
+
+
+def test_wilson_of_no_samples_is_undefined():
+    """Wilson (1927): the interval of k/n needs n > 0; with no samples there is no estimate,
+    reported as NaN (never a number that looks like a result)."""
+    from tolerance.montecarlo import wilson
+
+    lo, hi = wilson(0, 0, 0.95)
+    assert math.isnan(lo) and math.isnan(hi)
+
+
+def test_dominant_tolerance_rules():
+    """README "What the results mean": the dominant tolerance is the one whose removal raises the
+    yield most; when no removal raises it (a gain of exactly 0 does not), the one that alone does
+    the most harm (lowest yield alone, below the nominal pass); when none does either, the one
+    whose removal raises the 5th-percentile goal metric most, and "none" when no removal raises
+    that (0 does not)."""
+    from tolerance.montecarlo import dominant_tolerance, margin_dominant
+
+    alone = {"a": 0.5, "b": 0.1}
+    # removal of a: no change; removal of b: lower (sampling noise): neither raises the yield
+    assert dominant_tolerance(alone, {"a": 0.6, "b": 0.5}, 0.6, 1.0) == "b"
+    # both harm alone; the ranking is by the yield alone, not by name
+    assert dominant_tolerance({"z": 0.1, "c": 0.5}, {"z": 0.6, "c": 0.6}, 0.6, 1.0) == "z"
+    # a removal that raises the yield wins
+    assert dominant_tolerance(alone, {"a": 0.7, "b": 0.65}, 0.6, 1.0) == "a"
+    # every yield 1: the margin decides
+    one = {"a": 1.0, "b": 1.0}
+    assert dominant_tolerance(one, one, 1.0, 1.0, {"a": 0.0, "b": 0.2}) == "b"
+    assert margin_dominant({"a": 0.0, "b": -0.1}) == "none"
+    assert margin_dominant({"a": 0.0}) == "none"
+    assert margin_dominant({}) == "none"
+    assert margin_dominant({"a": 0.3, "b": 0.2}) == "a"

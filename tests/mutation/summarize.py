@@ -6,6 +6,14 @@ mutated sources that mutmut writes there)::
     python tests/mutation/summarize.py                      # counts per module and category
     python tests/mutation/summarize.py --survivors          # plus each survivor's one-line diff
     python tests/mutation/summarize.py --names FILE         # only the mutants named in FILE
+    python tests/mutation/summarize.py --dispositions tests/mutation/dispositions.tsv
+
+``dispositions.tsv`` records, for mutants mutmut left alive, what was done (one a line, tab
+separated: name, disposition, detail): ``existing`` (killed by a test outside mutmut's test
+selection, verified with run_mutant.sh), ``new`` (killed by a test added for it, verified),
+``equivalent`` (argued in the detail), ``open`` (not killed, reason in the detail).  With it the
+counts "after" are: killed = mutmut's kills + existing + new, over the checked mutants less the
+equivalent ones.
 
 Categories, from each mutant's diff (statements normalised by ``ast.unparse``, so a multi-line
 statement is one line):
@@ -139,6 +147,7 @@ def main(argv=None) -> int:
     ap.add_argument("--names", help="file with one mutant name a line")
     ap.add_argument("--json", help="write every row to this file")
     ap.add_argument("--all", action="store_true", help="classify the unchecked mutants too")
+    ap.add_argument("--dispositions", help="tab-separated name, disposition, detail")
     args = ap.parse_args(argv)
     names = set(Path(args.names).read_text().split()) if args.names else None
     rows = load(names, args.all)
@@ -156,6 +165,32 @@ def main(argv=None) -> int:
         lo, hi = wilson(k, n)
         score = f"{100 * k / max(n, 1):.1f} %"
         print(f"{category}: {k}/{n} killed ({score}, Wilson 95 % {100 * lo:.1f}–{100 * hi:.1f} %)")
+    if args.dispositions:
+        disp = {}
+        for ln in Path(args.dispositions).read_text().splitlines():
+            if ln.strip() and not ln.startswith("#"):
+                name, what, *_ = ln.split("\t")
+                disp[name] = what
+        print("after the dispositions:")
+        for category in ("physics", "message", "loader"):
+            rs = [r for r in rows if r["category"] == category and r["status"] != "unchecked"]
+            eq = sum(1 for r in rs if disp.get(r["name"]) == "equivalent")
+            k = sum(
+                1
+                for r in rs
+                if r["status"] in ("killed", "timeout")
+                or disp.get(r["name"]) in ("existing", "new")
+            )
+            n = len(rs) - eq
+            lo, hi = wilson(k, n)
+            undecided = sum(
+                1 for r in rs if r["status"] not in ("killed", "timeout") and r["name"] not in disp
+            )
+            print(
+                f"  {category}: {k}/{n} non-equivalent killed ({100 * k / max(n, 1):.1f} %, "
+                f"Wilson 95 % {100 * lo:.1f}–{100 * hi:.1f} %), {eq} equivalent, "
+                f"{undecided} without a disposition"
+            )
     if args.survivors:
         for r in rows:
             if r["status"] in ("survived", "no tests", "suspicious"):
