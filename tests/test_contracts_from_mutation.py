@@ -737,3 +737,16 @@ def test_dominant_tolerance_rules():
     assert margin_dominant({"a": 0.0}) == "none"
     assert margin_dominant({}) == "none"
     assert margin_dominant({"a": 0.3, "b": 0.2}) == "a"
+
+
+def test_a_stokes_goal_that_is_not_a_pure_state_says_so():
+    """[DEVELOPERS] RetolError(field, problem, fix): a goal (0.5, 0, 0) has length 0.5, not 1
+    (a goal is a pure state, Azzam & Bashara sec. 2.6); the problem gives the length."""
+    from tolerance.polarization import stokes_goal_vector
+
+    with pytest.raises(RetolError) as info:
+        stokes_goal_vector([0.5, 0.0, 0.0])
+    e = info.value
+    assert e.field == "stokes"
+    assert "0.5" in e.problem
+    assert e.fix
