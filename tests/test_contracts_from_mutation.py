@@ -118,6 +118,13 @@ BAD_PLATES = [
     ("spiral", "quartz", {}, "construction"),
     ("zero-order", None, {}, "material"),
     ("zero-order", "quartz", {"axis_deg": float("nan")}, "axis_deg"),
+    ("achromatic", "quartz", {"partner": "mgf2", "waves": 0.0}, "waves"),
+    (
+        "stack",
+        None,
+        {"layers": [{"material": "quartz", "thickness_um": 3.0, "axis_deg": float("nan")}]},
+        "layers[0].axis_deg",
+    ),
 ]
 
 
@@ -537,8 +544,15 @@ def test_an_extrapolated_wavelength_at_a_resonance_is_a_one_line_error():
             "ellipticity_deg",
             "45",
         ),
+        (
+            lambda: __import__("tolerance.polarization").polarization.input_stokes(
+                dop=float("nan")
+            ),
+            "dop",
+            "[0, 1]",
+        ),
     ],
-    ids=["goal-azimuth", "input-ellipticity"],
+    ids=["goal-azimuth", "input-ellipticity", "input-dop"],
 )
 def test_nonfinite_state_angles_say_what_to_give(call, field, word):
     """[DEVELOPERS] a NaN or infinite angle is a one-line RetolError naming the key and a fix
@@ -750,3 +764,42 @@ def test_a_stokes_goal_that_is_not_a_pure_state_says_so():
     assert e.field == "stokes"
     assert "0.5" in e.problem
     assert e.fix
+
+
+def test_the_ellipse_does_not_depend_on_the_intensity():
+    """The polarization ellipse is a property of the normalised state: S and 1e-9·S (a weak
+    beam) have the same azimuth, ellipticity and degree of polarization [Azzam & Bashara,
+    sec. 1.3]; no light at all (S = 0) has no polarization, DOP 0 (common practice)."""
+    from tolerance.polarization import ellipse
+
+    chi, psi, p = math.radians(10.0), math.radians(30.0), 0.5
+    S = np.array(
+        [
+            1.0,
+            p * math.cos(2 * chi) * math.cos(2 * psi),
+            p * math.cos(2 * chi) * math.sin(2 * psi),
+            p * math.sin(2 * chi),
+        ]
+    )
+    for scale in (1.0, 1e-9):
+        e = ellipse(S * scale)
+        assert float(e["azimuth_deg"]) == pytest.approx(30.0, abs=1e-9)
+        assert float(e["ellipticity_angle_deg"]) == pytest.approx(10.0, abs=1e-9)
+        assert float(e["dop"]) == pytest.approx(0.5, rel=1e-12)
+    assert float(ellipse(np.zeros(4))["dop"]) == 0.0
+
+
+def test_an_achromat_says_where_it_is_matched():
+    """README "Constructions": an achromatic pair is matched at two wavelengths (or in value and
+    slope at one); the plate's details say which, with the wavelengths."""
+    p = design_plate("achromatic", "quartz", 0.25, 550.0, partner="mgf2", match_nm=[450.0, 650.0])
+    assert "450" in p.details["achromat"] and "650" in p.details["achromat"]
+
+
+def test_a_material_file_keeps_its_long_name(tmp_path):
+    """README "Materials": a file's ``long_name`` is the name shown in reports."""
+    from tolerance.dispersion import load_material_file
+
+    p = tmp_path / "myquartz.toml"
+    p.write_text('long_name = "Crystal quartz, lot 7"\n' + QUARTZ_TOML, encoding="utf-8")
+    assert load_material_file(p).long_name == "Crystal quartz, lot 7"
