@@ -803,3 +803,15 @@ def test_a_material_file_keeps_its_long_name(tmp_path):
     p = tmp_path / "myquartz.toml"
     p.write_text('long_name = "Crystal quartz, lot 7"\n' + QUARTZ_TOML, encoding="utf-8")
     assert load_material_file(p).long_name == "Crystal quartz, lot 7"
+
+
+def test_separation_warning_sample_count_is_the_normal_approximation():
+    """Two intervals of half-width z·√(p(1 − p)/n) just touch when n = (2z)²·p(1 − p)/Δ²
+    (normal approximation, common practice), rounded up to a power of ten.  Yields 0.52 and 0.48:
+    p = 0.5, Δ = 0.04, z = 1.95996 (95 %): n = 15.366·0.25/0.0016 ≈ 2401 → 10,000."""
+    from tolerance.decision import separation_warning
+
+    z = 1.959963984540054
+    assert (2 * z) ** 2 * 0.25 / 0.04**2 == pytest.approx(2400.9, abs=0.1)
+    w = separation_warning(["a", "b"], [0.52, 0.48], [0.49, 0.45], [0.55, 0.51], [1, 2], 500)
+    assert "About 10,000 samples" in w

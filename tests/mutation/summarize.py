@@ -85,7 +85,7 @@ def _is_logic(line: str) -> bool:
     """A comparison, a membership test or a subscript by a string constant (strings blanked)."""
     code = re.sub(r"'[^']*'|\"[^\"]*\"", "S", line.lstrip("+- "))
     member = re.search(r"\bin\b", code) and not code.startswith("for ")
-    return bool(re.search(r"==|!=|\[S\]", code) or member)
+    return bool(re.search(r"==|!=|\[S\]|\.get\(S", code) or member)
 
 
 def classify(name: str, funcs: dict) -> tuple[str, str]:
