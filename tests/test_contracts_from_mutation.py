@@ -815,3 +815,81 @@ def test_separation_warning_sample_count_is_the_normal_approximation():
     assert (2 * z) ** 2 * 0.25 / 0.04**2 == pytest.approx(2400.9, abs=0.1)
     w = separation_warning(["a", "b"], [0.52, 0.48], [0.49, 0.45], [0.55, 0.51], [1, 2], 500)
     assert "About 10,000 samples" in w
+
+
+@pytest.mark.parametrize("aoi", [0.0, 12.0])
+def test_kernel_grid_path_beyond_the_polynomial_range_equals_the_line_path(aoi):
+    """A layer whose half-retardance reaches :data:`tolerance.kernel.SINCOS_LIMIT` (1e6 rad,
+    here a 25 m quartz-like layer: an absurd plate, but a possible input) takes the grid path's
+    scalar branch with the C library's sine and cosine.  Its output must be the one of the line
+    path (``_propagate``, the same Jones product written once more, held sample by sample to the
+    independent reference in tests/test_differential.py), for a second, thin layer at another
+    angle after it, an elliptical input and a tilted beam; to 1e-9 (rounding of a 2e6 rad
+    phase is ~1e-10 rad)."""
+    from tolerance.kernel import _RET, _XI, _XR, _YR, N_WORK, SINCOS_LIMIT, _propagate, _spectrum
+
+    k0 = np.array([2 * math.pi / 0.6328, 2 * math.pi / 0.5])  # [1/µm]
+    no2 = np.array([[1.5426**2, 1.5462**2], [1.5426**2, 1.5462**2]])  # (L, W)
+    ne2 = np.array([[1.5517**2, 1.5554**2], [1.5517**2, 1.5554**2]])
+    rat = ne2 / no2
+    dn = np.sqrt(ne2) - np.sqrt(no2)
+    thick = np.array([2.5e7, 20.0])  # [µm]
+    assert 0.5 * k0[0] * thick[0] * dn[0, 0] > SINCOS_LIMIT
+    tfac = np.array([1.0, 1.0])
+    th = np.radians([10.0, 55.0])
+    c2, s2 = np.cos(2 * th), np.sin(2 * th)
+    phi = np.radians([30.0, -20.0])  # plane of incidence from each layer's axis
+    cphi2, sphi2 = np.cos(phi) ** 2, np.sin(phi) ** 2
+    sin2i = math.sin(math.radians(aoi)) ** 2
+    proj = np.array([1.0, 0.5])
+    ca, sa, cai, sai = 0.8, 0.5, 0.1, -0.3
+    norm = math.sqrt(ca * ca + sa * sa + cai * cai + sai * sai)
+    ca, sa, cai, sai = ca / norm, sa / norm, cai / norm, sai / norm
+    work = np.zeros((N_WORK, 2))
+    _spectrum(
+        k0,
+        no2,
+        ne2,
+        rat,
+        dn,
+        thick,
+        tfac,
+        c2,
+        s2,
+        sin2i,
+        cphi2,
+        sphi2,
+        ca,
+        sa,
+        proj,
+        work,
+        cai,
+        sai,
+        1.0,
+    )
+    for w in range(2):
+        st1, st2, st3, ret = _propagate(
+            k0[w],
+            no2[:, w].copy(),
+            ne2[:, w].copy(),
+            rat[:, w].copy(),
+            dn[:, w].copy(),
+            thick,
+            tfac,
+            c2,
+            s2,
+            sin2i,
+            cphi2,
+            sphi2,
+            ca,
+            sa,
+            proj,
+            2,
+            cai,
+            sai,
+            1.0,
+        )
+        np.testing.assert_allclose(
+            [work[_XR, w], work[_XI, w], work[_YR, w]], [st1, st2, st3], rtol=0, atol=1e-9
+        )
+        assert work[_RET, w] == pytest.approx(ret, rel=1e-14)
