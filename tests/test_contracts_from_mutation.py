@@ -119,6 +119,7 @@ BAD_PLATES = [
     ("zero-order", None, {}, "material"),
     ("zero-order", "quartz", {"axis_deg": float("nan")}, "axis_deg"),
     ("achromatic", "quartz", {"partner": "mgf2", "waves": 0.0}, "waves"),
+    ("compound", "quartz", {"thick_plate_um": 1000.0, "waves": 0.0}, "waves"),
     (
         "stack",
         None,
@@ -893,3 +894,34 @@ def test_kernel_grid_path_beyond_the_polynomial_range_equals_the_line_path(aoi):
             [work[_XR, w], work[_XI, w], work[_YR, w]], [st1, st2, st3], rtol=0, atol=1e-9
         )
         assert work[_RET, w] == pytest.approx(ret, rel=1e-14)
+
+
+def test_material_methods_are_the_module_functions():
+    """``Material.indices`` and ``Material.birefringence`` are the module functions
+    (DEVELOPERS.md: ``Material`` with ``indices``, ``birefringence``)."""
+    from tolerance.dispersion import birefringence, get_material, indices
+
+    q = get_material("quartz")
+    wl = np.array([450.0, 633.0])
+    np.testing.assert_array_equal(q.indices(wl), indices(q, wl))
+    np.testing.assert_array_equal(q.birefringence(wl), birefringence(q, wl))
+
+
+def test_unequal_sellmeier_lists_name_lambda(tmp_path):
+    """[DEVELOPERS] a Sellmeier block with fewer resonance wavelengths than strengths is an
+    error naming the block's ``lambda``."""
+    from tolerance.dispersion import load_material_file
+
+    p = tmp_path / "len.toml"
+    p.write_text(SELLMEIER_TOML.replace("lambda = [0.04338408, ", "lambda = ["), encoding="utf-8")
+    with pytest.raises(RetolError) as info:
+        load_material_file(p)
+    assert info.value.field.endswith("lambda")
+
+
+def test_a_design_wavelength_outside_the_material_names_design():
+    """README "Materials": a design wavelength outside the formula's range is refused, naming
+    the ``design`` key (the spec's name for it)."""
+    with pytest.raises(RetolError) as info:
+        design_plate("zero-order", "quartz", 0.25, 5000.0)
+    assert info.value.field == "design"
