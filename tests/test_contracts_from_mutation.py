@@ -925,3 +925,22 @@ def test_a_design_wavelength_outside_the_material_names_design():
     with pytest.raises(RetolError) as info:
         design_plate("zero-order", "quartz", 0.25, 5000.0)
     assert info.value.field == "design"
+
+
+def test_sobol_layout_gives_every_stream_and_layer_its_own_dimension():
+    """The documented layout (sampler.sobol_layout): layer 0 of every stream first, in the given
+    order, then layer 1 of the per-layer streams, and so on; no two (stream, layer) pairs share a
+    Sobol' dimension (a shared one would draw two tolerances from the same coordinate)."""
+    from tolerance.sampler import sobol_layout
+
+    out = sobol_layout(["b", "a", "c"], {"b", "c"}, layers=3)
+    assert out == {
+        ("b", 0): 0,
+        ("a", 0): 1,
+        ("c", 0): 2,
+        ("b", 1): 3,
+        ("c", 1): 4,
+        ("b", 2): 5,
+        ("c", 2): 6,
+    }
+    assert len(set(out.values())) == len(out)
