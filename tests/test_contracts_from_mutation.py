@@ -944,3 +944,16 @@ def test_sobol_layout_gives_every_stream_and_layer_its_own_dimension():
         ("c", 2): 6,
     }
     assert len(set(out.values())) == len(out)
+
+
+def test_percent_digits_are_the_fewest_that_show_the_bounds():
+    """README "What the results mean": a yield is printed with the fewest decimals (at least
+    one) at which a bound that differs from the estimate also prints differently (common
+    practice for intervals): 0 of 10,000 passing with Wilson upper bound 0.0384 % needs 2
+    (0.00 % ≤ 0.04 %); 50 % in [49 %, 51 %] needs 1; 90 % in [89.996 %, 90.004 %] needs 3."""
+    from tolerance.decision import pct_digits
+
+    assert pct_digits(0.0, 0.0, 0.000384) == 2
+    assert pct_digits(0.5, 0.49, 0.51) == 1
+    assert pct_digits(0.9, 0.89996, 0.90004) == 3
+    assert pct_digits(1.0, 1.0, 1.0) == 1
