@@ -957,3 +957,44 @@ def test_percent_digits_are_the_fewest_that_show_the_bounds():
     assert pct_digits(0.5, 0.49, 0.51) == 1
     assert pct_digits(0.9, 0.89996, 0.90004) == 3
     assert pct_digits(1.0, 1.0, 1.0) == 1
+
+
+def test_wilson_ends_are_exact_and_one_pass_is_not_zero():
+    """Wilson (1927): with k = 0 the lower limit is exactly 0 and with k = n the upper limit
+    exactly 1 (the closed form gives 0 and 1; rounding must not leave 1e-17 or 1 − 1e-16, which
+    would print as a bound the data never showed), for every n; with k = 1 the lower limit is the
+    closed form (p + z²/2n − z·√(p(1−p)/n + z²/4n²))/(1 + z²/n) > 0, here for 1 of 100."""
+    from tolerance.montecarlo import wilson
+
+    for n in range(1, 200):
+        assert wilson(0, n, 0.95)[0] == 0.0
+        assert wilson(n, n, 0.95)[1] == 1.0
+    z, n, p = 1.959963984540054, 100, 0.01
+    lo = (p + z * z / (2 * n) - z * math.sqrt(p * (1 - p) / n + z * z / (4 * n * n))) / (
+        1 + z * z / n
+    )
+    assert wilson(1, 100, 0.95)[0] == pytest.approx(lo, rel=1e-12)
+    assert lo > 0.001  # the closed form: about 0.18 %
+
+
+def test_dominant_tolerance_tie_break_is_the_harm_alone():
+    """README: equal gains from removing either tolerance: the one that alone does more harm
+    (lower yield alone) is named, whatever the names' order."""
+    from tolerance.montecarlo import dominant_tolerance
+
+    assert dominant_tolerance({"b": 0.5, "a": 0.2}, {"b": 0.7, "a": 0.7}, 0.6, 1.0) == "a"
+    assert dominant_tolerance({"b": 0.2, "a": 0.5}, {"b": 0.7, "a": 0.7}, 0.6, 1.0) == "b"
+
+
+def test_histogram_quantile_one_is_the_exact_maximum_beyond_the_range():
+    """DEVELOPERS.md "Bounded memory": quantiles are clamped to the exact minimum and maximum;
+    the 1-quantile is the exact maximum even when it lies beyond the histogram's range (a later
+    sample outside the pilot's range is counted in the last bin), and the 0-quantile the exact
+    minimum."""
+    from tolerance.montecarlo import hist_quantiles
+
+    hist = np.array([[[1, 1, 0, 4]]])  # (V, W, B): edges 0, 1, 2, 3, 4
+    lo, iw = np.zeros((1, 1)), np.ones((1, 1))
+    vmin, vmax = np.full((1, 1), -3.0), np.full((1, 1), 10.0)
+    out = hist_quantiles(hist, lo, iw, vmin, vmax, [0.0, 1.0])
+    assert out[0, 0, 0] == -3.0 and out[1, 0, 0] == 10.0
