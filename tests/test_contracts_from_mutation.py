@@ -998,3 +998,52 @@ def test_histogram_quantile_one_is_the_exact_maximum_beyond_the_range():
     vmin, vmax = np.full((1, 1), -3.0), np.full((1, 1), 10.0)
     out = hist_quantiles(hist, lo, iw, vmin, vmax, [0.0, 1.0])
     assert out[0, 0, 0] == -3.0 and out[1, 0, 0] == 10.0
+
+
+@pytest.mark.parametrize("rates", [[0.5, 0.6, 0.7, 0.8], [0.4, 0.6]])
+def test_replicated_yield_interval_is_the_student_t_interval(rates):
+    """Owen (1997), L'Ecuyer & Lemieux (2002) sec. 6: R independent scramblings give R unbiased
+    pass rates ȳᵣ; the interval is mean ± t(0.975; R − 1)·s/√R with s the sample standard
+    deviation (ddof 1), clipped to [0, 1] (t quantile from scipy.stats, a reference library).
+    Also for R = 2 (one degree of freedom)."""
+    from scipy.stats import t
+
+    from tolerance.montecarlo import yield_interval
+
+    per = 10
+    passed = np.concatenate([np.arange(per) < round(r * per) for r in rates])
+    y = np.array(rates)
+    R = len(rates)
+    half = t.ppf(0.975, R - 1) * np.std(y, ddof=1) / math.sqrt(R)
+    lo, hi = yield_interval(passed, R, 0.95)
+    assert lo == pytest.approx(max(0.0, y.mean() - half), abs=1e-12)
+    assert hi == pytest.approx(min(1.0, y.mean() + half), abs=1e-12)
+
+
+@pytest.mark.parametrize(
+    "goal",
+    [
+        'state = "circular"\nmetric = "axial_ratio"\nmin = 0.9\nover = "band"',
+        'state = "circular"\nmetric = "fidelity"\nmin = 0.999\nover = "spectrum"',
+    ],
+)
+def test_rank_yield_is_the_yield_unless_axial_ratio_over_the_spectrum(tmp_path, goal):
+    """README "Decision": the decision ranks on the yield; only for an axial-ratio goal over the
+    spectrum (which sees the polarized part only) does it count the samples whose spectral
+    fidelity reaches that of a pure state with b/a = min.  A band goal, or a fidelity goal over
+    the spectrum, ranks on the plain yield and its interval."""
+    from tolerance.montecarlo import Engine
+    from tolerance.spec import loads
+
+    text = (
+        'title = "t"\n[wavelength]\nstart = "640nm"\nstop = "660nm"\nstep = "5nm"\n'
+        '[source]\nshape = "flat"\n'
+        f"[goal]\n{goal}\n[[candidate]]\nname = 'q'\nconstruction = 'zero-order'\n"
+        "material = 'quartz'\nwaves = 0.25\ndesign = '650nm'\n"
+        "[tolerances]\nthickness_um = { sigma = 0.3 }\nclocking_deg = { uniform = 3.0 }\n"
+    )
+    eng = Engine(loads(text, "t.toml"), samples=1024, seed=4)
+    res = eng.evaluate(eng.case(0))
+    assert 0.0 < res.yield_ < 1.0  # the goal splits the samples
+    assert res.rank_yield == res.yield_
+    assert (res.rank_yield_low, res.rank_yield_high) == (res.yield_low, res.yield_high)
