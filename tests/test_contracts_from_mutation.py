@@ -1047,3 +1047,31 @@ def test_rank_yield_is_the_yield_unless_axial_ratio_over_the_spectrum(tmp_path, 
     assert 0.0 < res.yield_ < 1.0  # the goal splits the samples
     assert res.rank_yield == res.yield_
     assert (res.rank_yield_low, res.rank_yield_high) == (res.yield_low, res.yield_high)
+
+
+def test_rank_yield_interval_for_axial_ratio_over_the_spectrum_is_wilson():
+    """For an axial-ratio goal over the spectrum the rank yield counts the samples whose spectral
+    fidelity reaches f_min = ½(1 + 2m/(1 + m²)) (a pure state of b/a = m: the fidelity to the
+    circular goal is ½(1 + s₃) with s₃ = sin 2χ = 2m/(1 + m²), Azzam & Bashara sec. 1.3); its
+    interval is the Wilson interval of that count (Wilson 1927)."""
+    from tolerance.kernel import spectral_metric
+    from tolerance.montecarlo import Engine, wilson
+    from tolerance.spec import loads
+
+    text = (
+        'title = "t"\n[wavelength]\nstart = "640nm"\nstop = "660nm"\nstep = "5nm"\n'
+        '[source]\nshape = "flat"\n'
+        '[goal]\nstate = "circular"\nmetric = "axial_ratio"\nmin = 0.9\nover = "spectrum"\n'
+        "[[candidate]]\nname = 'q'\nconstruction = 'zero-order'\n"
+        "material = 'quartz'\nwaves = 0.25\ndesign = '650nm'\n"
+        "[tolerances]\nthickness_um = { sigma = 0.3 }\nclocking_deg = { uniform = 3.0 }\n"
+    )
+    n = 1024
+    eng = Engine(loads(text, "t.toml"), samples=n, seed=4)
+    case = eng.case(0)
+    res = eng.evaluate(case)
+    f_min = 0.5 * (1.0 + 2 * 0.9 / (1 + 0.81))
+    fid = spectral_metric(res.spec_stokes, case.goal, "fidelity")
+    k = int(np.sum(fid >= f_min))
+    assert 0 < k < n and res.rank_yield == k / n != res.yield_
+    assert (res.rank_yield_low, res.rank_yield_high) == wilson(k, n, 0.95)
