@@ -706,6 +706,8 @@ def test_kernel_angle_metrics_equal_the_polarization_functions():
     assert _angle_metric(0.0, 0.0, 0.0, *gl, METRIC_SPHERE) == 90.0
     assert _angle_metric(0.0, 0.0, 0.0, *gl, METRIC_AZIMUTH_ERROR) == 90.0
     assert _angle_metric(0.0, 0.0, 0.5, *gl, METRIC_AZIMUTH_ERROR) == 90.0
+    # circular to rounding (a linear part of 1e-10 of the whole): no azimuth to offer either
+    assert _angle_metric(1e-10, 0.0, 1.0, *gl, METRIC_AZIMUTH_ERROR) == 90.0
     assert _angle_metric(0.3, 0.1, 0.2, 0.0, 0.0, 1.0, METRIC_AZIMUTH_ERROR) == 0.0
     assert _angle_metric(0.0, 0.0, 0.0, *gl, METRIC_ELLIPTICITY_ERROR) == 0.0
 
