@@ -211,29 +211,39 @@ def _require(d: dict, key: str, where: str, types):
         raise RetolError(f"{where}: {key}", "missing", f"add the key {key!r}")
     v = d[key]
     if not isinstance(v, types) or isinstance(v, bool):
-        raise RetolError(f"{where}: {key}", f"has the wrong type ({type(v).__name__})")
+        raise RetolError(
+            f"{where}: {key}",
+            f"has the wrong type ({type(v).__name__})",
+            "give a list of numbers" if types is list else "give a number",
+        )
     return v
 
 
 def _coeff_block(block, formula, where):
     if not isinstance(block, dict):
-        raise RetolError(where, "must be a table of coefficients")
+        raise RetolError(
+            where, "must be a table of coefficients", "write it as [formula.NAME] with its keys"
+        )
     if formula == "ghosh":
         out = {}
         for k in "ABCDE":
             v = _require(block, k, where, (int, float))
             if not math.isfinite(v):
-                raise RetolError(f"{where}: {k}", "is not finite")
+                raise RetolError(f"{where}: {k}", "is not finite", "give a finite number")
             out[k] = float(v)
         return out
     a = _require(block, "A", where, list)
     li = _require(block, "lambda", where, list)
     if len(a) != len(li) or not a:
-        raise RetolError(f"{where}: lambda", "must have as many entries as A")
+        raise RetolError(
+            f"{where}: lambda",
+            "must have as many entries as A (and at least one)",
+            "give one resonance wavelength per strength",
+        )
     try:
         out = {"A": [float(x) for x in a], "lambda": [float(x) for x in li]}
     except (TypeError, ValueError):
-        raise RetolError(f"{where}: A", "entries must be numbers") from None
+        raise RetolError(f"{where}: A", "entries must be numbers", "give numbers only") from None
     for k, vals in out.items():
         if not all(math.isfinite(x) for x in vals):
             raise RetolError(f"{where}: {k}", "has a value that is not finite", "fix the number")
