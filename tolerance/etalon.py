@@ -148,46 +148,22 @@ def read_reflectance_csv(path, field: str) -> Faces:
     regular file of at most :data:`tolerance.limits.MAX_DATA_BYTES`; the rows are checked by
     :func:`coating_table` (sorted, no repeats, values in range, no NaN or inf).
     """
-    import re
     from pathlib import Path
 
-    from .limits import read_data_file
+    from .limits import read_csv_rows
 
     path = Path(path)
     name = path.name
-    data = read_data_file(path, field, what="reflectance CSV file")
-    try:
-        text = data.decode("utf-8-sig")
-    except UnicodeDecodeError as exc:
-        raise RetolError(field, f"cannot read {name} ({exc})", "give a UTF-8 CSV file") from None
-    wl, R = [], []
-    first = True
-    for lineno, raw in enumerate(text.splitlines(), start=1):
-        line = raw.strip()
-        if not line or line.startswith("#"):
-            continue
-        cells = [c for c in re.split(r"\s*[,;\t]\s*|\s+", line) if c != ""]
-        try:
-            values = [float(c) for c in cells]
-        except ValueError:
-            if first:  # a header row
-                first = False
-                continue
-            raise RetolError(
-                field,
-                f"{name} line {lineno}: cannot read {line!r} as two numbers",
-                "give rows of wavelength_nm,reflectance",
-            ) from None
-        first = False
-        if len(values) != 2:
-            raise RetolError(
-                field,
-                f"{name} line {lineno}: expected 2 columns (wavelength_nm, reflectance), "
-                f"found {len(values)}",
-                "give rows of wavelength_nm,reflectance",
-            )
-        wl.append(values[0])
-        R.append(values[1])
+    rows = read_csv_rows(
+        path,
+        field,
+        "reflectance CSV file",
+        2,
+        "give rows of wavelength_nm,reflectance",
+        "wavelength_nm, reflectance",
+    )
+    wl = [v[0] for _, v in rows]
+    R = [v[1] for _, v in rows]
     return coating_table(wl, R, field, f"{name} data", file=name)
 
 

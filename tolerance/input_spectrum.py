@@ -12,7 +12,6 @@ right-handed).
 from __future__ import annotations
 
 import math
-import re
 from pathlib import Path
 
 import numpy as np
@@ -41,34 +40,12 @@ def read_stokes_csv(path: Path, field: str) -> tuple[np.ndarray, np.ndarray]:
         wavelength that is not positive or repeats, a degree of polarization above 1, fewer than
         2 rows.
     """
-    from .limits import read_data_file
+    from .limits import read_csv_rows
 
     name = path.name
-    data = read_data_file(path, field, what="Stokes CSV file")
-    try:
-        text = data.decode("utf-8-sig")
-    except UnicodeDecodeError as exc:
-        raise RetolError(field, f"cannot read {name} ({exc})", "give a UTF-8 CSV file") from None
     rows = []
-    first = True
     fix = "give rows of wavelength_nm,s1,s2,s3"
-    for lineno, raw in enumerate(text.splitlines(), start=1):
-        line = raw.strip()
-        if not line or line.startswith("#"):
-            continue
-        cells = [c for c in re.split(r"\s*[,;\t]\s*|\s+", line) if c != ""]
-        try:
-            values = [float(c) for c in cells]
-        except ValueError:
-            if first:  # a header row
-                first = False
-                continue
-            raise RetolError(field, f"{name} line {lineno}: cannot read {line!r}", fix) from None
-        first = False
-        if len(values) != 4:
-            raise RetolError(
-                field, f"{name} line {lineno}: expected 4 columns, found {len(values)}", fix
-            )
+    for lineno, values in read_csv_rows(path, field, "Stokes CSV file", 4, fix):
         if not all(math.isfinite(v) for v in values):
             raise RetolError(
                 field, f"{name} line {lineno}: value is not finite", "remove or fix NaN/inf rows"

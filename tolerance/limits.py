@@ -185,6 +185,51 @@ def read_data_file(path, field: str, limit: int = MAX_DATA_BYTES, what: str = "f
     return data
 
 
+def read_csv_rows(path, field: str, what: str, columns: int, fix: str, names: str = ""):
+    """The numeric rows of a small data table: ``[(line number, [values])]``.
+
+    The file passes :func:`read_data_file`; it is UTF-8 (a byte-order mark is allowed), cells
+    are separated by commas, semicolons, tabs or spaces, blank lines and ``#`` comments are
+    skipped and a first row that is not numbers is a header.  Every other row must hold
+    ``columns`` numbers (``names`` lists them in the error); ``fix`` is the advice given for a
+    row that does not.  Checking the values (finite, positive, ...) is the caller's.
+    """
+    import re
+
+    name = Path(path).name
+    data = read_data_file(path, field, what=what)
+    try:
+        text = data.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        raise RetolError(field, f"cannot read {name} ({exc})", "give a UTF-8 CSV file") from None
+    rows = []
+    first = True
+    for lineno, raw in enumerate(text.splitlines(), start=1):
+        line = raw.strip()
+        if not line or line.startswith("#"):
+            continue
+        cells = [c for c in re.split(r"\s*[,;\t]\s*|\s+", line) if c != ""]
+        try:
+            values = [float(c) for c in cells]
+        except ValueError:
+            if first:  # a header row
+                first = False
+                continue
+            raise RetolError(
+                field, f"{name} line {lineno}: cannot read {line!r} as {columns} numbers", fix
+            ) from None
+        first = False
+        if len(values) != columns:
+            shown = f" ({names})" if names else ""
+            raise RetolError(
+                field,
+                f"{name} line {lineno}: expected {columns} columns{shown}, found {len(values)}",
+                fix,
+            )
+        rows.append((lineno, values))
+    return rows
+
+
 def available_memory() -> int | None:
     """Memory this process may still use: MemAvailable, capped by a cgroup limit. [bytes]
 

@@ -782,43 +782,17 @@ def read_spectrum_csv(path: pathlib.Path, field: str) -> tuple[np.ndarray, np.nd
         a wavelength is not positive or repeated, a power is negative or all powers are zero, or
         there are fewer than 2 rows.
     """
-    from .limits import read_data_file
+    from .limits import read_csv_rows
 
     name = path.name
-    data = read_data_file(path, field, what="spectrum CSV file")  # a regular file, size capped
-    try:
-        text = data.decode("utf-8-sig")
-    except UnicodeDecodeError as exc:
-        raise RetolError(field, f"cannot read {name} ({exc})", "give a UTF-8 CSV file") from None
     rows = []
-    first = True
-    for lineno, raw in enumerate(text.splitlines(), start=1):
-        line = raw.strip()
-        if not line or line.startswith("#"):
-            continue
-        cells = [c for c in re.split(r"\s*[,;\t]\s*|\s+", line) if c != ""]
-        try:
-            values = [float(c) for c in cells]
-        except ValueError:
-            if first:  # a header row
-                first = False
-                continue
-            raise RetolError(
-                field,
-                f"{name} line {lineno}: cannot read {line!r} as two numbers",
-                "give rows of wavelength_nm,power",
-            ) from None
-        first = False
-        if len(values) != 2:
-            raise RetolError(
-                field,
-                f"{name} line {lineno}: expected 2 columns, found {len(values)}",
-                "give rows of wavelength_nm,power",
-            )
+    for lineno, values in read_csv_rows(
+        path, field, "spectrum CSV file", 2, "give rows of wavelength_nm,power"
+    ):
         if not all(math.isfinite(v) for v in values):
             raise RetolError(
                 field,
-                f"{name} line {lineno}: value is not finite ({line!r})",
+                f"{name} line {lineno}: value is not finite ({values})",
                 "remove or fix NaN/inf rows",
             )
         if values[0] <= 0:
