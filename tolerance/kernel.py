@@ -398,6 +398,23 @@ def _cut_row(k0, no2l, ne2l, th, tf, sin2i, cz, p, pj, ret, hh):
 
 
 @nb.njit(inline="always", **_OPTS)
+def _layer_retardance(k0, no2, ne2, rat, dn, th, tf, sin2i, cphi2, sphi2, cz, p):
+    """Retardance [rad] of one layer at one wavelength: normal incidence, exact oblique
+    incidence (o- and e-wave normal components), or, with the optic axis tipped out of the face
+    (cz = sin κ ≠ 0), :func:`_cut_retardance`.  Shared by the line path and the polarizer
+    branch (:mod:`tolerance.kernel_polarizer`)."""
+    if cz != 0.0:
+        return _cut_retardance(k0, no2, ne2, th, tf, sin2i, cz, p)
+    if sin2i == 0.0:
+        dN = abs(dn)
+    else:
+        No = math.sqrt(no2 - sin2i)
+        Ne = math.sqrt(ne2 - sin2i * sphi2 - rat * sin2i * cphi2)
+        dN = abs(Ne - No)
+    return k0 * th * dN * tf
+
+
+@nb.njit(inline="always", **_OPTS)
 def _propagate(
     k0,
     no2,
@@ -429,18 +446,10 @@ def _propagate(
     yi = sai
     ret = 0.0
     for l in range(n_layers):
-        if cut[l, 0] != 0.0:
-            delta = _cut_retardance(
-                k0, no2[l], ne2[l], thick[l], tfac[l], sin2i, cut[l, 0], cut[l, 1]
-            )
-        else:
-            if sin2i == 0.0:
-                dN = abs(dn[l])
-            else:
-                No = math.sqrt(no2[l] - sin2i)
-                Ne = math.sqrt(ne2[l] - sin2i * sphi2[l] - rat[l] * sin2i * cphi2[l])
-                dN = abs(Ne - No)
-            delta = k0 * thick[l] * dN * tfac[l]
+        delta = _layer_retardance(
+            k0, no2[l], ne2[l], rat[l], dn[l], thick[l], tfac[l], sin2i, cphi2[l], sphi2[l],
+            cut[l, 0], cut[l, 1],
+        )  # fmt: skip
         ret += proj[l] * delta
         s, c = _sincos_any(0.5 * delta)
         C = c2[l]

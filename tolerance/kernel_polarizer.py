@@ -43,10 +43,10 @@ from .kernel import (
     N_WORK,
     _axial_ratio,
     _azimuth,
-    _cut_retardance,
     _fold_sample,
     _is_max,
     _keep_sample,
+    _layer_retardance,
     _metric,
     _scatter_block,
     _sincos_any,
@@ -89,18 +89,10 @@ def _state(k0, no2, ne2, rat, dn, thick, tfac, c2, s2, sin2i, cphi2, sphi2, inp,
                 p[o + 2] = m01 * xr + m11 * yr
                 p[o + 3] = m01 * xi + m11 * yi
             continue
-        if cut[l, 0] != 0.0:
-            delta = _cut_retardance(
-                k0, no2[l], ne2[l], thick[l], tfac[l], sin2i, cut[l, 0], cut[l, 1]
-            )
-        else:
-            if sin2i == 0.0:
-                dN = abs(dn[l])
-            else:
-                No = math.sqrt(no2[l] - sin2i)
-                Ne = math.sqrt(ne2[l] - sin2i * sphi2[l] - rat[l] * sin2i * cphi2[l])
-                dN = abs(Ne - No)
-            delta = k0 * thick[l] * dN * tfac[l]
+        delta = _layer_retardance(
+            k0, no2[l], ne2[l], rat[l], dn[l], thick[l], tfac[l], sin2i, cphi2[l], sphi2[l],
+            cut[l, 0], cut[l, 1],
+        )  # fmt: skip
         ret += proj[l] * delta
         s, c = _sincos_any(0.5 * delta)
         for k in range(2):
